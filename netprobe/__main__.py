@@ -1,0 +1,7 @@
+"""``python -m netprobe``: the same as the ``netprobe`` command."""
+
+import sys
+
+from netprobe.cli import main
+
+sys.exit(main())
