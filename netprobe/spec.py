@@ -437,6 +437,11 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None) -> 
             slots = bond.slots
             for factor, names in entry.products:
                 coeff = _evaluate_factor(factor, env, where, entry) * coupling
+                if len(names) != bond.arity and all(m is None for _, m in names):
+                    raise SpecError(
+                        f"{where}: {entry.label}: {len(names)} operators for bonds of '{entry.on}' with "
+                        f"{bond.arity} members; give one operator per member"
+                    )
                 ops = []
                 for position, (name, member) in enumerate(names):
                     slot = position if member is None else member
@@ -447,11 +452,6 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None) -> 
                         )
                     if slot in slots:
                         ops.append((bond.sites[slots.index(slot)], name))
-                if len(names) != bond.arity and all(m is None for _, m in names):
-                    raise SpecError(
-                        f"{where}: {entry.label}: {len(names)} operators for bonds of '{entry.on}' with "
-                        f"{bond.arity} members; give one operator per member"
-                    )
                 if entry.peierls and (flux or twist) and len(ops) == 2 and space.flux_charge:
                     coeff *= _peierls_factor(lattice, bond, ops, slots, names, space, flux, twist)
                 origin = f"{entry.label} on sites {bond.sites}"
