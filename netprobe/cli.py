@@ -98,9 +98,11 @@ def cmd_models(args) -> int:
 
 
 def _model_summary(model) -> dict:
+    from netprobe.mpo import build_mpo
     from netprobe.sites import count_sector_states
 
     ham = model.hamiltonian
+    mpo = build_mpo(ham)
     families = {}
     for entry in model.spec.terms:
         families[entry.on] = len(model.lattice.family(entry.on))
@@ -117,6 +119,7 @@ def _model_summary(model) -> dict:
         "sector": ham.sector,
         "complex": bool(ham.is_complex),
         "exact_dimension": dim,
+        "mpo_bond_dimensions": mpo.bond_dimensions,
         "parameters": model.numeric_parameters(),
     }
 
@@ -135,6 +138,8 @@ def cmd_check(args) -> int:
         "families   " + ", ".join(f"{k}: {v} bonds" for k, v in info["bond_families"].items()),
         f"sector     {sector}",
         f"exact dim  {info['exact_dimension']:,} basis states in the sector",
+        f"MPO        max bond dimension {max(info['mpo_bond_dimensions'], default=1)} "
+        f"(bonds: {' '.join(map(str, info['mpo_bond_dimensions']))})",
         "Hermitian  yes",
     ]
     _emit(args, info, lines)

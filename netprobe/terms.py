@@ -25,7 +25,7 @@ from typing import Iterable, Sequence
 
 import numpy as np
 
-from netprobe.errors import HermiticityError, OperatorError
+from netprobe.errors import HermiticityError, OperatorError, SectorError
 from netprobe.sites import SiteSpace, operator_parity
 
 __all__ = ["Term", "LocalProduct", "Hamiltonian", "normal_form"]
@@ -168,6 +168,16 @@ class Hamiltonian:
             if term.origin in add_conjugate:
                 products.append(prod.adjoint())
         return cls(lattice, space, products, **kwargs)
+
+    def with_sector(self, sector: dict[str, int]) -> "Hamiltonian":
+        """The same Hamiltonian targeting another charge sector (e.g. N + 1 for a charge gap)."""
+        unknown = set(sector) - set(self.conserve)
+        if unknown:
+            raise SectorError(
+                f"charge(s) {', '.join(sorted(unknown))} not conserved; conserved: {', '.join(self.conserve) or 'none'}"
+            )
+        return Hamiltonian(self.lattice, self.space, self.products, conserve=self.conserve,
+                           sector={**self.sector, **sector})
 
     @property
     def num_sites(self) -> int:

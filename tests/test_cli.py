@@ -1,0 +1,77 @@
+"""The command line through real subprocesses: fixed interface points and one-line errors."""
+
+import json
+import math
+
+import pytest
+from conftest import run_cli
+
+
+def assert_one_line_error(proc, match):
+    assert proc.returncode == 2, proc.stderr
+    lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1, proc.stderr
+    assert "Traceback" not in proc.stderr
+    assert match in lines[0], lines[0]
+
+
+def test_models_lists_every_bundled_model():
+    proc = run_cli("models", check=True)
+    names = {line.split()[0] for line in proc.stdout.splitlines() if line.strip()}
+    assert {"heisenberg", "tfim", "haldane", "chern_square", "kitaev", "kagome_chiral", "toric_code",
+            "hubbard", "hofstadter"} <= names
+
+
+def test_check_reports_dimensions():
+    proc = run_cli("check", "heisenberg", "--set", "length=10", "--json", check=True)
+    info = json.loads(proc.stdout)
+    assert info["sites"] == 10
+    assert info["exact_dimension"] == math.comb(10, 5)  # Sz = 0 sector of 10 spins-1/2 (binomial count)
+    assert max(info["mpo_bond_dimensions"]) == 5  # Heisenberg chain MPO: 2 + 3 channels (common practice)
+
+
+def test_exact_json_keys_and_value():
+    proc = run_cli("exact", "tfim", "--set", "length=8", "--json", check=True)
+    out = json.loads(proc.stdout)
+    for key in ("energy", "energy_per_site", "sites", "parameters"):
+        assert key in out
+    n = 8
+    # open critical Ising chain: E0 = J [1 - 1/sin(pi/(4N+2))] (Pfeuty, Ann. Phys. 57, 79 (1970))
+    assert out["energy"] == pytest.approx(1 - 1 / math.sin(math.pi / (4 * n + 2)), rel=1e-10)
+    assert out["energy_per_site"] == pytest.approx(out["energy"] / n, rel=1e-14)
+    assert out["parameters"]["h"] == 1.0
+
+
+def test_exact_text_output():
+    proc = run_cli("exact", "heisenberg", "--set", "length=6", check=True)
+    assert "ground-state energy" in proc.stdout
+
+
+@pytest.mark.parametrize(
+    "args, match",
+    [
+        (("check", "nosuchmodel"), "model 'nosuchmodel' not found"),
+        (("check", "heisenberg", "--set", "J3=1"), "has no parameter 'J3'"),
+        (("check", "heisenberg", "--set", "length=0"), "length must be a positive integer"),
+        (("check", "heisenberg", "--set", "length"), "--set expects name=value"),
+        (("exact", "heisenberg", "--set", "length=5"), "has no states"),
+        (("check", "heisenberg", "--set", "lattice=hexagon"), "unknown lattice 'hexagon'"),
+        (("exact",), "required"),
+        (("frobnicate",), "invalid choice"),
+    ],
+)
+def test_bad_input_is_one_line_exit_2(args, match):
+    assert_one_line_error(run_cli(*args), match)
+
+
+def test_malformed_model_file(tmp_path):
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[model\nname = 'x'\n")
+    assert_one_line_error(run_cli("check", str(bad)), "not valid TOML")
+    nonherm = tmp_path / "nonherm.toml"
+    nonherm.write_text(
+        '[model]\nname = "nh"\nsite = "fermion"\nconserve = ["N"]\n'
+        '[parameters]\nlattice = "chain"\nlength = 4\ncircumference = 1\n[sector]\nN = 2\n'
+        '[[term]]\non = "nn"\nops = "cdag c"\ncoupling = "1j"\n'
+    )
+    assert_one_line_error(run_cli("check", str(nonherm)), "not Hermitian")
