@@ -55,6 +55,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--states", type=int, default=1, metavar="K", help="number of lowest states (default 1)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_exact)
+
+    p = sub.add_parser("regions", help="carve a region layout on the lattice; list its sites, draw it")
+    _add_model_arguments(p)
+    p.add_argument("--layout", required=True, metavar="KIND:KEY=VALUE,...",
+                   help="e.g. sectors:radius=3  disk:radius=2.5,center=4,2  levin_wen:inner=1,outer=3,cut=40")
+    p.add_argument("--plot", metavar="FILE.png", help="draw the lattice with the parts coloured")
+    p.add_argument("--json", action="store_true", help="print one JSON object (sites and coordinates)")
+    p.set_defaults(func=cmd_regions)
     return parser
 
 
@@ -179,6 +187,32 @@ def cmd_exact(args) -> int:
     lines.append(f"time                  {seconds:.2f} s")
     _emit(args, payload, lines)
     return 0
+
+
+def cmd_regions(args) -> int:
+    """Build a region layout on the model's lattice, print or plot it."""
+    from netprobe.regions import parse_region
+
+    model = _load(args)
+    layout = parse_region(args.layout, model.lattice)
+    if args.plot:
+        from netprobe.plots import plot_layout
+
+        _check_png(args.plot)
+        plot_layout(layout, args.plot, title=f"{model.name}: {layout.describe()}")
+    payload = {"model": model.name, "lattice": model.lattice.describe(), **layout.to_json()}
+    lines = [f"{model.name}: {model.lattice.describe()}", layout.describe()]
+    for name in layout.names:
+        lines.append(f"  {name}: {len(layout[name])} sites  {' '.join(map(str, layout[name]))}")
+    if args.plot:
+        lines.append(f"plot written to {args.plot}")
+    _emit(args, payload, lines)
+    return 0
+
+
+def _check_png(path: str):
+    if not str(path).lower().endswith(".png"):
+        raise NetprobeError(f"--plot {path}: plots are written as PNG; give a file name ending in .png")
 
 
 def main(argv=None) -> int:

@@ -1,0 +1,140 @@
+"""Figures written to files with matplotlib's Agg backend; each function stands alone.
+
+Nothing here computes physics: every function takes finished objects (a region layout, a
+result), draws them on a fresh figure that is never registered with pyplot, writes one PNG and
+returns its path. Functions share only the palette.
+
+Functions
+    :func:`plot_layout`  the lattice with the parts of a region layout.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.collections import LineCollection
+from matplotlib.figure import Figure
+
+from netprobe.errors import LatticeError
+from netprobe.regions import Layout
+
+__all__ = ["PART_COLOURS", "plot_layout"]
+
+PART_COLOURS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#000000")
+"""Colours of parts A, B, C, ... in order: the colour-blind-safe set of M. Okabe and K. Ito,
+"Color Universal Design" (2008), without its yellow, which is faint on white."""
+
+_SITE_GREY = "#a0a0a0"
+_BOND_GREY = "#d4d4d4"
+_INK = "#262626"
+
+
+def _wrapped_segments(lattice):
+    """Bond segments in wrapped coordinates; a bond across a seam becomes two half stubs."""
+    segments = []
+    try:
+        bonds = lattice.family("nn")
+    except LatticeError:
+        return segments
+    for bond in bonds:
+        for p in range(len(bond.sites) - 1):
+            i, j = bond.sites[p], bond.sites[p + 1]
+            vec = bond.positions[p + 1] - bond.positions[p]
+            a, b = lattice.positions[i], lattice.positions[j]
+            if np.allclose(b - a, vec, atol=1e-9):
+                segments.append((a, b))
+            else:  # drawn up to the seam from both sides
+                segments.append((a, a + 0.5 * vec))
+                segments.append((b, b - 0.5 * vec))
+    return segments
+
+
+def _label_point(lattice, sites):
+    """Where to write a part's letter: its centroid, with the y mean taken around the cylinder."""
+    pos = lattice.positions[list(sites)]
+    x = float(pos[:, 0].mean())
+    if lattice.geometry == "strip" or lattice.circumference == 1:
+        return x, float(pos[:, 1].mean())
+    c = lattice.circumference_length
+    phase = np.exp(2j * np.pi * pos[:, 1] / c).mean()
+    if abs(phase) < 0.3:  # spread all around the cylinder: put the letter half way up
+        return x, 0.5 * c
+    return x, float((np.angle(phase) / (2 * np.pi) * c) % c)
+
+
+def plot_layout(layout: Layout, path, *, title: str | None = None) -> Path:
+    """Draw a lattice with the parts of a region layout and write it as a PNG.
+
+    Sites are small grey dots and nearest-neighbour bonds thin light lines (a bond across the seam
+    of a periodic direction is drawn up to the seam from both ends); the sites of each part are
+    larger discs in the part's colour, each connected piece of a part carries its letter, the
+    layout's centre is marked with a small cross and the seam of the cylinder with dotted lines.
+
+    Parameters
+    ----------
+    layout : Layout
+    path : str or Path
+        Output file; its folder is created if missing.
+    title : str, optional
+        Defaults to the layout in command-line syntax and the lattice description.
+
+    Returns
+    -------
+    Path
+        The file written.
+    """
+    path = Path(path)
+    lat = layout.lattice
+    pos = lat.positions
+    xmin, xmax = float(pos[:, 0].min()), float(pos[:, 0].max())
+    periodic = lat.geometry != "strip" and lat.circumference > 1
+    if periodic:
+        ymin, ymax = 0.0, lat.circumference_length
+    else:
+        ymin, ymax = float(pos[:, 1].min()), float(pos[:, 1].max())
+    span_x, span_y = max(xmax - xmin, 1.0), max(ymax - ymin, 1.0)
+    scale = min(10.0 / span_x, 7.0 / span_y, 0.9)
+    fig = Figure(figsize=(max(4.5, span_x * scale + 2.6), max(3.0, span_y * scale + 1.6)))
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+
+    segments = _wrapped_segments(lat)
+    if segments:
+        ax.add_collection(LineCollection(segments, colors=_BOND_GREY, linewidths=0.8, zorder=1))
+    ax.scatter(pos[:, 0], pos[:, 1], s=9, c=_SITE_GREY, linewidths=0, zorder=2)
+    disc = max(18.0, 160.0 * scale**2)
+    for k, (name, sites) in enumerate(layout.parts.items()):
+        colour = PART_COLOURS[k % len(PART_COLOURS)]
+        p = pos[list(sites)]
+        ax.scatter(p[:, 0], p[:, 1], s=disc, c=colour, edgecolors=_INK, linewidths=0.5, zorder=3,
+                   label=f"{name}: {len(sites)} sites")
+        for piece in layout.components(name):
+            lx, ly = _label_point(lat, piece)
+            ax.text(lx, ly, name, ha="center", va="center", fontsize=12, fontweight="bold", color=colour,
+                    zorder=5, bbox=dict(boxstyle="round,pad=0.15", facecolor="white", edgecolor=colour,
+                                        linewidth=0.8, alpha=0.85))
+    if layout.center is not None:
+        cx, cy = layout.center
+        ax.plot([cx], [cy], marker="+", markersize=9, color=_INK, linestyle="none", zorder=4)
+    if periodic:
+        for y in (0.0, lat.circumference_length):
+            ax.axhline(y, color="#8c8c8c", linestyle=":", linewidth=0.8, zorder=0)
+
+    pad = 0.6
+    ax.set_xlim(xmin - pad, xmax + pad)
+    ax.set_ylim(ymin - pad, ymax + pad)
+    ax.set_aspect("equal")
+    ax.set_xlabel("x (open)")
+    ax.set_ylabel("y (around)" if periodic else "y")
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    ax.tick_params(direction="out", length=3, labelsize=8)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, fontsize=8, handletextpad=0.3)
+    heading = title if title is not None else f"{layout.spec}\n{lat.describe()}"
+    ax.set_title(heading, fontsize=9, loc="left")
+    fig.tight_layout()
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fig.savefig(path, dpi=110, format="png")
+    return path
