@@ -56,6 +56,28 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_exact)
 
+    p = sub.add_parser("run", help="DMRG ground state over a ladder of bond dimensions, with checkpoints")
+    _add_model_arguments(p)
+    p.add_argument("--bond-dimension", required=True, metavar="D[,D...]",
+                   help="ladder of bond dimensions, e.g. 64,128,256 (each stage warm-starts the next)")
+    p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum sweeps per stage")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the random initial state (default 0)")
+    p.add_argument("--out", default=None, metavar="DIR", help="folder for state files and the checkpoint")
+    p.add_argument("--resume", action="store_true", help="continue from the checkpoint in --out")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_run)
+
+    p = sub.add_parser("measure", help="observables of a saved state")
+    p.add_argument("state", metavar="STATE", help="state file written by 'netprobe run'")
+    p.add_argument("--local", action="append", default=[], metavar="OP", help="<OP_i> on every site (repeatable)")
+    p.add_argument("--correlation", action="append", default=[], metavar="OP,OP",
+                   help="<A_i B_j> from the centre site i to every j (repeatable)")
+    p.add_argument("--entropy", action="store_true", help="entanglement entropy at every bond")
+    p.add_argument("--energy", action="store_true", help="energy and variance")
+    p.add_argument("--plot", metavar="FILE.png", help="plot the requested profiles")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_measure)
+
     p = sub.add_parser("regions", help="carve a region layout on the lattice; list its sites, draw it")
     _add_model_arguments(p)
     p.add_argument("--layout", required=True, metavar="KIND:KEY=VALUE,...",
@@ -187,6 +209,106 @@ def cmd_exact(args) -> int:
     lines.append(f"time                  {seconds:.2f} s")
     _emit(args, payload, lines)
     return 0
+
+
+def _bond_dimensions(text: str) -> tuple[int, ...]:
+    try:
+        values = tuple(int(v) for v in text.split(",") if v.strip())
+    except ValueError:
+        raise NetprobeError(f"--bond-dimension {text}: give integers separated by commas, e.g. 64,128,256") from None
+    if not values or min(values) < 1:
+        raise NetprobeError(f"--bond-dimension {text}: every bond dimension must be at least 1, e.g. 64,128,256")
+    if any(b <= a for a, b in zip(values, values[1:])):
+        raise NetprobeError(f"--bond-dimension {text}: the ladder must increase, e.g. 64,128,256")
+    return values
+
+
+def cmd_run(args) -> int:
+    """DMRG over a bond-dimension ladder; state files and checkpoints in --out."""
+    from netprobe.dmrg import LadderSettings, SweepSettings, run_ladder
+    from netprobe.spec import parse_overrides
+
+    chis = _bond_dimensions(args.bond_dimension)
+    if args.sweeps is not None and args.sweeps < 1:
+        raise NetprobeError(f"--sweeps must be at least 1, got {args.sweeps}")
+    if args.resume and not args.out:
+        raise NetprobeError("--resume needs --out DIR: the folder that holds the checkpoint")
+    model = _load(args)
+    sweeps = SweepSettings(max_sweeps=args.sweeps) if args.sweeps else SweepSettings()
+    settings = LadderSettings(bond_dimensions=chis, sweeps=sweeps)
+    result = run_ladder(model, settings, overrides=parse_overrides(args.overrides), seed=args.seed,
+                        out=args.out, resume=args.resume, progress=sys.stderr)
+    payload = {"model": model.name, "engine": "dmrg", "sites": model.num_sites,
+               "parameters": model.numeric_parameters(), **result.to_dict()}
+    lines = [f"{model.name}: {model.lattice.describe()}"]
+    lines.append(f"{'D':>6} {'energy':>20} {'discarded':>10} {'variance':>10} {'sweeps':>6} {'seconds':>8}")
+    for st in payload["stages"]:
+        var = st.get("variance")
+        lines.append(f"{st['bond_dimension']:>6} {st['energy']:>20.12f} {st['discarded_weight']:>10.2e} "
+                     f"{(var if var is not None else float('nan')):>10.2e} {st['sweeps']:>6} {st['seconds']:>8.1f}")
+    ext = payload.get("extrapolation")
+    if ext:
+        lines.append(f"extrapolated (w -> 0): {ext['energy']:.12f} +- {ext['error']:.2e}  ({ext['method']})")
+    if payload.get("out"):
+        lines.append(f"state files in {payload['out']}")
+    _emit(args, payload, lines)
+    return 0
+
+
+def cmd_measure(args) -> int:
+    """Observables of a saved MPS: local profiles, correlations, entropies, energy."""
+    from netprobe import mps as mpsmod
+    from netprobe.store import load_state
+
+    saved = load_state(args.state)
+    state = saved.state
+    model = saved.model()
+    payload: dict = {"state_file": str(args.state), "model": model.name, "sites": model.num_sites,
+                     "bond_dimension": state.max_bond_dimension}
+    lines = [f"{args.state}: {model.name}, {model.num_sites} sites, bond dimension {state.max_bond_dimension}"]
+    profiles = {}
+    if args.energy or not (args.local or args.correlation or args.entropy):
+        from netprobe.mpo import build_mpo
+
+        mpo = build_mpo(model.hamiltonian)
+        energy = float(np.real(mpsmod.expectation_value(state, mpo)))
+        variance = float(mpsmod.energy_variance(state, mpo))
+        payload.update(energy=energy, energy_per_site=energy / model.num_sites, variance=variance)
+        lines.append(f"energy {energy:.12f}  per site {energy / model.num_sites:.12f}  variance {variance:.2e}")
+    for op in args.local:
+        values = mpsmod.local_expectations(state, op)
+        payload.setdefault("local", {})[op] = _complex_list(values)
+        profiles[f"<{op}>"] = np.real(values)
+        lines.append(f"<{op}_i>: " + " ".join(f"{v:.6f}" for v in np.real(values)) + f"   mean {np.mean(np.real(values)):.8f}")
+    for pair in args.correlation:
+        names = [p.strip() for p in pair.split(",")]
+        if len(names) != 2 or not all(names):
+            raise NetprobeError(f"--correlation {pair}: give two operators separated by a comma, e.g. Sz,Sz")
+        i = model.num_sites // 2
+        values = [mpsmod.correlation(state, names[0], names[1], i, j) for j in range(model.num_sites)]
+        payload.setdefault("correlation", {})[pair] = {"from_site": i, "values": _complex_list(values)}
+        profiles[f"<{names[0]}_{i} {names[1]}_j>"] = np.real(values)
+        lines.append(f"<{names[0]}_{i} {names[1]}_j>: " + " ".join(f"{np.real(v):.6f}" for v in values))
+    if args.entropy:
+        ent = np.asarray(mpsmod.entanglement_entropies(state), dtype=float)
+        payload["entropies"] = ent.tolist()
+        profiles["S(bond)"] = ent
+        lines.append("entanglement entropy per bond: " + " ".join(f"{v:.5f}" for v in ent))
+    if args.plot:
+        _check_png(args.plot)
+        from netprobe.plots import plot_profiles
+
+        plot_profiles(profiles, args.plot, title=f"{model.name}, D = {state.max_bond_dimension}")
+        lines.append(f"plot written to {args.plot}")
+    _emit(args, payload, lines)
+    return 0
+
+
+def _complex_list(values):
+    arr = np.asarray(values)
+    if np.iscomplexobj(arr) and np.max(np.abs(arr.imag), initial=0.0) > 1e-12:
+        return [[float(v.real), float(v.imag)] for v in arr]
+    return [float(v) for v in np.real(arr)]
 
 
 def cmd_regions(args) -> int:

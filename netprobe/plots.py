@@ -20,7 +20,7 @@ from matplotlib.figure import Figure
 from netprobe.errors import LatticeError
 from netprobe.regions import Layout
 
-__all__ = ["PART_COLOURS", "plot_layout"]
+__all__ = ["PART_COLOURS", "plot_layout", "plot_profiles"]
 
 PART_COLOURS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#000000")
 """Colours of parts A, B, C, ... in order: the colour-blind-safe set of M. Okabe and K. Ito,
@@ -137,4 +137,34 @@ def plot_layout(layout: Layout, path, *, title: str | None = None) -> Path:
     fig.tight_layout()
     path.parent.mkdir(parents=True, exist_ok=True)
     fig.savefig(path, dpi=110, format="png")
+    return path
+
+
+def plot_profiles(profiles, path, *, title=None) -> Path:
+    """Plot named profiles (site or bond index -> value) in stacked panels and write a PNG.
+
+    Parameters
+    ----------
+    profiles : mapping of str to array_like
+        One panel per entry, in order.
+    path : str or Path
+        Output file; missing folders are created.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    n = max(len(profiles), 1)
+    fig = Figure(figsize=(6.0, 1.9 * n + 0.6), dpi=120)
+    FigureCanvasAgg(fig)
+    for k, (label, values) in enumerate(profiles.items()):
+        ax = fig.add_subplot(n, 1, k + 1)
+        values = np.asarray(values, dtype=float)
+        ax.plot(np.arange(len(values)), values, marker="o", ms=3, lw=1.2, color=PART_COLOURS[k % len(PART_COLOURS)])
+        ax.set_ylabel(label)
+        ax.grid(alpha=0.25)
+        if k == n - 1:
+            ax.set_xlabel("site (MPS order)" if not label.startswith("S(") else "bond")
+    if title:
+        fig.suptitle(title, fontsize=10)
+    fig.tight_layout()
+    fig.savefig(path)
     return path

@@ -70,6 +70,7 @@ __all__ = [
     "eigh",
     "trace",
     "diag_multiply",
+    "BlockLayout",
     "plan_cache_info",
     "clear_plan_cache",
 ]
@@ -1192,6 +1193,103 @@ def diag_multiply(t: BlockTensor, axis: int, values) -> BlockTensor:
             )
         blocks[key] = (blk * vec).astype(dtype, copy=False)
     return BlockTensor._new(t.legs, t._qkey, t.rule, blocks, dtype)
+
+
+class BlockLayout:
+    """A fixed order of the allowed blocks of one leg structure, to see block tensors as 1-D arrays.
+
+    Iterative eigensolvers and file formats want a tensor as one flat vector. The layout lists every
+    block allowed by ``legs`` and ``charge`` in lexicographic order of the sector indices and gives each
+    a slice of the vector.
+
+    Parameters
+    ----------
+    legs : sequence of Leg
+    charge : array_like of int, shape (k,), or None
+    rule : ChargeRule
+    dtype : {float64, complex128}
+
+    Attributes
+    ----------
+    legs : tuple of Leg
+    keys : tuple of tuple of int
+        Block keys in vector order.
+    size : int
+        Length of the packed vector (number of allowed entries).
+
+    Examples
+    --------
+    >>> rule = ChargeRule.u1()
+    >>> leg = Leg([[0], [1]], [2, 1])
+    >>> layout = BlockLayout((leg, leg.dual()), None, rule)
+    >>> layout.size
+    5
+    """
+
+    __slots__ = ("legs", "rule", "charge", "dtype", "keys", "size", "_slots", "_qkey")
+
+    def __init__(self, legs, charge, rule, dtype=np.float64):
+        legs, qkey = _check_structure(legs, charge, rule, "BlockLayout")
+        self.legs = legs
+        self.rule = rule
+        self._qkey = qkey
+        self.charge = np.array(qkey, np.int64)
+        self.dtype = _check_dtype(dtype, "BlockLayout")
+        self.keys = _allowed_keys(legs, qkey, rule)
+        slots, start = [], 0
+        for key in self.keys:
+            shape = _block_shape(legs, key)
+            stop = start + int(np.prod(shape, dtype=np.int64))
+            slots.append((key, start, stop, shape))
+            start = stop
+        self._slots = tuple(slots)
+        self.size = start
+
+    def pack(self, t: BlockTensor, out: np.ndarray | None = None) -> np.ndarray:
+        """Copy the blocks of ``t`` into a vector of length :attr:`size` (missing blocks give zeros).
+
+        Raises
+        ------
+        SectorError
+            If ``t`` has other legs or another total charge than the layout.
+        """
+        _check_tensor(t, "BlockLayout.pack")
+        if t.legs != self.legs or t._qkey != self._qkey:
+            raise SectorError(
+                "BlockLayout.pack: the tensor's legs or total charge differ from the layout's; build the "
+                "layout from this tensor's legs"
+            )
+        if out is None:
+            out = np.zeros(self.size, _result_dtype(self.dtype, t.dtype))
+        else:
+            out[...] = 0
+        blocks = t.blocks
+        for key, start, stop, _ in self._slots:
+            blk = blocks.get(key)
+            if blk is not None:
+                out[start:stop] = blk.reshape(-1)
+        return out
+
+    def unpack(self, vector) -> BlockTensor:
+        """Return the tensor whose blocks are (views of) the slices of ``vector``.
+
+        Raises
+        ------
+        NetprobeError
+            If ``vector`` is not 1-D of length :attr:`size`.
+        """
+        vec = np.asarray(vector)
+        if vec.ndim != 1 or vec.shape[0] != self.size:
+            raise NetprobeError(
+                f"BlockLayout.unpack: need a 1-D array of length {self.size}, got shape {vec.shape}"
+            )
+        dtype = _result_dtype(vec.dtype)
+        vec = vec.astype(dtype, copy=False)
+        blocks = {key: vec[start:stop].reshape(shape) for key, start, stop, shape in self._slots}
+        return BlockTensor._new(self.legs, self._qkey, self.rule, blocks, dtype)
+
+    def __repr__(self):
+        return f"BlockLayout(blocks={len(self.keys)}, size={self.size}, dtype={self.dtype})"
 
 
 # --------------------------------------------------------------------------------------------------

@@ -1,0 +1,86 @@
+"""`netprobe run` / `netprobe measure` through real subprocesses: JSON keys, kill and resume, bad input."""
+
+import json
+import math
+import os
+import signal
+import subprocess
+import sys
+
+import h5py
+import pytest
+from conftest import run_cli
+
+from test_cli import assert_one_line_error
+
+STAGE_KEYS = ("bond_dimension", "energy", "discarded_weight", "variance", "sweeps", "seconds", "state_file")
+
+
+def test_run_json_stages_and_measure(tmp_path):
+    out = tmp_path / "run"
+    proc = run_cli("run", "tfim", "--set", "length=16", "--bond-dimension", "8,16", "--out", str(out), "--json",
+                   check=True)
+    payload = json.loads(proc.stdout)
+    assert [st["bond_dimension"] for st in payload["stages"]] == [8, 16]
+    for st in payload["stages"]:
+        for key in STAGE_KEYS:
+            assert key in st
+        assert os.path.isfile(st["state_file"])
+    n = 16
+    # open critical Ising chain, E0 = J [1 - 1/sin(pi/(4N+2))] (Pfeuty, Ann. Phys. 57, 79 (1970));
+    # D = 16 is converged to ~1e-10 here, so 1e-8 relative is a safe bound
+    assert payload["stages"][-1]["energy"] == pytest.approx(1 - 1 / math.sin(math.pi / (4 * n + 2)), rel=1e-8)
+    meas = json.loads(run_cli("measure", payload["stages"][-1]["state_file"], "--local", "X", "--entropy",
+                              "--energy", "--json", check=True).stdout)
+    assert meas["energy"] == pytest.approx(payload["stages"][-1]["energy"], rel=1e-10)
+    assert len(meas["local"]["X"]) == n and len(meas["entropies"]) == n - 1
+
+
+def test_killed_run_resumes_to_the_same_energy(tmp_path):
+    args = ["heisenberg", "--set", "length=20", "--bond-dimension", "12,24,40", "--seed", "7"]
+    ref = json.loads(run_cli("run", *args, "--out", str(tmp_path / "ref"), "--json", check=True).stdout)
+    out = tmp_path / "killed"
+    env = dict(os.environ, PYTHONUNBUFFERED="1")
+    proc = subprocess.Popen([sys.executable, "-m", "netprobe", "run", *args, "--out", str(out)],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True, env=env)
+    seen_stage2_sweep = False
+    for line in proc.stderr:
+        if line.startswith("D=24") and "sweep" in line:
+            seen_stage2_sweep = True
+            break
+    proc.send_signal(signal.SIGKILL)  # in the middle of stage 2
+    proc.wait(timeout=60)
+    assert seen_stage2_sweep and proc.returncode == -signal.SIGKILL
+    assert (out / "checkpoint.h5").is_file()
+    with h5py.File(out / "checkpoint.h5", "r"):  # the checkpoint on disk is whole after SIGKILL
+        pass
+    assert not [p for p in os.listdir(out) if p.endswith(".tmp") or ".tmp" in p]
+    resumed = json.loads(run_cli("run", *args, "--out", str(out), "--resume", "--json", check=True).stdout)
+    assert len(resumed["stages"]) == 3
+    for a, b in zip(ref["stages"], resumed["stages"]):
+        assert b["energy"] == pytest.approx(a["energy"], abs=1e-10)
+
+
+@pytest.mark.parametrize(
+    "args, match",
+    [
+        (("run", "heisenberg", "--set", "length=5", "--bond-dimension", "8"), "has no states"),
+        (("run", "heisenberg", "--bond-dimension", "0"), "at least 1"),
+        (("run", "heisenberg", "--bond-dimension", "16,8"), "must increase"),
+        (("run", "heisenberg", "--bond-dimension", "x"), "integers separated by commas"),
+        (("run", "heisenberg", "--bond-dimension", "8", "--resume"), "--resume needs --out"),
+    ],
+)
+def test_run_bad_input(args, match):
+    assert_one_line_error(run_cli(*args), match)
+
+
+def test_measure_rejects_foreign_and_unreadable_files(tmp_path):
+    text = tmp_path / "notes.h5"
+    text.write_text("not a state\n")
+    assert_one_line_error(run_cli("measure", str(text)), str(text))
+    foreign = tmp_path / "foreign.h5"
+    with h5py.File(foreign, "w") as fh:
+        fh["data"] = [1, 2, 3]
+    assert_one_line_error(run_cli("measure", str(foreign)), str(foreign))
+    assert_one_line_error(run_cli("measure", str(tmp_path / "missing.h5")), "missing.h5")

@@ -1,0 +1,373 @@
+"""Two-site DMRG against exact references: our exact engine on small systems, closed forms and
+published numbers on long chains, and the properties every run must have (variational energies,
+reproducible checkpoints, honest non-convergence).
+"""
+
+import io
+import math
+import os
+import warnings
+
+import numpy as np
+import pytest
+import scipy.linalg
+
+from netprobe import exact
+from netprobe.dmrg import (CHECKPOINT_NAME, EIGENSOLVERS, ConvergenceWarning, DmrgEngine, LadderSettings,
+                           SweepSettings, extrapolate_energy, find_ground_state, resume_ladder, run_ladder,
+                           stage_file_name)
+from netprobe.dmrg.engine import LOCAL_UPDATES
+from netprobe.dmrg.solvers import lanczos_lowest
+from netprobe.errors import NetprobeError, SectorError
+from netprobe.mpo import build_mpo
+from netprobe.mps import entanglement_entropies, expectation_value, random_state
+from netprobe.spec import load_model
+from netprobe.store import load_state
+
+# Catalogue of small cases with a trusted reference (our exact engine), tagged by what they exercise.
+EXACT_CASES = {
+    "heisenberg-chain": ("heisenberg", {"length": "12"}, 64, "critical"),
+    "heisenberg-cylinder-w3": ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, 64,
+                               "two-dimensional"),
+    "haldane-interacting": ("haldane", {"length": "2", "circumference": "2", "phi": "pi/3", "V": "1.0"}, 32,
+                            "fermionic, chiral, complex, long hoppings"),
+    "kagome-chiral": ("kagome_chiral", {"length": "3", "circumference": "1", "twice_sz": "1", "Jchi": "0.7"},
+                      32, "chiral, complex"),
+    "hubbard-chain": ("hubbard", {"length": "6"}, 64, "fermionic, two charges"),
+    "tfim-no-charge": ("tfim", {"length": "10", "h": "0.7"}, 32, "no conserved charge"),
+    "kitaev-no-charge": ("kitaev", {"length": "2"}, 32, "no conserved charge, complex"),
+}
+TIGHT = dict(energy_tolerance=1e-12, discarded_tolerance=1e-9)
+
+
+def _quiet(**kw):
+    return dict(progress=None, **kw)
+
+
+@pytest.mark.parametrize("case", list(EXACT_CASES))
+def test_ground_energy_matches_exact_engine(case):
+    name, overrides, chi, tags = EXACT_CASES[case]
+    model = load_model(name, overrides)
+    ham = model.hamiltonian
+    if "complex" in tags:
+        assert ham.is_complex
+    if "long hoppings" in tags:  # a fermion hopping with Jordan-Wigner strings across other sites
+        assert any(p.sites[-1] - p.sites[0] > 1 and len(p.sites) > 2 for p in ham.products)
+    reference = exact.ground_state(ham).energy  # our exact engine (reference)
+    result = find_ground_state(model, SweepSettings(bond_dimension=chi, ramp=(), **TIGHT), seed=3, **_quiet())
+    assert result.converged, result.message
+    # truncation_weight 1e-12 and residual 1e-8 bound the error far below 1e-8 relative
+    assert abs(result.energy - reference) <= 1e-8 * abs(reference), (result.energy, reference)
+    state_energy = expectation_value(result.state, build_mpo(ham))
+    assert abs(state_energy - reference) <= 1e-8 * abs(reference)
+
+
+@pytest.mark.parametrize("solver", list(EIGENSOLVERS))
+@pytest.mark.parametrize("update", list(LOCAL_UPDATES))
+def test_every_eigensolver_and_local_update_reach_the_exact_energy(solver, update):
+    model = load_model("heisenberg", {"length": "10", "Delta": "0.5", "J2": "0.2"})
+    reference = exact.ground_state(model.hamiltonian).energy  # our exact engine (reference)
+    warm = find_ground_state(model, SweepSettings(bond_dimension=32, eigensolver=solver, **TIGHT), seed=4,
+                             **_quiet())
+    settings = SweepSettings(bond_dimension=32, eigensolver=solver, local_update=update, **TIGHT)
+    result = find_ground_state(model, settings, state=warm.state, **_quiet())
+    assert abs(result.energy - reference) <= 1e-9 * abs(reference)
+
+
+@pytest.mark.parametrize("dtype", [np.float64, np.complex128])
+def test_lanczos_kernel_matches_numpy_eigvalsh(dtype, rng):
+    n = 200
+    a = rng.standard_normal((n, n))
+    if dtype == np.complex128:
+        a = a + 1j * rng.standard_normal((n, n))
+    h = (a + a.conj().T) / 2
+    pair = lanczos_lowest(lambda x: h @ x, rng.standard_normal(n).astype(dtype), tol=1e-10,
+                          krylov_dimension=60, restarts=20)
+    expected = scipy.linalg.eigvalsh(h)[0]  # LAPACK reference
+    assert pair.converged
+    # a residual r bounds the eigenvalue error by r (Weyl; Parlett 1998, ch. 4)
+    assert abs(pair.value - expected) <= max(pair.residual, 1e-12) * 10
+    assert np.linalg.norm(h @ pair.vector - pair.value * pair.vector) <= 1e-10 * abs(expected) * 10
+
+
+# ---- long chains: closed forms and published numbers -------------------------------------------
+
+
+def _calabrese_cardy_c(entropies, length, even_only):
+    """Fit S(l) = (c/6) ln x + s0 + b/x with x = (2L/pi) sin(pi l / L) over L/8 <= l <= 7L/8.
+
+    The open-chain form is from Calabrese and Cardy, J. Stat. Mech. P06002 (2004); the b/x term
+    absorbs the leading boundary (and, for even l only, parity) correction, whose 1/x decay in the
+    XX chain is from Laflorencie, Sorensen, Chang and Affleck, PRL 96, 100603 (2006) (from memory).
+    """
+    l = np.arange(1, length)
+    x = (2 * length / np.pi) * np.sin(np.pi * l / length)
+    mask = (l >= length // 8) & (l <= length - length // 8)
+    if even_only:
+        mask &= l % 2 == 0
+    design = np.column_stack([np.log(x[mask]) / 6, np.ones(mask.sum()), 1 / x[mask]])
+    return float(np.linalg.lstsq(design, entropies[mask], rcond=None)[0][0])
+
+
+@pytest.fixture(scope="module")
+def critical_ising_64():
+    model = load_model("tfim", {"length": "64", "J": "1.0", "h": "1.0"})
+    return find_ground_state(model, SweepSettings(bond_dimension=24, energy_tolerance=1e-10,
+                                                  discarded_tolerance=1e-9), seed=1, **_quiet())
+
+
+def test_critical_ising_open_chain_energy_closed_form(critical_ising_64):
+    n, j = 64, 1.0
+    # open chain at h = J: E0 = J [1 - 1/sin(pi/(4N+2))] (Pfeuty, Ann. Phys. 57, 79 (1970))
+    expected = j * (1 - 1 / math.sin(math.pi / (4 * n + 2)))
+    assert critical_ising_64.converged
+    assert abs(critical_ising_64.energy - expected) <= 1e-8 * abs(expected)
+
+
+def test_critical_ising_central_charge(critical_ising_64):
+    c = _calabrese_cardy_c(entanglement_entropies(critical_ising_64.state), 64, even_only=False)
+    # c = 1/2 for the critical Ising chain (Calabrese and Cardy, J. Stat. Mech. P06002 (2004))
+    assert abs(c - 0.5) <= 0.03 * 0.5
+
+
+def test_xx_chain_central_charge():
+    length = 48
+    model = load_model("heisenberg", {"length": str(length), "Delta": "0"})
+    result = find_ground_state(model, SweepSettings(bond_dimension=32, energy_tolerance=1e-9,
+                                                    discarded_tolerance=1e-6), seed=1, **_quiet())
+    c = _calabrese_cardy_c(entanglement_entropies(result.state), length, even_only=True)
+    # c = 1 for the XX chain (Calabrese and Cardy, J. Stat. Mech. P06002 (2004)); even l only because of
+    # the parity oscillation of open chains
+    assert abs(c - 1.0) <= 0.03
+
+
+def _open_chain_energy(length, chi):
+    model = load_model("heisenberg", {"length": str(length)})
+    result = find_ground_state(model, SweepSettings(bond_dimension=chi, energy_tolerance=1e-9,
+                                                    discarded_tolerance=1e-5), seed=1, **_quiet())
+    assert result.converged, result.message
+    return result.energy
+
+
+def test_heisenberg_bulk_energy_by_finite_size_elimination():
+    # E(L) = e L + e_boundary + a / L + ...: three lengths eliminate e_boundary and a
+    e12, e24, e48 = (_open_chain_energy(n, 32) for n in (12, 24, 48))
+    e_bulk = (2 * (e48 - e24) - (e24 - e12)) / 36
+    # 1/4 - ln 2 (Bethe, Z. Phys. 71, 205 (1931); Hulthen, Ark. Mat. Astron. Fys. 26A (1938)); 1e-4 leaves
+    # room for the 1/L^2 and logarithmic corrections the elimination keeps
+    assert abs(e_bulk - (0.25 - math.log(2))) <= 1e-4
+
+
+@pytest.mark.slow
+def test_heisenberg_bulk_energy_from_long_chains():
+    e32, e64, e128 = (_open_chain_energy(n, chi) for n, chi in ((32, 64), (64, 64), (128, 64)))
+    bulk = 0.25 - math.log(2)  # Bethe (1931); Hulthen (1938)
+    # E(2L) - E(L) cancels the boundary energy; what remains falls like 1/L^2
+    assert abs((e128 - e64) / 64 - bulk) <= 1e-4
+    assert abs((2 * (e128 - e64) - (e64 - e32)) / 96 - bulk) <= 2e-5
+
+
+# ---- properties of the sweeps ------------------------------------------------------------------
+
+
+def _norm_bound(ham):
+    """sum |coefficient| * prod ||matrix||_2 bounds the spectral width of H (triangle inequality)."""
+    return 2 * sum(abs(p.coefficient) * np.prod([np.linalg.norm(m, 2) for m in p.matrices])
+                   for p in ham.products)
+
+
+def test_single_site_sweeps_never_raise_the_energy():
+    model = load_model("haldane", {"length": "3", "circumference": "2", "V": "1.0"})
+    mpo = build_mpo(model.hamiltonian)
+    warm = DmrgEngine(mpo, random_state(model.hamiltonian, bond_dimension=10, rng=4),
+                      SweepSettings(bond_dimension=10, ramp=()), **_quiet())
+    warm.sweep()
+    engine = DmrgEngine(mpo, warm.state, SweepSettings(bond_dimension=10, local_update="single-site",
+                                                       max_sweeps=50), **_quiet())
+    energies = [engine.sweep().energy for _ in range(6)]
+    # variational: each local update minimises over a space that contains the current state, and the QR
+    # gauge moves are exact, so only rounding (a few ulps of |E| per sweep) can raise the energy
+    assert max(np.diff(energies)) <= 100 * np.finfo(float).eps * abs(energies[-1])
+    assert energies[-1] < energies[0]
+
+
+def test_two_site_energy_rises_at_most_by_the_truncation():
+    model = load_model("heisenberg", {"length": "24"})
+    ham = model.hamiltonian
+    engine = DmrgEngine(build_mpo(ham), random_state(ham, bond_dimension=8, rng=4),
+                        SweepSettings(bond_dimension=8, ramp=(), noise=0.0, max_sweeps=50), **_quiet())
+    records = [engine.sweep() for _ in range(6)]
+    width = _norm_bound(ham)
+    steps = 2 * (ham.num_sites - 1)
+    for before, after in zip(records, records[1:]):
+        # keeping a fraction 1 - w of an eigenvector raises its energy by exactly w (E_d - E) / (1 - w),
+        # E_d the energy of the discarded part (derived from H theta = E theta), at most w * width
+        w = after.discarded_weight
+        bound = steps * w * width / (1 - w) + 100 * np.finfo(float).eps * abs(after.energy)
+        assert after.energy - before.energy <= bound
+
+
+def test_engine_steps_and_reports_each_sweep():
+    model = load_model("heisenberg", {"length": "10"})
+    stream = io.StringIO()
+    engine = DmrgEngine(build_mpo(model.hamiltonian), random_state(model.hamiltonian, rng=1),
+                        SweepSettings(bond_dimension=16, discarded_tolerance=1e-3), progress=stream)
+    first = engine.sweep()
+    assert first.sweep == 1 and math.isnan(first.energy_change) and first.bond_dimension == 16
+    assert first.centre_entropy > 0 and first.seconds > 0 and first.matvecs > 0
+    second = engine.sweep()
+    assert second.sweep == 2 and second.energy_change == pytest.approx(second.energy - first.energy)
+    result = engine.run()
+    assert result.converged and result.sweeps == len(result.energies) == len(result.history) >= 3
+    lines = stream.getvalue().splitlines()
+    assert len(lines) == result.sweeps and all(line.startswith("sweep ") for line in lines)
+    assert "\r" not in stream.getvalue()  # no live indicator when the stream is not a terminal
+    assert repr(result).startswith("DmrgResult(energy=-4.2580") and len(repr(result)) < 120
+
+
+class _Terminal(io.StringIO):
+    def isatty(self):
+        return True
+
+
+def test_live_indicator_on_terminals():
+    model = load_model("heisenberg", {"length": "8"})
+    stream = _Terminal()
+    engine = DmrgEngine(build_mpo(model.hamiltonian), random_state(model.hamiltonian, rng=1),
+                        SweepSettings(bond_dimension=8), progress=stream)
+    engine.sweep()
+    text = stream.getvalue()
+    assert "\r" in text and "sweep 1: bond 14/14" in text
+    assert text.endswith("\n") and "\rsweep   1 |" not in text and "sweep   1 | D" in text
+
+
+def test_non_convergence_keeps_the_work_and_warns():
+    model = load_model("heisenberg", {"length": "10"})
+    with pytest.warns(ConvergenceWarning, match="not converged after 2 sweeps"):
+        result = find_ground_state(model, SweepSettings(bond_dimension=16, max_sweeps=2), seed=1, **_quiet())
+    assert not result.converged and result.sweeps == 2 and math.isfinite(result.energy)
+    with pytest.warns(ConvergenceWarning, match="discarded weight .* exceeds discarded_tolerance"):
+        result = find_ground_state(model, SweepSettings(bond_dimension=4, discarded_tolerance=1e-12), seed=1,
+                                   **_quiet())
+    assert not result.converged and result.state.max_bond_dimension <= 4
+
+
+# ---- ladders, checkpoints, resume ----------------------------------------------------------------
+
+
+def test_extrapolate_energy_on_exact_lines_and_bad_input():
+    w = np.array([4e-3, 2e-3, 1e-3, 5e-4])
+    e = -10.0 + 3.0 * w
+    fit = extrapolate_energy(w, e)
+    assert fit.energy == pytest.approx(np.polyfit(w, e, 1)[1], abs=1e-12)  # numpy.polyfit reference
+    assert fit.slope == pytest.approx(3.0) and fit.error <= 1e-12 and fit.points == 4
+    two = extrapolate_energy(w[:2], e[:2] + [0.0, 1e-3])
+    assert two.error == pytest.approx(abs(two.energy - e[1] - 1e-3))
+    with pytest.raises(NetprobeError, match="at least two stages"):
+        extrapolate_energy([1e-3], [-1.0])
+
+
+def test_ladder_extrapolation_brackets_the_exact_energy(tmp_path):
+    overrides = {"lattice": "square", "circumference": "4", "length": "4"}
+    model = load_model("heisenberg", overrides)
+    reference = exact.ground_state(model.hamiltonian).energy  # our exact engine (reference)
+    settings = LadderSettings(bond_dimensions=(16, 24, 32, 40), sweeps=SweepSettings(max_sweeps=6),
+                              variance=True)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        result = run_ladder(model, settings, overrides=overrides, seed=2, out=tmp_path, progress=None)
+    stages = result.stages
+    assert [s.bond_dimension for s in stages] == [16, 24, 32, 40]
+    assert all(b.energy < a.energy for a, b in zip(stages, stages[1:]))
+    assert all(s.variance > 0 and s.discarded_weight > 0 for s in stages)
+    x = result.extrapolation
+    assert x.points == 4
+    # the extrapolation must beat the best stage and its error bar must cover the exact energy
+    assert abs(x.energy - reference) < abs(stages[-1].energy - reference)
+    assert abs(x.energy - reference) <= x.error
+    for k, s in enumerate(stages):
+        assert os.path.basename(s.state_file) == stage_file_name(k, s.bond_dimension)
+        assert load_state(s.state_file).info["energy"] == s.energy
+    payload = result.to_dict()
+    assert set(payload["stages"][0]) >= {"bond_dimension", "energy", "discarded_weight", "variance", "sweeps",
+                                         "seconds", "state_file"}
+    assert sorted(os.listdir(tmp_path)) == sorted([CHECKPOINT_NAME] + [stage_file_name(k, s.bond_dimension)
+                                                                       for k, s in enumerate(stages)])
+
+
+class _Interrupt(Exception):
+    """Stands in for a killed process."""
+
+
+def _interrupt_after(monkeypatch, sweeps):
+    original = DmrgEngine.sweep
+    count = {"n": 0}
+
+    def sweep(self):
+        if count["n"] == sweeps:
+            raise _Interrupt
+        count["n"] += 1
+        return original(self)
+
+    monkeypatch.setattr(DmrgEngine, "sweep", sweep)
+
+
+def test_resume_from_a_mid_run_checkpoint_reproduces_the_uninterrupted_run(tmp_path, monkeypatch):
+    overrides = {"length": "16", "J2": "0.3"}
+    model = load_model("heisenberg", overrides)
+    settings = LadderSettings(bond_dimensions=(8, 16), sweeps=SweepSettings(energy_tolerance=1e-10))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        straight = run_ladder(model, settings, overrides=overrides, seed=7, out=tmp_path / "a", progress=None)
+        _interrupt_after(monkeypatch, straight.stages[0].sweeps + 2)  # two sweeps into the second stage
+        with pytest.raises(_Interrupt):
+            run_ladder(model, settings, overrides=overrides, seed=7, out=tmp_path / "b", progress=None)
+        monkeypatch.undo()
+        saved = load_state(tmp_path / "b" / CHECKPOINT_NAME)
+        assert saved.kind == "checkpoint" and saved.info["stage"] == 1
+        assert len(saved.info["engine"]["history"]) == 2
+        assert saved.rng_state["bit_generator"] == "PCG64"
+        resumed = resume_ladder(tmp_path / "b", progress=None)
+    for a, b in zip(straight.stages, resumed.stages, strict=True):
+        # same seed, same arithmetic: equal to rounding (the brief asks for 1e-10)
+        assert abs(a.energy - b.energy) <= 1e-10 and a.sweeps == b.sweeps
+        assert abs(a.variance - b.variance) <= 1e-10
+    assert not [f for f in os.listdir(tmp_path / "b") if f.endswith(".tmp")]
+
+    # a finished folder is not recomputed
+    def no_sweeps(self):
+        raise AssertionError("a finished stage was recomputed")
+
+    monkeypatch.setattr(DmrgEngine, "sweep", no_sweeps)
+    again = run_ladder(model, settings, overrides=overrides, seed=7, out=tmp_path / "b", resume=True,
+                       progress=None)
+    assert [s.energy for s in again.stages] == [s.energy for s in resumed.stages]
+    with pytest.raises(NetprobeError, match="different run .*bond dimensions"):
+        run_ladder(model, LadderSettings(bond_dimensions=(8, 24)), overrides=overrides, seed=7,
+                   out=tmp_path / "b", resume=True, progress=None)
+
+
+def test_bad_input_raises_our_errors(tmp_path):
+    with pytest.raises(NetprobeError, match="bond_dimension=0 must be an integer of at least 1"):
+        SweepSettings(bond_dimension=0)
+    with pytest.raises(NetprobeError, match="unknown eigensolver 'davidsen'; valid eigensolvers: lanczos"):
+        SweepSettings(eigensolver="davidsen")
+    with pytest.raises(NetprobeError, match="unknown local_update"):
+        SweepSettings(local_update="three-site")
+    with pytest.raises(NetprobeError, match="bond dimension 0 must be an integer of at least 1"):
+        LadderSettings(bond_dimensions=(64, 0))
+    with pytest.raises(NetprobeError, match="must increase from stage to stage"):
+        LadderSettings(bond_dimensions=(128, 64))
+    with pytest.raises(NetprobeError, match="unknown setting.* chi"):
+        SweepSettings.from_dict({"chi": 4})
+    ham = load_model("heisenberg", {"length": "8"}).hamiltonian
+    with pytest.raises(SectorError, match="sector 2Sz = 3 has no states on 8 sites"):
+        find_ground_state(ham.with_sector({"2Sz": 3}), **_quiet())
+    with pytest.raises(SectorError, match="sector 2Sz = 10 has no states"):
+        find_ground_state(ham.with_sector({"2Sz": 10}), **_quiet())
+    with pytest.raises(NetprobeError, match="resume needs the output folder"):
+        run_ladder(load_model("heisenberg", {"length": "8"}), LadderSettings(bond_dimensions=(4,)),
+                   resume=True)
+    one = load_model("tfim", {"length": "1"})
+    with pytest.raises(NetprobeError, match="at least 2 sites"):
+        find_ground_state(one, **_quiet())
