@@ -409,7 +409,10 @@ def build_lattice(
         raise LatticeError(f"unknown honeycomb orientation '{orientation}'; valid: {', '.join(ORIENTATIONS)}")
     key = f"honeycomb-{orientation}" if name == "honeycomb" else name
     cell = _CELLS[key]
-    if name in ("chain", "square"):
+    if name == "chain":  # second neighbours two steps along x (the square cell's diagonals would wrap)
+        templates = [_Template(f, ((0, 0, 0), (1, 0, 0))) for f in ("nn", "nn_along_x")]
+        templates.append(_Template("nnn", ((0, 0, 0), (2, 0, 0))))
+    elif name == "square":
         nn = _pair_templates(cell, 0, "nn")
         along = [_Template("nn_along_x" if t.members[1][1] == 0 else "nn_along_y", t.members) for t in nn]
         templates = nn + along + _pair_templates(cell, 1, "nnn") + _square_plaquettes()

@@ -38,6 +38,8 @@ from netprobe.terms import Hamiltonian, Term
 
 DENSE_TOL = 1e-11  # LAPACK on matrices of norm <~ 30: 1e3 ulps of the norm (common practice)
 LANCZOS_TOL = 1e-8  # ARPACK at tol=1e-10 relative on |E0| <~ 20
+ROUNDOFF = 1e-12  # the same vector contracted two ways: sums of <~ 1e4 products of O(1) numbers
+STATE_TOL = 1e-10  # eigenvectors from eigh err by ~ eps * norm / gap, with gaps >= 1e-3 here
 
 # Pauli-based spin-1/2 matrices, basis (up, down) (common practice)
 SX = np.array([[0, 1], [1, 0]]) / 2
@@ -291,7 +293,8 @@ def test_complex_couplings_against_dense():
     np.testing.assert_allclose(lanczos.energies, reference[:2], atol=LANCZOS_TOL)
     idx = np.nonzero(mask)[0]
     h_block = hamiltonian_matrix(ham).toarray()
-    np.testing.assert_allclose(h_block, dense[idx][:, idx].toarray(), atol=1e-14)  # exact entries
+    # each entry is one product of couplings and matrix elements: exact up to one rounding
+    np.testing.assert_allclose(h_block, dense[idx][:, idx].toarray(), atol=1e-14)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -348,10 +351,10 @@ def test_fermion_cylinder_is_a_slater_determinant(nf):
     assert result.energy == pytest.approx(levels[:nf].sum(), abs=DENSE_TOL)  # sum of filled levels
     filled = orbitals[:, :nf]
     g = filled.conj() @ filled.T  # <c_i^dag c_j> = sum_n conj(phi_n(i)) phi_n(j) (common practice)
-    np.testing.assert_allclose(local_expectations(result, model, "n"), np.diag(g).real, atol=1e-10)
+    np.testing.assert_allclose(local_expectations(result, model, "n"), np.diag(g).real, atol=STATE_TOL)
     for i, j in [(0, 2), (2, 0), (0, 5), (1, 4), (3, 5)]:
         value = correlation(result, model, "cdag", "c", i, j)
-        assert value == pytest.approx(g[i, j], abs=1e-10)
+        assert value == pytest.approx(g[i, j], abs=STATE_TOL)
 
 
 def test_electron_cylinder_sectors_at_zero_interaction():
@@ -419,23 +422,23 @@ def test_measurements_against_the_full_vector():
     assert psi.shape == (2**n,)
     assert np.count_nonzero(psi) == np.count_nonzero(result.vector())
     sz = local_expectations(result, model, "Sz")
-    assert sz.sum() == pytest.approx(1.0, abs=1e-12)  # total Sz of the sector
+    assert sz.sum() == pytest.approx(1.0, abs=ROUNDOFF)  # total Sz of the sector
     for i in range(n):  # <psi| Sz_i |psi> with the full-space Kronecker operator (common practice)
-        assert sz[i] == pytest.approx(np.vdot(psi, kron_op({i: SZ}, n) @ psi).real, abs=1e-12)
+        assert sz[i] == pytest.approx(np.vdot(psi, kron_op({i: SZ}, n) @ psi).real, abs=ROUNDOFF)
     for i, j in [(0, 1), (2, 6), (7, 3)]:
         want = np.vdot(psi, kron_op({i: SPLUS, j: SMINUS}, n) @ psi)
-        assert correlation(result, model, "Sp", "Sm", i, j) == pytest.approx(want, abs=1e-12)
+        assert correlation(result, model, "Sp", "Sm", i, j) == pytest.approx(want, abs=ROUNDOFF)
         want = np.vdot(psi, kron_op({i: SZ, j: SZ}, n) @ psi).real
-        assert correlation(result, model, "Sz", "Sz", i, j) == pytest.approx(want, abs=1e-12)
+        assert correlation(result, model, "Sz", "Sz", i, j) == pytest.approx(want, abs=ROUNDOFF)
     energy = expectation(result, model.hamiltonian.products)
-    assert isinstance(energy, float) and energy == pytest.approx(result.energy, abs=1e-11)
+    assert isinstance(energy, float) and energy == pytest.approx(result.energy, abs=ROUNDOFF)
     # an operator into another sector: Sm_0 maps 2Sz = 2 to 2Sz = 0
     target = result.basis.with_target({"2Sz": 0})
     lower = operator_matrix([p for p in _single_site_products(model, "Sm", 0)], result.basis, target)
     assert lower.shape == (target.dim, result.basis.dim)
     lowered = np.zeros(2**n)
     lowered[target.codes] = lower @ result.vector()
-    np.testing.assert_allclose(lowered, kron_op({0: SMINUS}, n) @ psi, atol=1e-14)
+    np.testing.assert_allclose(lowered, kron_op({0: SMINUS}, n) @ psi, atol=1e-14)  # entries 0 or 1: exact
 
 
 def _single_site_products(model, name, site):
@@ -477,7 +480,7 @@ def test_twenty_spin_cylinder_completes():
     assert np.linalg.norm(h @ v - result.energy * v) < 1e-6  # eigen-residual at ARPACK tol 1e-10
     x = np.random.default_rng(3).standard_normal(h.shape[0])
     free = hamiltonian_operator(ham, matrix_free=True)
-    np.testing.assert_allclose(free.matvec(x), h @ x, atol=1e-12)
+    np.testing.assert_allclose(free.matvec(x), h @ x, atol=ROUNDOFF)
 
 
 def test_binary_search_lookup_matches_rank_tables(monkeypatch):

@@ -59,6 +59,11 @@ def test_cylinder_of_circumference_one_is_a_chain():
     assert lat.family("nnn") == ()
 
 
+def test_chain_has_second_neighbours():
+    lat = build_lattice("chain", length=6, circumference=1)
+    assert sorted(b.sites for b in lat.family("nnn")) == [(i, i + 2) for i in range(4)]
+
+
 def test_strip_drops_wrapping_bonds():
     cyl = build_lattice("square", length=4, circumference=4)
     strip = build_lattice("square", length=4, circumference=4, geometry="strip")
