@@ -78,6 +78,29 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_measure)
 
+    p = sub.add_parser("probe", help="bulk probes of a ground state on a region: J, c-, gamma, CMI, entropies")
+    p.add_argument("spec", metavar="SOURCE", help="a state file from 'netprobe run', or a model file / bundled model")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="NAME=VALUE",
+                   help="override a model parameter (model sources only; repeatable)")
+    p.add_argument("--region", required=True, metavar="KIND:KEY=VALUE,...",
+                   help="disk:radius=R[,center=X,Y] (three sectors for J and gamma, a shielded split for CMI), "
+                        "or any layout of 'netprobe regions'")
+    p.add_argument("--probes", default="J,CMI,TEE,S", metavar="LIST", help="subset of J,CMI,TEE,S (default all)")
+    p.add_argument("--engine", default="dmrg", choices=("dmrg", "exact", "gaussian"),
+                   help="ground-state engine for a model source (default dmrg)")
+    p.add_argument("--bond-dimension", default="32,64", metavar="D[,D...]",
+                   help="DMRG ladder; the probes are evaluated on every rung (default 32,64)")
+    p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum DMRG sweeps per rung")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="DMRG seed (default 0)")
+    p.add_argument("--out", default=None, metavar="DIR", help="keep the DMRG state files here")
+    p.add_argument("--eps", type=float, default=1e-12, metavar="EPS",
+                   help="relative eigenvalue floor of the modular Hamiltonians (J is also shown at 100 EPS)")
+    p.add_argument("--memory-budget", type=float, default=None, metavar="GB",
+                   help="refuse reduced density matrices above this estimate (default a quarter of the memory)")
+    p.add_argument("--plot", metavar="FILE.png", help="draw the regions (and J against bond dimension)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_probe)
+
     p = sub.add_parser("regions", help="carve a region layout on the lattice; list its sites, draw it")
     _add_model_arguments(p)
     p.add_argument("--layout", required=True, metavar="KIND:KEY=VALUE,...",
@@ -309,6 +332,107 @@ def _complex_list(values):
     if np.iscomplexobj(arr) and np.max(np.abs(arr.imag), initial=0.0) > 1e-12:
         return [[float(v.real), float(v.imag)] for v in arr]
     return [float(v) for v in np.real(arr)]
+
+
+def cmd_probe(args) -> int:
+    """Bulk probes on a region of a saved state or of a model's ground state."""
+    from pathlib import Path
+
+    from netprobe.bulk import probe_model, probe_saved_state
+
+    probes = [p for p in args.probes.split(",") if p.strip()]
+    budget = None
+    if args.memory_budget is not None:
+        if args.memory_budget <= 0:
+            raise NetprobeError(f"--memory-budget must be positive (in GB), got {args.memory_budget}")
+        budget = int(args.memory_budget * 2**30)
+    if args.eps <= 0 or args.eps >= 1e-3:
+        raise NetprobeError(f"--eps {args.eps}: choose a small positive floor such as 1e-12 (large floors bias J)")
+    if args.plot:
+        _check_png(args.plot)
+    source = Path(args.spec)
+    if source.suffix in (".h5", ".hdf5"):
+        if args.overrides:
+            raise NetprobeError("--set applies to model sources; a state file carries its own parameters")
+        result = probe_saved_state(source, args.region, probes=probes, eps=args.eps, memory_budget=budget)
+        model = None
+    else:
+        from netprobe.spec import parse_overrides
+
+        model = _load(args)
+        chis = _bond_dimensions(args.bond_dimension)
+        result = probe_model(model, args.region, engine=args.engine, probes=probes, bond_dimensions=chis,
+                             sweeps=args.sweeps, seed=args.seed, overrides=parse_overrides(args.overrides),
+                             out=args.out, eps=args.eps, memory_budget=budget)
+    lines = _probe_lines(result)
+    if args.plot:
+        _plot_probe(result, args, model)
+        lines.append(f"plot written to {args.plot}")
+    _emit(args, result, lines)
+    return 0
+
+
+def _probe_lines(r: dict) -> list[str]:
+    def fmt(v, spec=".8f"):
+        return "n/a" if v is None else format(v, spec)
+
+    main = r["regions"]["main"]
+    sizes = ", ".join(f"{k} {len(v['sites'])}" for k, v in main["parts"].items())
+    lines = [f"{r['model']} ({r['engine']}): {r['sites']} sites; region {main['spec']} ({sizes})"]
+    if r.get("J") is not None:
+        loose = f"  (at 100 eps: {r['J_loose']:.8f})" if r.get("J_loose") is not None else ""
+        lines.append(f"J = {r['J']:.8f}   c- = 3J/pi = {r['c_minus']:.6f}{loose}")
+    if r.get("chern_number") is not None:
+        lines.append(f"real-space Chern number = {r['chern_number']:.6f}")
+    if r.get("gamma") is not None:
+        lines.append(f"gamma (Kitaev-Preskill) = {r['gamma']:.8f}   (ln 2 = {0.6931471806:.8f})")
+    if r.get("gamma_levin_wen") is not None:
+        lines.append(f"gamma (Levin-Wen) = {r['gamma_levin_wen']:.8f}")
+    if r.get("cmi") is not None:
+        lines.append(f"CMI I(A:C|B) = {fmt(r['cmi'], '.3e')}")
+    if r.get("entropies"):
+        lines.append("entropies: " + "  ".join(f"S_{k} = {v:.6f}" for k, v in r["entropies"].items()))
+    for rung in r.get("ladder", []):
+        lines.append(f"  D = {rung['bond_dimension']:>5}: energy {rung['energy']:.10f}  J = {fmt(rung.get('J'))}  "
+                     f"gamma = {fmt(rung.get('gamma'))}  CMI = {fmt(rung.get('cmi'), '.2e')}")
+    if r.get("note"):
+        lines.append(f"note: {r['note']}")
+    return lines
+
+
+def _plot_probe(result: dict, args, model):
+    from netprobe.plots import plot_layout, plot_profiles
+    from netprobe.regions import build_layout
+    from netprobe.store import load_state
+
+    lattice = model.lattice if model is not None else load_state(args.spec).model().lattice
+    main = result["regions"]["main"]
+    layout = build_layout(lattice, main["kind"], **_layout_params(main["spec"]))
+    title = f"{result['model']}: {main['spec']}"
+    if result.get("J") is not None:
+        title += f"\nJ = {result['J']:.5f}, c- = {result['c_minus']:.4f}"
+    plot_layout(layout, args.plot, title=title)
+    if result.get("ladder"):
+        stem = args.plot[:-4]
+        rungs = result["ladder"]
+        plot_profiles({"J": [r.get("J") or 0.0 for r in rungs]}, f"{stem}_ladder.png",
+                      title="J by ladder rung: D = " + ", ".join(str(r["bond_dimension"]) for r in rungs))
+
+
+def _layout_params(spec: str) -> dict:
+    kind, _, rest = spec.partition(":")
+    params: dict = {}
+    items = rest.split(",")
+    k = 0
+    while k < len(items):
+        key, _, value = items[k].partition("=")
+        if key == "center":
+            params[key] = (float(value), float(items[k + 1]))
+            k += 2
+            continue
+        params[key] = float(value)
+        k += 1
+    return params
 
 
 def cmd_regions(args) -> int:

@@ -1,0 +1,71 @@
+"""`netprobe probe` and `netprobe regions` through real subprocesses."""
+
+import json
+import math
+
+import pytest
+from conftest import run_cli
+
+from test_cli import assert_one_line_error
+
+KEYS = ("J", "c_minus", "gamma", "cmi", "entropies", "regions", "engine")
+
+
+def test_probe_gaussian_chern_insulator_json():
+    proc = run_cli("probe", "chern_square", "--set", "length=16", "--set", "circumference=16", "--set",
+                   "geometry=strip", "--engine", "gaussian", "--region", "disk:radius=6", "--json", check=True)
+    out = json.loads(proc.stdout)
+    for key in KEYS + ("chern_number",):
+        assert key in out
+    # 0 < m < 2: C = 1 (Qi, Wu, Zhang, PRB 74, 085308 (2006)); J = (pi/3) c- for a bulk disk
+    # (Phys. Rev. Lett. 128, 176402 (2022)); a 16x16 strip is small, so 1e-2 rather than 1e-3
+    assert out["chern_number"] == pytest.approx(1.0, abs=1e-2)
+    assert out["J"] / (math.pi / 3) == pytest.approx(1.0, abs=1e-2)
+    assert out["cmi"] is not None and out["cmi"] >= -1e-12
+    assert set(out["regions"]["main"]["parts"]) == {"A", "B", "C"}
+    sites = out["regions"]["main"]["parts"]["A"]["sites"]
+    assert sites and len(out["regions"]["main"]["parts"]["A"]["positions"]) == len(sites)
+
+
+def test_probe_exact_matches_gaussian_on_a_small_haldane_cylinder():
+    args = ("probe", "haldane", "--set", "length=5", "--set", "circumference=2", "--region", "disk:radius=1.2",
+            "--json")
+    exact = json.loads(run_cli(*args, "--engine", "exact", check=True).stdout)
+    free = json.loads(run_cli(*args, "--engine", "gaussian", check=True).stdout)
+    assert exact["engine"] == "exact" and free["engine"] == "gaussian"
+    assert exact["J"] == pytest.approx(free["J"], abs=1e-8)  # Slater determinant: free fermions exact
+    assert exact["gamma"] == pytest.approx(free["gamma"], abs=1e-8)
+    assert exact["J_loose"] == pytest.approx(exact["J"], abs=1e-8)  # stable under a 100x change of the floor
+
+
+def test_region_over_memory_budget_is_refused(tmp_path):
+    out = tmp_path / "run"
+    run_cli("run", "heisenberg", "--set", "lattice=square", "--set", "length=6", "--set", "circumference=5",
+            "--bond-dimension", "32", "--sweeps", "2", "--out", str(out), check=True)
+    state = out / "stage1_D32.h5"
+    proc = run_cli("probe", str(state), "--region", "disk:radius=1.6", "--memory-budget", "0.000001")
+    assert_one_line_error(proc, "memory budget")
+    assert "GiB" in proc.stderr or "MiB" in proc.stderr or "KiB" in proc.stderr
+
+
+@pytest.mark.parametrize(
+    "args, match",
+    [
+        (("probe", "haldane", "--engine", "gaussian", "--region", "blob:radius=2"), "unknown"),
+        (("probe", "haldane", "--engine", "gaussian", "--region", "disk:radius=1", "--probes", "Q"), "unknown probe"),
+        (("probe", "haldane", "--engine", "gaussian", "--set", "V=1", "--set", "length=5", "--region",
+          "disk:radius=1.2"), "not quadratic"),
+        (("probe", "haldane", "--engine", "gaussian", "--region", "disk:radius=30"), "reduce the radius"),
+    ],
+)
+def test_probe_bad_input(args, match):
+    assert_one_line_error(run_cli(*args), match)
+
+
+def test_regions_plot_and_json(tmp_path):
+    png = tmp_path / "layout.png"
+    proc = run_cli("regions", "kagome_chiral", "--set", "length=5", "--set", "circumference=4", "--layout",
+                   "sectors:radius=2", "--plot", str(png), "--json", check=True)
+    data = json.loads(proc.stdout)
+    assert set(data["parts"]) == {"A", "B", "C"}
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

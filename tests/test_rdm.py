@@ -1,0 +1,426 @@
+"""Reduced density matrices of site sets: spins, fermions (Jordan-Wigner), dense vectors and MPS routes."""
+
+import itertools
+
+import numpy as np
+import pytest
+
+from netprobe import rdm
+from netprobe.errors import LatticeError, MemoryBudgetError, NetprobeError, SectorError
+from netprobe.exact import correlation, full_vector, ground_state, hamiltonian_matrix, sector_basis
+from netprobe.mps import random_state
+from netprobe.sites import site_space
+from netprobe.spec import load_model
+
+from conftest import tol
+
+SPIN = site_space("spin-1/2")
+FERMION = site_space("fermion")
+
+# Lanczos (scipy eigsh, tol 1e-10 in the exact engine) leaves ground-state vectors accurate to about
+# 1e-10; entropies and correlators compared with an independent calculation inherit that.
+LANCZOS_TOL = 1e-8
+
+
+# ----------------------------------------------------------------------------------------------
+# Independent references, written with numpy only
+# ----------------------------------------------------------------------------------------------
+
+
+def spin_basis_rho(psi, n, d, sites):
+    """The ordinary (tensor-product) partial trace: correct for spins, wrong for fermions."""
+    rest = [k for k in range(n) if k not in sites]
+    m = np.transpose(psi.reshape((d,) * n), list(sites) + rest).reshape(d ** len(sites), -1)
+    return m @ m.conj().T
+
+
+def entropy(rho):
+    w = np.linalg.eigvalsh(rho)
+    w = w[w > 1e-300]
+    return float(-np.sum(w * np.log(w)))
+
+
+def slater_vector(phi):
+    """Many-body amplitudes of prod_k (sum_i phi[i, k] c_i^dag) |0> in the JW occupation basis.
+
+    Sorting the creation operators into ascending mode order gives the amplitude det(phi[occupied, :])
+    on the occupied set (common practice).
+    """
+    n, nf = phi.shape
+    vec = np.zeros(2**n, dtype=complex)
+    for occ in itertools.combinations(range(n), nf):
+        vec[sum(2 ** (n - 1 - i) for i in occ)] = np.linalg.det(phi[list(occ), :])
+    return vec
+
+
+def peschel_entropy(g, modes):
+    """S = -sum [nu ln nu + (1 - nu) ln(1 - nu)] over eigenvalues of G restricted to the modes
+    (Peschel, J. Phys. A 36, L205 (2003))."""
+    nu = np.clip(np.linalg.eigvalsh(g[np.ix_(modes, modes)]), 1e-14, 1 - 1e-14)
+    return float(-np.sum(nu * np.log(nu) + (1 - nu) * np.log(1 - nu)))
+
+
+def jw_annihilators(n):
+    """Matrices of c_j = Z x ... x Z x a x 1 x ... (Jordan-Wigner, mode 0 leftmost; common practice)."""
+    z, a, one = np.diag([1.0, -1.0]), np.array([[0.0, 1.0], [0.0, 0.0]]), np.eye(2)
+    out = []
+    for j in range(n):
+        mat = np.array([[1.0]])
+        for op in [z] * j + [a] + [one] * (n - j - 1):
+            mat = np.kron(mat, op)
+        out.append(mat)
+    return out
+
+
+def single_particle_matrix(model):
+    """h_ij = <0| c_i H c_j^dag |0> from the exact engine's one-particle sector (modes in MPS order).
+
+    A one-particle basis state c_j^dag |0> carries no Jordan-Wigner sign, so the sector matrix is h itself.
+    """
+    ham = model.hamiltonian.with_sector({"N": 1})
+    basis = sector_basis(ham)
+    h1 = hamiltonian_matrix(ham, basis).toarray()
+    states = basis.states()
+    occupied = np.argmax(states > 0, axis=1)
+    local = states[np.arange(len(states)), occupied]
+    # mode index: site * modes per site + orbital (electron: up = state 1, down = state 2)
+    per_site = 1 if model.space.dim == 2 else 2
+    mode = occupied * per_site + (local - 1 if per_site == 2 else 0)
+    h = np.zeros((len(mode), len(mode)), dtype=complex)
+    h[np.ix_(mode, mode)] = h1
+    return h
+
+
+def filled_projector(h, nf):
+    e, u = np.linalg.eigh(h)
+    assert e[nf] - e[nf - 1] > 1e-6, "degenerate Fermi level: the free-fermion reference is ambiguous"
+    phi = u[:, :nf]
+    return phi @ phi.conj().T  # G_ij = <c_j^dag c_i>
+
+
+def site_modes(sites, per_site):
+    return [s * per_site + k for s in sites for k in range(per_site)]
+
+
+@pytest.fixture(scope="module")
+def kagome():
+    model = load_model("kagome_chiral", {})
+    return model, full_vector(ground_state(model.hamiltonian))
+
+
+@pytest.fixture(scope="module")
+def haldane_interacting():
+    model = load_model("haldane", {"length": "3", "circumference": "2", "V": "1.0", "phi": "pi/2"})
+    res = ground_state(model.hamiltonian)
+    return model, res, full_vector(res)
+
+
+@pytest.fixture(scope="module")
+def haldane_free():
+    model = load_model("haldane", {"length": "3", "circumference": "2", "V": "0.0", "phi": "pi/2"})
+    return model, full_vector(ground_state(model.hamiltonian))
+
+
+@pytest.fixture(scope="module")
+def chern_electron():
+    # a twist of 0.3 lifts the zero-mode degeneracy of the 3 x 2 cylinder at m = 1
+    model = load_model("chern_square", {"length": "3", "circumference": "2", "m": "1.0", "twist": "0.3"})
+    return model, full_vector(ground_state(model.hamiltonian))
+
+
+# ----------------------------------------------------------------------------------------------
+# Density-matrix properties
+# ----------------------------------------------------------------------------------------------
+
+
+def _random_spin_vector(rng, n=9):
+    psi = rng.standard_normal(2**n) + 1j * rng.standard_normal(2**n)
+    return psi / np.linalg.norm(psi)
+
+
+@pytest.mark.parametrize("case", ["random-spin", "kagome", "haldane", "chern-electron"])
+def test_rho_is_a_density_matrix_and_pure_state_entropies_match(case, rng, kagome, haldane_interacting,
+                                                                 chern_electron):
+    if case == "random-spin":
+        psi, space, sets = _random_spin_vector(rng), SPIN, [[0, 3, 5], [1, 2, 8]]
+    elif case == "kagome":
+        (model, psi), sets = kagome, [[0, 4, 5, 9], [2, 3, 7, 8, 11]]
+        space = model.space
+    elif case == "haldane":
+        model, _, psi = haldane_interacting
+        space, sets = model.space, [[0, 3, 5], [1, 4, 6, 9, 10]]
+    else:
+        (model, psi), sets = chern_electron, [[0, 2, 5], [1, 4]]
+        space = model.space
+    n = round(np.log(psi.size) / np.log(space.dim))
+    for sites in sets:
+        rho = rdm.reduced_density_matrix(psi, sites, space)
+        w = np.linalg.eigvalsh(rho)
+        # Hermitian, unit trace, no negative eigenvalues beyond rounding (common practice)
+        assert np.allclose(rho, rho.conj().T, atol=tol())
+        assert abs(np.trace(rho) - 1) < tol()
+        assert w.min() > -tol()
+        # pure state: S_A = S_complement (Schmidt decomposition; common practice), also for
+        # non-contiguous fermionic sets
+        comp = [k for k in range(n) if k not in sites]
+        s_a = entropy(rho)
+        s_c = entropy(rdm.reduced_density_matrix(psi, comp, space))
+        assert abs(s_a - s_c) < 1e-10
+        assert s_a > 0.1  # the check is not empty: the parts are entangled
+
+
+def test_spin_rdm_is_the_ordinary_partial_trace(rng):
+    # spin-1, N = 6, a gapped non-contiguous set; reference: numpy transpose + reshape (common practice)
+    space = site_space("spin-1")
+    psi = rng.standard_normal(3**6) + 1j * rng.standard_normal(3**6)
+    psi /= np.linalg.norm(psi)
+    sites = [4, 0, 2]
+    rho = rdm.reduced_density_matrix(psi, sites, space)
+    assert np.allclose(rho, spin_basis_rho(psi, 6, 3, sorted(sites)), atol=tol())
+
+
+# ----------------------------------------------------------------------------------------------
+# The fermion rule
+# ----------------------------------------------------------------------------------------------
+
+
+def test_random_slater_determinant_matches_peschel_and_spin_basis_does_not(rng):
+    n, nf, sites = 8, 4, [0, 3, 5]
+    q, _ = np.linalg.qr(rng.standard_normal((n, n)) + 1j * rng.standard_normal((n, n)))
+    phi = q[:, :nf]
+    psi = slater_vector(phi)
+    g = phi @ phi.conj().T
+    rho = rdm.reduced_density_matrix(psi, sites, FERMION)
+    s_true = peschel_entropy(g, sites)
+    # free-fermion entropy from the correlation matrix (Peschel, J. Phys. A 36, L205 (2003)); rounding only
+    assert abs(entropy(rho) - s_true) < 1e-10
+    # the spin-basis partial trace of an interleaved set is a different matrix (design notes, section 6:
+    # 1.82 versus 1.33 nats for their example); here it misses by more than 0.02 nats
+    s_spin = entropy(spin_basis_rho(psi, n, 2, sites))
+    assert abs(s_spin - s_true) > 0.02
+    # the square-root form gives the same spectrum
+    assert abs(entropy(np.diag(rdm.reduced_root(psi, sites, FERMION).weights())) - s_true) < 1e-10
+
+
+def test_fermionic_rho_reproduces_hopping_across_traced_sites(haldane_interacting):
+    model, res, psi = haldane_interacting
+    sites = [0, 3, 5]
+    rho = rdm.reduced_density_matrix(psi, sites, model.space)
+    wrong = spin_basis_rho(psi, model.num_sites, 2, sites)
+    c = jw_annihilators(3)  # modes 0, 3, 5 are modes 0, 1, 2 of the set's own JW basis
+    for (i, j), (p, q) in {(0, 5): (0, 2), (0, 3): (0, 1), (3, 5): (1, 2)}.items():
+        op = c[p].T @ c[q]
+        exact = correlation(res, model, "cdag", "c", i, j)  # the exact engine's own JW strings
+        # Tr(rho_S O) = <O> for even operators on S: the defining property of the fermionic RDM
+        # (common practice); rounding only, the same vector enters both sides
+        assert abs(np.trace(rho @ op) - exact) < tol(factor=1e4)
+        if (i, j) != (3, 5):  # a traced odd site lies between: the spin-basis matrix gets it wrong
+            assert abs(np.trace(wrong @ op) - exact) > 1e-3
+
+
+@pytest.mark.parametrize("sites", [[0, 3, 5], [1, 2, 7, 10], [0, 2, 4, 6, 8, 10], [5]])
+def test_noninteracting_haldane_entropies_equal_free_fermion_values(haldane_free, sites):
+    model, psi = haldane_free
+    g = filled_projector(single_particle_matrix(model), model.num_sites // 2)
+    s = entropy(rdm.reduced_density_matrix(psi, sites, model.space))
+    # Peschel, J. Phys. A 36, L205 (2003); Lanczos accuracy of the many-body vector
+    assert abs(s - peschel_entropy(g, sites)) < LANCZOS_TOL
+
+
+def test_electron_sites_follow_the_mode_order_up_then_down(chern_electron):
+    model, psi = chern_electron
+    g = filled_projector(single_particle_matrix(model), model.num_sites)
+    for sites in ([0, 2, 5], [1, 4], [0, 3]):
+        s = entropy(rdm.reduced_density_matrix(psi, sites, model.space))
+        # Peschel, J. Phys. A 36, L205 (2003), modes (site, up), (site, down) in MPS order
+        assert abs(s - peschel_entropy(g, site_modes(sites, 2))) < LANCZOS_TOL
+
+
+def test_permutation_sign_matches_reordered_creation_operators(rng):
+    # |x> = prod_i (c_i^dag)^x_i |0> in the new order, expanded in the old JW basis with explicit
+    # matrices (common practice); four modes, one per subsystem
+    n = 4
+    cdag = [c.T for c in jw_annihilators(n)]
+    vac = np.zeros(2**n)
+    vac[0] = 1.0
+    for order in ([2, 0, 3, 1], [3, 2, 1, 0], [0, 2, 1, 3]):
+        sign = rdm.permutation_sign([np.array([0, 1])] * n, order)
+        for x in itertools.product((0, 1), repeat=n):
+            state = vac
+            for k in reversed(order):  # the leftmost creation operator acts last
+                if x[k]:
+                    state = cdag[k] @ state
+            code = int("".join(map(str, x)), 2)
+            assert state[code] == sign[x]
+
+
+def test_reorder_parts_gives_prefix_traces_that_are_fermionic(rng):
+    n, nf = 9, 4
+    q, _ = np.linalg.qr(rng.standard_normal((n, n)) + 1j * rng.standard_normal((n, n)))
+    phi = q[:, :nf]
+    psi, g = slater_vector(phi), phi @ phi.conj().T
+    parts = {"A": [4, 0], "B": [2, 7], "C": [1, 5]}
+    sites = sorted(sum(parts.values(), []))
+    rho, dims = rdm.reorder_parts(rdm.reduced_density_matrix(psi, sites, FERMION), sites, parts, FERMION)
+    assert dims == (4, 4, 4)
+    t = rho.reshape(16, 4, 16, 4)
+    rho_ab = np.einsum("icjc->ij", t)  # ordinary trace of the suffix C
+    rho_bc = np.einsum("aiaj->ij", rho.reshape(4, 16, 4, 16))  # ordinary trace of the prefix A
+    # Peschel, J. Phys. A 36, L205 (2003)
+    assert abs(entropy(rho_ab) - peschel_entropy(g, [0, 2, 4, 7])) < 1e-10
+    assert abs(entropy(rho_bc) - peschel_entropy(g, [1, 2, 5, 7])) < 1e-10
+    assert abs(entropy(rho) - peschel_entropy(g, sites)) < 1e-10
+
+
+# ----------------------------------------------------------------------------------------------
+# MPS routes
+# ----------------------------------------------------------------------------------------------
+
+
+def _mps_cases():
+    return [
+        ("kagome_chiral", {}, [[0, 3, 5, 6, 10], [2, 7, 11], [4]]),
+        ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, [[1, 2, 5, 8, 9], [0, 11], [3, 4, 5]]),
+        ("chern_square", {"length": "3", "circumference": "2"}, [[0, 2, 3], [1, 5]]),
+        ("heisenberg", {"length": "8", "lattice": "chain", "twice_sz": "0"}, [[0, 7], [1, 3, 4, 6]]),
+    ]
+
+
+@pytest.mark.parametrize("name, overrides, sets", _mps_cases())
+def test_mps_routes_equal_the_dense_vector_route(name, overrides, sets):
+    model = load_model(name, overrides)
+    state = random_state(model.hamiltonian, bond_dimension=12, rng=7)
+    psi = state.to_vector()
+    for sites in sets:
+        ref = rdm.reduced_density_matrix(psi, sites, model.space)
+        for method in ("zipper", "root"):
+            rho = rdm.reduced_density_matrix(state, sites, model.space, method=method)
+            # gauge-invariant matrices, rounding only (common practice)
+            assert np.allclose(rho, ref, atol=tol(factor=1e4)), (name, sites, method)
+        w_root = rdm.reduced_root(state, sites, model.space, method="root").weights()
+        w_ref = np.sort(np.linalg.eigvalsh(ref))[::-1][: len(w_root)]
+        assert np.allclose(w_root, w_ref, atol=tol(factor=1e4))
+
+
+def test_dmrg_ground_state_rdm_matches_exact_engine():
+    from netprobe.dmrg import SweepSettings, find_ground_state
+
+    model = load_model("haldane", {"length": "2", "circumference": "2", "V": "1.0"})
+    result = find_ground_state(model, SweepSettings(bond_dimension=16, max_sweeps=8), seed=3, progress=None)
+    exact = full_vector(ground_state(model.hamiltonian))
+    for sites in ([0, 3, 5], [1, 2, 6]):
+        s_mps = entropy(rdm.reduced_density_matrix(result.state, sites, model.space))
+        s_ed = entropy(rdm.reduced_density_matrix(exact, sites, model.space))
+        # bond dimension 16 is exact on 8 sites; DMRG energy tolerance 1e-9 bounds the state error
+        assert abs(s_mps - s_ed) < 1e-6
+
+
+def mps_without_charges(psi, space):
+    """An MPS with the trivial charge rule, by successive numpy SVDs of the vector (common practice)."""
+    from netprobe.mps import MPS, SiteBasis
+    from netprobe.tensor import BlockTensor, Leg
+
+    basis = SiteBasis.from_space(space, ())
+    d = space.dim
+    n = round(np.log(psi.size) / np.log(d))
+    arrays, rest, chi = [], psi.reshape(1, -1), 1
+    for _ in range(n - 1):
+        u, s, vh = np.linalg.svd(rest.reshape(chi * d, -1), full_matrices=False)
+        keep = s > 1e-14 * s[0]
+        arrays.append(u[:, keep].reshape(chi, d, -1))
+        rest, chi = s[keep, None] * vh[keep], int(keep.sum())
+    arrays.append(rest.reshape(chi, d, 1))
+
+    def bond(dim, direction):
+        return Leg(np.zeros((1, 1), np.int64), np.array([dim]), direction)
+
+    tensors = [BlockTensor.from_dense(a[:, basis.order, :], (bond(a.shape[0], 1), basis.leg,
+                                                              bond(a.shape[2], -1)), None, basis.rule)
+               for a in arrays]
+    return MPS(tensors, basis, centre=n - 1)
+
+
+def test_fermion_mps_without_particle_number_uses_the_zipper_and_checks_parity(haldane_interacting, rng):
+    model, _, psi = haldane_interacting
+    state = mps_without_charges(psi, model.space)
+    for sites in ([0, 3, 5], [1, 4, 6, 9]):
+        rho = rdm.reduced_density_matrix(state, sites, model.space)
+        # one state through two routes, rounding only (common practice)
+        assert np.allclose(rho, rdm.reduced_density_matrix(psi, sites, model.space), atol=1e-12)
+    assert rdm.reduced_root(state, [0, 3, 5], model.space).route == "mps-zipper"
+    with pytest.raises(NetprobeError, match="use method='zipper' or conserve N"):
+        rdm.reduced_root(state, [0, 3, 5], model.space, method="root")
+    mixed = psi + rng.standard_normal(psi.size) * 0.1
+    with pytest.raises(SectorError, match="mixes fermion parities"):
+        rdm.reduced_root(mps_without_charges(mixed / np.linalg.norm(mixed), model.space), [0, 3], model.space)
+
+
+def test_exact_results_are_accepted_directly(haldane_interacting):
+    model, res, psi = haldane_interacting
+    assert np.allclose(rdm.reduced_density_matrix(res, [2, 7], model.space),
+                       rdm.reduced_density_matrix(psi, [2, 7], model.space))
+    with pytest.raises(NetprobeError, match="expected a state vector"):
+        rdm.reduced_root([0.0, 1.0], [0], SPIN)
+
+
+def test_centre_outside_the_span_is_moved_on_a_copy():
+    model = load_model("heisenberg", {"length": "10"})
+    state = random_state(model.hamiltonian, bond_dimension=8, rng=2)
+    assert state.centre == 0
+    psi = state.to_vector()
+    rho = rdm.reduced_density_matrix(state, [6, 9], model.space, method="root")
+    assert state.centre == 0  # the caller's gauge is untouched
+    assert np.allclose(rho, rdm.reduced_density_matrix(psi, [6, 9], model.space), atol=tol(factor=1e4))
+
+
+def test_memory_refusal_happens_before_any_contraction(monkeypatch):
+    model = load_model("kagome_chiral", {})
+    state = random_state(model.hamiltonian, bond_dimension=12, rng=1)
+
+    def forbidden(*args, **kwargs):
+        raise AssertionError("the contraction started before the budget check")
+
+    monkeypatch.setattr(rdm, "_root_from_mps", forbidden)
+    monkeypatch.setattr(rdm, "_rho_from_mps_zipper", forbidden)
+    for method in ("root", "zipper", "auto"):
+        with pytest.raises(MemoryBudgetError, match=r"would need about .* GiB, over the memory budget .*fewer"):
+            rdm.reduced_root(state, [0, 3, 5, 6, 10], model.space, method=method, memory_budget=1000)
+    monkeypatch.setattr(rdm, "default_memory_budget", lambda: 1000)
+    with pytest.raises(MemoryBudgetError, match="raise --memory-budget"):
+        rdm.reduced_density_matrix(state, [0, 3, 5], model.space)
+    with pytest.raises(MemoryBudgetError, match="memory budget"):
+        rdm.reduced_density_matrix(state.to_vector(), [0, 3, 5], model.space)
+
+
+def test_memory_estimate_bounds_what_the_root_route_holds():
+    model = load_model("kagome_chiral", {})
+    state = random_state(model.hamiltonian, bond_dimension=16, rng=4)
+    sites = [0, 2, 5, 6, 9, 10]
+    root = rdm.reduced_root(state, sites, model.space, method="root")
+    estimate = rdm.estimate_rdm_memory(state, sites, model.space, method="root")
+    assert root.nbytes <= estimate
+    assert rdm.estimate_rdm_memory(state, sites, model.space, method="zipper") > estimate
+
+
+# ----------------------------------------------------------------------------------------------
+# User mistakes
+# ----------------------------------------------------------------------------------------------
+
+
+def test_bad_site_sets_and_states_raise_clear_errors(rng):
+    psi = _random_spin_vector(rng, 6)
+    with pytest.raises(LatticeError, match="site 6 is not an MPS index of a lattice with 6 sites"):
+        rdm.reduced_density_matrix(psi, [0, 6], SPIN)
+    with pytest.raises(LatticeError, match=r"site\(s\) \[2\] listed twice"):
+        rdm.reduced_density_matrix(psi, [2, 2], SPIN)
+    with pytest.raises(LatticeError, match="the site set is empty"):
+        rdm.reduced_root(psi, [], SPIN)
+    with pytest.raises(NetprobeError, match="length d\\*\\*N"):
+        rdm.reduced_density_matrix(psi[:50], [0], SPIN)
+    with pytest.raises(NetprobeError, match="valid methods: auto, root, zipper"):
+        rdm.reduced_root(psi, [0], SPIN, method="fast")
+    mixed = _random_spin_vector(rng, 6)  # every occupation pattern, both parities
+    with pytest.raises(SectorError, match="mixes fermion parities"):
+        rdm.reduced_density_matrix(mixed, [0, 2], FERMION)
+    with pytest.raises(LatticeError, match="parts must be disjoint"):
+        rdm.reorder_parts(np.eye(8) / 8, [0, 1, 2], {"A": [0, 1], "B": [1, 2]}, SPIN)
