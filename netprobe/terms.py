@@ -81,6 +81,19 @@ def _proportional_to_identity(mat: np.ndarray):
     return diag[0] if d else None
 
 
+_STRINGS: dict[str, np.ndarray] = {}
+
+
+def _string_operator(space: SiteSpace) -> np.ndarray:
+    """One shared, read-only F matrix per site space, so string factors compare by identity."""
+    mat = _STRINGS.get(space.name)
+    if mat is None:
+        mat = space.string_operator
+        mat.setflags(write=False)
+        _STRINGS[space.name] = mat
+    return mat
+
+
 def normal_form(term: Term, space: SiteSpace) -> LocalProduct | None:
     """Bring a term into normal form (see the module notes); ``None`` if it vanishes.
 
@@ -120,7 +133,7 @@ def normal_form(term: Term, space: SiteSpace) -> LocalProduct | None:
     if abs(coefficient) == 0.0:
         return None
     odd = [s for s in sorted(local) if operator_parity(space, local[s])]
-    fmat = space.string_operator
+    fmat = _string_operator(space)
     for p, q in zip(odd[0::2], odd[1::2]):
         local[p] = local[p] @ fmat
         for s in range(p + 1, q):
@@ -202,12 +215,13 @@ class Hamiltonian:
         scale = max((abs(p.coefficient) for p in self.products), default=1.0) or 1.0
         for support, prods in groups.items():
             varying = []
+            string = _STRINGS.get(self.space.name)
             for k in range(len(support)):
                 first = prods[0].matrices[k]
-                common = all(np.array_equal(q.matrices[k], first) for q in prods[1:])
+                common = all(q.matrices[k] is first or np.array_equal(q.matrices[k], first) for q in prods[1:])
                 if not common:
                     varying.append(k)
-                elif np.max(np.abs(first - first.conj().T)) > _ATOL:
+                elif first is not string and np.max(np.abs(first - first.conj().T)) > _ATOL:
                     # a common non-Hermitian factor X: the group is X (x) Y, Hermitian only if zero
                     varying.append(k)
             dense = 0
