@@ -215,7 +215,7 @@ class Hamiltonian:
         scale = max((abs(p.coefficient) for p in self.products), default=1.0) or 1.0
         for support, prods in groups.items():
             varying = []
-            string = _STRINGS.get(self.space.name)
+            string = _STRINGS.get(getattr(self.space, "name", None))
             for k in range(len(support)):
                 first = prods[0].matrices[k]
                 common = all(q.matrices[k] is first or np.array_equal(q.matrices[k], first) for q in prods[1:])
