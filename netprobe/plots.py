@@ -20,7 +20,7 @@ from matplotlib.figure import Figure
 from netprobe.errors import LatticeError
 from netprobe.regions import Layout
 
-__all__ = ["PART_COLOURS", "plot_layout", "plot_profiles"]
+__all__ = ["PART_COLOURS", "plot_layout", "plot_profiles", "plot_flux"]
 
 PART_COLOURS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#000000")
 """Colours of parts A, B, C, ... in order: the colour-blind-safe set of M. Okabe and K. Ito,
@@ -163,6 +163,36 @@ def plot_profiles(profiles, path, *, title=None) -> Path:
         ax.grid(alpha=0.25)
         if k == n - 1:
             ax.set_xlabel("site (MPS order)" if not label.startswith("S(") else "bond")
+    if title:
+        fig.suptitle(title, fontsize=10)
+    fig.tight_layout()
+    fig.savefig(path)
+    return path
+
+
+def plot_flux(result, path, *, title=None) -> Path:
+    """Two panels against the flux theta / 2 pi: <Q_L> at the cut, and the entanglement levels by charge."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fig = Figure(figsize=(6.0, 5.2), dpi=120)
+    FigureCanvasAgg(fig)
+    x = np.asarray(result.thetas) / (2 * np.pi)
+    ax = fig.add_subplot(2, 1, 1)
+    ax.plot(x, result.left_charge, marker="o", color=PART_COLOURS[0])
+    ax.set_ylabel("<Q_L>")
+    ax.grid(alpha=0.25)
+    ax.set_title(f"pumped {result.pumped:+.3f} per flux quantum", fontsize=9)
+    ax2 = fig.add_subplot(2, 1, 2, sharex=ax)
+    charges = sorted({q for s in result.spectra for q in s["levels"]}, key=int)
+    for k, q in enumerate(charges):
+        for s, xv in zip(result.spectra, x):
+            levels = s["levels"].get(q, [])
+            ax2.scatter([xv] * len(levels), levels, s=10, color=PART_COLOURS[k % len(PART_COLOURS)],
+                        label=f"Q_L = {q}" if s is result.spectra[0] else None)
+    ax2.set_ylim(bottom=0, top=min(14, ax2.get_ylim()[1]))
+    ax2.set_xlabel("flux theta / 2 pi")
+    ax2.set_ylabel("-2 ln lambda")
+    ax2.legend(fontsize=7, frameon=False, ncol=3)
     if title:
         fig.suptitle(title, fontsize=10)
     fig.tight_layout()
