@@ -42,7 +42,7 @@ def _check_probes(probes: Sequence[str]) -> tuple[str, ...]:
     return tuple(out)
 
 
-def expand_regions(text: str, lattice):
+def expand_regions(text: str, lattice, cmi_region: str | None = None):
     """The layouts a region description stands for: ``(main, cmi_layout, note)``.
 
     ``cmi_layout`` is a layout for the CMI, ``None`` to evaluate the CMI on ``main`` itself (a layout
@@ -51,6 +51,10 @@ def expand_regions(text: str, lattice):
     from netprobe.regions import build_layout, parse_region
 
     layout = parse_region(text, lattice)
+    if cmi_region:
+        main = layout if layout.kind != "disk" else build_layout(
+            lattice, "sectors", radius=float(layout.params["radius"]), center=layout.params.get("center"))
+        return main, parse_region(cmi_region, lattice), ""
     if layout.kind != "disk":
         return layout, None, ""
     radius = float(layout.params["radius"])
@@ -125,12 +129,16 @@ def _finish(out: dict, layout, cmi_layout, note: str) -> dict:
 def probe_model(model, region: str, *, engine: str = "dmrg", probes: Sequence[str] = PROBE_NAMES,
                 bond_dimensions: Sequence[int] = (32, 64), sweeps: int | None = None, seed: int = 0,
                 overrides=None, out: str | Path | None = None, eps: float = 1e-12,
-                memory_budget: int | None = None, progress=None) -> dict:
-    """Ground state of ``model`` by ``engine``, then the probes on ``region`` (see the module notes)."""
+                memory_budget: int | None = None, progress="stderr", cmi_region: str | None = None) -> dict:
+    """Ground state of ``model`` by ``engine``, then the probes on ``region`` (see the module notes).
+
+    ``cmi_region`` (a layout text) replaces the default layout of the CMI; ``progress`` is a stream,
+    "stderr" or None (quiet) for the DMRG sweeps.
+    """
     if engine not in ENGINES:
         raise NetprobeError(f"unknown engine '{engine}'; valid engines: {', '.join(ENGINES)}")
     probes = _check_probes(probes)
-    layout, cmi_layout, note = expand_regions(region, model.lattice)
+    layout, cmi_layout, note = expand_regions(region, model.lattice, cmi_region)
     start = time.perf_counter()
     result: dict = {"model": model.name, "engine": engine, "sites": model.num_sites,
                     "parameters": model.numeric_parameters()}
@@ -157,7 +165,7 @@ def probe_model(model, region: str, *, engine: str = "dmrg", probes: Sequence[st
         with tempfile.TemporaryDirectory(prefix="netprobe-probe-") as scratch:
             folder = out or scratch
             ladder = run_ladder(model, settings, overrides=overrides, seed=seed, out=folder,
-                                progress=progress if progress is not None else "stderr")
+                                progress=progress)
             rungs = []
             for stage in ladder.to_dict()["stages"]:
                 state = load_state(stage["state_file"]).state

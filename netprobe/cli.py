@@ -85,6 +85,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--region", required=True, metavar="KIND:KEY=VALUE,...",
                    help="disk:radius=R[,center=X,Y] (three sectors for J and gamma, a shielded split for CMI), "
                         "or any layout of 'netprobe regions'")
+    p.add_argument("--cmi-region", default=None, metavar="KIND:KEY=VALUE,...",
+                   help="layout for the CMI instead of the shielded split of the disk, e.g. shielded:a=1,b=2,c=3")
     p.add_argument("--probes", default="J,CMI,TEE,S", metavar="LIST", help="subset of J,CMI,TEE,S (default all)")
     p.add_argument("--engine", default="dmrg", choices=("dmrg", "exact", "gaussian"),
                    help="ground-state engine for a model source (default dmrg)")
@@ -373,7 +375,8 @@ def cmd_probe(args) -> int:
         chis = _bond_dimensions(args.bond_dimension)
         result = probe_model(model, args.region, engine=args.engine, probes=probes, bond_dimensions=chis,
                              sweeps=args.sweeps, seed=args.seed, overrides=parse_overrides(args.overrides),
-                             out=args.out, eps=args.eps, memory_budget=budget)
+                             out=args.out, eps=args.eps, memory_budget=budget, progress=sys.stderr,
+                             cmi_region=args.cmi_region)
     lines = _probe_lines(result)
     if args.plot:
         _plot_probe(result, args, model)
