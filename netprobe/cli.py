@@ -113,6 +113,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_flux)
 
+    from netprobe.study.commands import add_report_parser, add_study_parser
+
+    add_study_parser(sub)
+    add_report_parser(sub)
+
     p = sub.add_parser("regions", help="carve a region layout on the lattice; list its sites, draw it")
     _add_model_arguments(p)
     p.add_argument("--layout", required=True, metavar="KIND:KEY=VALUE,...",

@@ -1,0 +1,854 @@
+"""Study descriptions: TOML files of our own layout that say which points of coupling space to visit.
+
+Layout
+------
+::
+
+    [study]
+    name = "tfim_sweep"               # required; names the default output folder
+    description = "..."               # one line
+    model = "tfim"                    # a bundled model, or a model file path (relative to this file)
+    engine = "dmrg"                   # dmrg | exact | gaussian
+    seed = 5                          # seeds the random initial states (dmrg)
+    warm_start = true                 # dmrg: a point's first rung starts from its grid neighbour
+
+    [set]                             # --set values applied at every point (numbers or strings)
+    J = 1.0
+
+    [grid]                            # one or two swept parameters, in this order
+    length = { values = [16, 32] }    # an explicit list of numbers, or
+    h = { start = 0.6, stop = 1.2, num = 7 }   # num evenly spaced values, both ends included
+
+    # instead of [grid], an explicit list of points:
+    # [[point]]
+    # h = 0.5
+
+    [ladder]                          # dmrg: bond dimensions, increasing; any sweep setting below
+    bond_dimensions = [8, 16]         #   (max_sweeps, min_sweeps, energy_tolerance, noise, ...)
+    variance = false                  #   energy variance of every state (costs about one sweep)
+
+    [measure]
+    region = "sectors:radius=6"       # a region layout (netprobe.regions syntax), or several:
+    # regions = { disk = "sectors:radius=6", ring = "levin_wen:inner=1,outer=3,cut=40" }
+    probes = ["energy", "J", "chern_number", "mean:X"]   # names in PROBES; "J@ring" picks a region
+
+    [executor]
+    workers = 2                       # local worker processes (default: one per core)
+    attempts = 2                      # tries per task and per run before it counts as failed
+    heartbeat_seconds = 10.0          # how often a running task says it is alive
+    lease_seconds = 120.0             # a running task silent for this long is taken back
+    connect_seconds = 10.0            # how long to try a Dask scheduler
+
+    [verdicts]
+    change_threshold = 0.01           # flag a probe whose last two rungs differ by more (absolute)
+    energy_threshold = 1e-6           # ... and an energy (relative to max(1, |E|))
+
+Every point of the grid is a model (the model file with the ``[set]`` and the point's values as
+``--set`` overrides); every (point, bond dimension) of the ladder is one task of the study's ledger.
+The exact and Gaussian engines ignore the ladder and have one task per point (bond dimension 0).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import numbers
+import tomllib
+from dataclasses import asdict, dataclass, field, fields
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any, Mapping
+
+import numpy as np
+
+from netprobe.errors import NetprobeError, SpecError
+from netprobe.spec import LATTICE_KEYS, ModelSpec, find_model, models_directory, parse_spec
+
+__all__ = [
+    "ENGINES",
+    "PROBES",
+    "ProbeKind",
+    "ProbeRequest",
+    "GridAxis",
+    "StudyPoint",
+    "TaskPlan",
+    "ExecutorSettings",
+    "VerdictSettings",
+    "StudyDescription",
+    "StudyError",
+    "studies_directory",
+    "find_study",
+    "list_studies",
+    "parse_study",
+    "load_study",
+    "parse_probe",
+]
+
+
+class StudyError(NetprobeError):
+    """A study cannot run as asked (no ledger, a ledger of another study, an unreachable scheduler)."""
+
+
+#: Engines by name, with what each does with the ladder.
+ENGINES: Mapping[str, str] = MappingProxyType({
+    "dmrg": "two-site DMRG, one task per (point, bond dimension) of the ladder",
+    "exact": "exact diagonalisation in the model's sector, one task per point",
+    "gaussian": "free-fermion ground state of a quadratic model, one task per point",
+})
+
+
+@dataclass(frozen=True)
+class ProbeKind:
+    """What a probe needs: a region with parts A, B, C, and which engines can evaluate it."""
+
+    text: str
+    region: str  # "none", "A" (part A of any layout) or "ABC"
+    engines: frozenset
+
+
+_ALL = frozenset(ENGINES)
+
+#: Probes by name. ``mean:OP`` averages a local operator over the lattice (or, with ``@region``,
+#: over the union of the region's parts).
+PROBES: Mapping[str, ProbeKind] = MappingProxyType({
+    "energy": ProbeKind("ground-state energy", "none", _ALL),
+    "energy_per_site": ProbeKind("ground-state energy divided by the number of sites", "none", _ALL),
+    "entropy": ProbeKind("von Neumann entropy of part A (nats)", "A", _ALL),
+    "J": ProbeKind("modular commutator J(A, B, C)", "ABC", _ALL),
+    "c_minus": ProbeKind("chiral central charge estimate 3 J / pi", "ABC", _ALL),
+    "cmi": ProbeKind("conditional mutual information I(A:C|B) (nats)", "ABC", _ALL),
+    "gamma": ProbeKind("topological entanglement entropy from the Kitaev-Preskill combination", "ABC", _ALL),
+    "chern_number": ProbeKind("real-space Chern number of three sectors (number-conserving fermions)", "ABC",
+                              frozenset({"gaussian"})),
+    "mean:OP": ProbeKind("mean of a local operator OP over the sites", "optional", _ALL),
+})
+
+_STUDY_KEYS = {"name", "description", "model", "engine", "seed", "warm_start"}
+_TOP_KEYS = {"study", "set", "grid", "point", "ladder", "measure", "executor", "verdicts"}
+_AXIS_KEYS = {"start", "stop", "num", "values"}
+_MEASURE_KEYS = {"region", "regions", "probes"}
+_LADDER_ONLY = {"bond_dimensions", "variance"}
+_SWEEP_KEYS = {"max_sweeps", "min_sweeps", "energy_tolerance", "discarded_tolerance", "truncation_weight",
+               "noise", "noise_sweeps", "eigensolver", "solver_tolerance", "ramp_solver_tolerance",
+               "krylov_dimension", "solver_restarts"}
+_DEFAULT_REGION = "main"
+_MAX_AXES = 2
+_DECIMALS = 12  # grid values are rounded so that 0.1 * 3 prints as 0.3 in labels and overrides
+
+
+def studies_directory() -> Path:
+    """The folder of bundled study files (``models/studies/`` beside the package)."""
+    return models_directory() / "studies"
+
+
+def list_studies() -> list[Path]:
+    """Bundled study files, sorted by name."""
+    folder = studies_directory()
+    return sorted(folder.glob("*.toml")) if folder.is_dir() else []
+
+
+def find_study(name_or_path: str) -> Path:
+    """Resolve a study argument: a path to a TOML file, or the name of a bundled study.
+
+    Raises
+    ------
+    SpecError
+        If neither exists; the message lists the bundled studies.
+    """
+    path = Path(name_or_path)
+    if path.is_file():
+        return path
+    bundled = studies_directory() / f"{name_or_path}.toml"
+    if bundled.is_file():
+        return bundled
+    names = ", ".join(p.stem for p in list_studies()) or "none"
+    raise SpecError(f"study '{name_or_path}' not found: give a study file path or a bundled study ({names})")
+
+
+@dataclass(frozen=True, kw_only=True)
+class ExecutorSettings:
+    """How the tasks run.
+
+    Attributes
+    ----------
+    workers : int or None
+        Local worker processes; None means one per core.
+    attempts : int
+        Tries of a task within one run before it counts as failed (a later run tries again).
+    heartbeat_seconds : float
+        Interval at which the process running a task refreshes its lease.
+    lease_seconds : float
+        A running task whose lease has not been refreshed for this long is taken back.
+    connect_seconds : float
+        How long to try to reach a Dask scheduler.
+    blas_threads : int or None
+        BLAS/LAPACK threads per task; None shares the cores among the workers.
+    """
+
+    workers: int | None = None
+    attempts: int = 2
+    heartbeat_seconds: float = 10.0
+    lease_seconds: float = 120.0
+    connect_seconds: float = 10.0
+    blas_threads: int | None = None
+
+    def __post_init__(self):
+        for name in ("workers", "blas_threads"):
+            value = getattr(self, name)
+            if value is not None and (isinstance(value, bool) or not isinstance(value, numbers.Integral)
+                                      or value < 1):
+                raise SpecError(f"[executor] {name} = {value!r} must be a positive integer")
+        if isinstance(self.attempts, bool) or not isinstance(self.attempts, numbers.Integral) or self.attempts < 1:
+            raise SpecError(f"[executor] attempts = {self.attempts!r} must be a positive integer")
+        for name in ("heartbeat_seconds", "lease_seconds", "connect_seconds"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, numbers.Real) or not value > 0:
+                raise SpecError(f"[executor] {name} = {value!r} must be a positive number of seconds")
+        if self.lease_seconds < 2 * self.heartbeat_seconds:
+            raise SpecError(
+                f"[executor] lease_seconds = {self.lease_seconds} must be at least twice heartbeat_seconds = "
+                f"{self.heartbeat_seconds}, or live tasks would be taken back")
+
+
+@dataclass(frozen=True, kw_only=True)
+class VerdictSettings:
+    """Thresholds of the convergence verdicts.
+
+    Attributes
+    ----------
+    change_threshold : float
+        A probe is flagged when its values at the last two rungs differ by more than this.
+    energy_threshold : float
+        The energy is flagged when its last two rungs differ by more than this times ``max(1, |E|)``.
+    """
+
+    change_threshold: float = 1e-2
+    energy_threshold: float = 1e-6
+
+    def __post_init__(self):
+        for name in ("change_threshold", "energy_threshold"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, numbers.Real) or not value > 0:
+                raise SpecError(f"[verdicts] {name} = {value!r} must be a positive number")
+
+
+@dataclass(frozen=True)
+class ProbeRequest:
+    """One entry of ``[measure] probes``: a probe name, its operator (``mean:OP``) and its region."""
+
+    text: str
+    name: str
+    operator: str | None
+    region: str | None
+
+    @property
+    def kind(self) -> ProbeKind:
+        return PROBES["mean:OP" if self.operator is not None else self.name]
+
+
+def parse_probe(text: str, regions: Mapping[str, str], engine: str, where: str) -> ProbeRequest:
+    """Parse a probe entry such as ``"J"``, ``"cmi@ring"`` or ``"mean:X"`` and check it fits.
+
+    Raises
+    ------
+    SpecError
+        For an unknown probe or region, a probe that needs a region when none is given, or a probe
+        the engine cannot evaluate.
+    """
+    if not isinstance(text, str) or not text.strip():
+        raise SpecError(f"{where}: [measure] probes must be a list of names such as \"J\" or \"mean:X\"")
+    body, _, region = text.strip().partition("@")
+    name, colon, operator = body.partition(":")
+    valid = ", ".join(PROBES)
+    if colon:
+        if name != "mean" or not operator.strip():
+            raise SpecError(f"{where}: unknown probe '{text}'; valid probes: {valid}")
+        kind = PROBES["mean:OP"]
+        operator = operator.strip()
+    else:
+        if name not in PROBES or name == "mean:OP":
+            raise SpecError(f"{where}: unknown probe '{text}'; valid probes: {valid}")
+        kind = PROBES[name]
+        operator = None
+    if engine not in kind.engines:
+        raise SpecError(
+            f"{where}: probe '{text}' is not available with engine '{engine}'; it needs "
+            f"{' or '.join(sorted(kind.engines))}")
+    if region:
+        if kind.region == "none":
+            raise SpecError(f"{where}: probe '{text}': {name} takes no region; write '{name}'")
+        if region not in regions:
+            raise SpecError(
+                f"{where}: probe '{text}' names region '{region}'; defined regions: {', '.join(regions) or 'none'}")
+    elif kind.region in ("A", "ABC"):
+        if not regions:
+            raise SpecError(
+                f"{where}: probe '{text}' needs a region; add [measure] region = \"sectors:radius=R\"")
+        if len(regions) > 1:
+            raise SpecError(
+                f"{where}: probe '{text}': several regions are defined ({', '.join(regions)}); write "
+                f"'{name}@NAME'")
+        region = next(iter(regions))
+    return ProbeRequest(text.strip(), name, operator, region or None)
+
+
+@dataclass(frozen=True)
+class GridAxis:
+    """One swept parameter and its values."""
+
+    name: str
+    values: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class StudyPoint:
+    """One point of coupling space.
+
+    Attributes
+    ----------
+    index : int
+        Position in the study's list of points (from 0).
+    values : mapping of str to number
+        The swept parameters at this point.
+    grid_index : tuple of int or None
+        Indices along the grid axes (None for an explicit list of points).
+    """
+
+    index: int
+    values: Mapping[str, float]
+    grid_index: tuple[int, ...] | None
+
+    @property
+    def label(self) -> str:
+        """``name=value`` pairs, e.g. ``length=16,h=0.9``."""
+        return ",".join(f"{k}={_format_value(v)}" for k, v in self.values.items())
+
+
+@dataclass(frozen=True)
+class TaskPlan:
+    """A (point, bond dimension) task and the tasks whose states it starts from."""
+
+    point: int
+    rung: int
+    bond_dimension: int
+    needs: tuple[tuple[int, int], ...]  # (point, rung) pairs
+
+
+def _format_value(value) -> str:
+    if isinstance(value, bool):
+        return str(value).lower()
+    if isinstance(value, numbers.Integral):
+        return str(int(value))
+    value = float(value)
+    if value.is_integer() and abs(value) < 1e15:
+        return f"{value:.1f}"
+    return repr(round(value, _DECIMALS))
+
+
+@dataclass(frozen=True, eq=False)
+class StudyDescription:
+    """A parsed and checked study file.
+
+    Attributes
+    ----------
+    name, text : str
+        Study name and one-line description.
+    path : str
+        The study file ("" for text parsed without a file).
+    model : str
+        The model argument as written.
+    model_text : str
+        The model file's text (kept, so that every worker builds the same model).
+    model_path : str
+    engine : str
+        A name in :data:`ENGINES`.
+    seed : int
+    warm_start : bool
+    fixed : mapping of str to str
+        The ``[set]`` overrides.
+    axes : tuple of GridAxis
+        The swept parameters (empty for an explicit list of points).
+    points : tuple of StudyPoint
+    swept : tuple of str
+        Names of the parameters that vary between points.
+    ladder : tuple of int
+        Bond dimensions (``(0,)`` for the exact and Gaussian engines).
+    sweep_settings : mapping
+        ``[ladder]`` sweep settings besides the bond dimensions.
+    variance : bool
+    regions : mapping of str to str
+        Region layouts by name.
+    probes : tuple of ProbeRequest
+    executor : ExecutorSettings
+    verdicts : VerdictSettings
+    """
+
+    name: str
+    text: str
+    path: str
+    model: str
+    model_text: str = field(repr=False)
+    model_path: str
+    engine: str
+    seed: int
+    warm_start: bool
+    fixed: Mapping[str, str]
+    axes: tuple[GridAxis, ...]
+    points: tuple[StudyPoint, ...] = field(repr=False)
+    swept: tuple[str, ...]
+    ladder: tuple[int, ...]
+    sweep_settings: Mapping[str, Any]
+    variance: bool
+    regions: Mapping[str, str]
+    probes: tuple[ProbeRequest, ...]
+    executor: ExecutorSettings
+    verdicts: VerdictSettings
+
+    @property
+    def model_spec(self) -> ModelSpec:
+        """The parsed model file."""
+        return parse_spec(self.model_text, path=self.model_path)
+
+    def overrides(self, point: StudyPoint) -> dict[str, str]:
+        """The ``--set`` values of a point: ``[set]`` first, then the point's own values."""
+        out = dict(self.fixed)
+        for key, value in point.values.items():
+            out[key] = _format_value(value)
+        return out
+
+    def build_model(self, point: StudyPoint):
+        """The model at a point (:class:`netprobe.spec.Model`)."""
+        from netprobe.spec import build_model
+
+        return build_model(self.model_spec, self.overrides(point))
+
+    def lattice_key(self, point: StudyPoint) -> tuple:
+        """The lattice-defining overrides of a point (points with equal keys share a lattice)."""
+        over = self.overrides(point)
+        return tuple((k, over.get(k)) for k in ("lattice", "geometry", "orientation", "length", "circumference"))
+
+    def plan(self) -> tuple[TaskPlan, ...]:
+        """All tasks of the study, with the tasks each one starts from.
+
+        For the DMRG engine, rung k > 0 of a point starts from rung k - 1 of the same point; with
+        ``warm_start`` the first rung starts from the first rung of the point's predecessor
+        (:meth:`warm_neighbour`).
+        """
+        out = []
+        for point in self.points:
+            for rung, chi in enumerate(self.ladder):
+                needs: tuple[tuple[int, int], ...] = ()
+                if self.engine == "dmrg":
+                    if rung > 0:
+                        needs = ((point.index, rung - 1),)
+                    elif self.warm_start:
+                        neighbour = self.warm_neighbour(point)
+                        needs = () if neighbour is None else ((neighbour, 0),)
+                out.append(TaskPlan(point.index, rung, chi, needs))
+        return tuple(out)
+
+    def warm_neighbour(self, point: StudyPoint) -> int | None:
+        """The point whose first-rung state starts this one (None: a random start).
+
+        On a grid, the predecessor along the last swept parameter that leaves the lattice alone (a
+        state cannot start a model on another lattice); for a list, the previous point if it has the
+        same lattice.
+        """
+        if not self.warm_start or self.engine != "dmrg":
+            return None
+        if point.grid_index is None:
+            if point.index == 0:
+                return None
+            prev = self.points[point.index - 1]
+            return prev.index if self.lattice_key(prev) == self.lattice_key(point) else None
+        lattice_names = set(LATTICE_KEYS) - {"flux", "twist"}
+        movable = [k for k, axis in enumerate(self.axes) if axis.name not in lattice_names]
+        if not movable:
+            return None
+        k = movable[-1]
+        if point.grid_index[k] == 0:
+            return None
+        wanted = list(point.grid_index)
+        wanted[k] -= 1
+        for other in self.points:
+            if other.grid_index == tuple(wanted):
+                return other.index
+        return None
+
+    def identity(self) -> dict:
+        """What makes two descriptions the same study (the executor settings and thresholds do not)."""
+        return {
+            "name": self.name, "model_text": self.model_text, "engine": self.engine, "seed": self.seed,
+            "warm_start": self.warm_start, "fixed": dict(self.fixed),
+            "points": [{"values": dict(p.values), "grid_index": p.grid_index} for p in self.points],
+            "ladder": list(self.ladder), "sweep_settings": dict(self.sweep_settings), "variance": self.variance,
+            "regions": dict(self.regions), "probes": [p.text for p in self.probes],
+        }
+
+    def fingerprint(self) -> str:
+        """SHA-256 of the canonical JSON of :meth:`identity`."""
+        text = json.dumps(self.identity(), sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(text.encode()).hexdigest()
+
+    def to_dict(self) -> dict:
+        """Plain values (JSON-ready); :meth:`from_dict` inverts it."""
+        return {
+            "name": self.name, "text": self.text, "path": self.path, "model": self.model,
+            "model_text": self.model_text, "model_path": self.model_path, "engine": self.engine,
+            "seed": self.seed, "warm_start": self.warm_start, "fixed": dict(self.fixed),
+            "axes": [{"name": a.name, "values": list(a.values)} for a in self.axes],
+            "points": [{"index": p.index, "values": dict(p.values),
+                        "grid_index": None if p.grid_index is None else list(p.grid_index)} for p in self.points],
+            "ladder": list(self.ladder), "sweep_settings": dict(self.sweep_settings),
+            "variance": self.variance, "regions": dict(self.regions),
+            "probes": [p.text for p in self.probes], "executor": asdict(self.executor),
+            "verdicts": asdict(self.verdicts),
+        }
+
+    @classmethod
+    def from_dict(cls, data: Mapping) -> "StudyDescription":
+        """Rebuild a description stored by :meth:`to_dict` (in a ledger)."""
+        regions = dict(data["regions"])
+        probes = tuple(parse_probe(t, regions, data["engine"], "stored study") for t in data["probes"])
+        return cls(
+            name=data["name"], text=data["text"], path=data["path"], model=data["model"],
+            model_text=data["model_text"], model_path=data["model_path"], engine=data["engine"],
+            seed=int(data["seed"]), warm_start=bool(data["warm_start"]), fixed=dict(data["fixed"]),
+            axes=tuple(GridAxis(a["name"], tuple(a["values"])) for a in data["axes"]),
+            points=tuple(StudyPoint(int(p["index"]), dict(p["values"]),
+                                    None if p["grid_index"] is None else tuple(p["grid_index"]))
+                         for p in data["points"]),
+            swept=_swept_names(data["axes"], data["points"]), ladder=tuple(int(c) for c in data["ladder"]),
+            sweep_settings=dict(data["sweep_settings"]), variance=bool(data["variance"]), regions=regions,
+            probes=probes, executor=ExecutorSettings(**data["executor"]),
+            verdicts=VerdictSettings(**data["verdicts"]),
+        )
+
+    def with_executor(self, **changes) -> "StudyDescription":
+        """A copy with some executor settings changed (e.g. from the command line)."""
+        from dataclasses import replace
+
+        return replace(self, executor=replace(self.executor, **changes))
+
+    def check(self) -> None:
+        """Build the model at the first point of every distinct lattice and carve the regions there.
+
+        Raises
+        ------
+        NetprobeError
+            The model's own error (a bad value, sector or size), an unknown operator of a
+            ``mean:OP`` probe, or a region that does not fit the lattice; prefixed with the study file.
+        """
+        from netprobe.regions import parse_region
+
+        where = _where(self.path)
+        seen = set()
+        for point in self.points:
+            key = self.lattice_key(point)
+            if key in seen:
+                continue
+            seen.add(key)
+            try:
+                model = self.build_model(point)
+                for name, text in self.regions.items():
+                    parse_region(text, model.lattice)
+                for probe in self.probes:
+                    if probe.operator is not None:
+                        _check_operator(model, probe, self.engine)
+            except NetprobeError as err:
+                raise type(err)(f"{where}: at point {point.label}: {' '.join(str(err).split())}") from None
+
+    def __repr__(self) -> str:
+        axes = ", ".join(f"{a.name}[{len(a.values)}]" for a in self.axes) or f"{len(self.points)} listed points"
+        return (f"StudyDescription('{self.name}', model={self.model!r}, engine={self.engine}, {axes}, "
+                f"ladder={list(self.ladder)}, probes={[p.text for p in self.probes]})")
+
+
+def _check_operator(model, probe: ProbeRequest, engine: str) -> None:
+    from netprobe.errors import OperatorError
+
+    if engine == "gaussian":
+        if probe.operator != "n" or model.space.name != "fermion":
+            raise SpecError(
+                f"probe '{probe.text}': the gaussian engine evaluates only mean:n on fermion sites; use "
+                "the exact or dmrg engine")
+        return
+    try:
+        model.space.operator(probe.operator)
+    except OperatorError as err:
+        raise SpecError(f"probe '{probe.text}': {' '.join(str(err).split())}") from None
+
+
+def _where(path: str) -> str:
+    return f"study file {path}" if path else "study description"
+
+
+def _swept_names(axes, points) -> tuple[str, ...]:
+    if axes:
+        return tuple(a["name"] if isinstance(a, Mapping) else a.name for a in axes)
+    names: list[str] = []
+    for p in points:
+        for key in (p["values"] if isinstance(p, Mapping) else p.values):
+            if key not in names:
+                names.append(key)
+    return tuple(names)
+
+
+def _check_keys(table, allowed, where, what):
+    if not isinstance(table, dict):
+        raise SpecError(f"{where}: {what} must be a table")
+    for key in table:
+        if key not in allowed:
+            raise SpecError(f"{where}: unknown key '{key}' in {what}; valid keys: {', '.join(sorted(allowed))}")
+
+
+def _is_number(value) -> bool:
+    return isinstance(value, numbers.Real) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def _axis(name: str, entry, where: str) -> GridAxis:
+    what = f"[grid] {name}"
+    if isinstance(entry, list):
+        entry = {"values": entry}
+    _check_keys(entry, _AXIS_KEYS, where, what)
+    if "values" in entry:
+        if set(entry) - {"values"}:
+            raise SpecError(f"{where}: {what}: give either values = [...] or start, stop, num, not both")
+        values = entry["values"]
+        if not isinstance(values, list) or not all(_is_number(v) for v in values):
+            raise SpecError(f"{where}: {what}: values must be a list of numbers, e.g. values = [0.5, 1.0]")
+        out = tuple(values)
+    else:
+        missing = [k for k in ("start", "stop", "num") if k not in entry]
+        if missing:
+            raise SpecError(f"{where}: {what} needs start, stop and num (missing: {', '.join(missing)}), or "
+                            "values = [...]")
+        start, stop, num = entry["start"], entry["stop"], entry["num"]
+        if not (_is_number(start) and _is_number(stop)):
+            raise SpecError(f"{where}: {what}: start and stop must be numbers")
+        if isinstance(num, bool) or not isinstance(num, numbers.Integral) or num < 0:
+            raise SpecError(f"{where}: {what}: num = {num!r} must be a whole number of points")
+        if num == 1 and start != stop:
+            raise SpecError(f"{where}: {what}: num = 1 with start != stop; give num >= 2 or values = [x]")
+        out = tuple(float(round(v, _DECIMALS)) for v in np.linspace(float(start), float(stop), int(num)))
+    if not out:
+        raise SpecError(f"{where}: the grid is empty: {what} has no values; give values = [...] or num >= 1")
+    if len(set(out)) != len(out):
+        raise SpecError(f"{where}: {what} lists a value twice; give distinct values")
+    if name in LATTICE_KEYS and LATTICE_KEYS[name] is int:
+        if not all(float(v).is_integer() and v >= 1 for v in out):
+            raise SpecError(f"{where}: {what}: {name} takes positive whole numbers, got {list(out)}")
+        out = tuple(int(v) for v in out)
+    elif name in LATTICE_KEYS and LATTICE_KEYS[name] is str:
+        raise SpecError(f"{where}: {what}: '{name}' is not numeric and cannot be swept; set it in [set]")
+    return GridAxis(name, out)
+
+
+def _fixed_value(key, value, where) -> str:
+    if isinstance(value, bool) or not isinstance(value, (numbers.Real, str)):
+        raise SpecError(f"{where}: [set] {key} must be a number or a string expression")
+    return value if isinstance(value, str) else _format_value(value)
+
+
+def parse_study(text: str, *, path: str = "") -> StudyDescription:
+    """Parse and check the layout of a study file (cheap: no model is built; see :meth:`StudyDescription.check`).
+
+    Parameters
+    ----------
+    text : str
+        The study file.
+    path : str
+        Its path (for messages, and as the base of a relative model path).
+
+    Returns
+    -------
+    StudyDescription
+
+    Raises
+    ------
+    SpecError
+        For malformed TOML, an unknown key, an unknown engine or probe, a grid parameter that is not a
+        parameter of the model, an empty grid, or a bad ladder or executor setting.
+    """
+    where = _where(path)
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise SpecError(f"{where}: not valid TOML ({err}); fix the syntax at the place named") from None
+    _check_keys(raw, _TOP_KEYS, where, "the top level")
+    study = raw.get("study")
+    if not isinstance(study, dict):
+        raise SpecError(f"{where}: missing [study] table with at least name, model and engine")
+    _check_keys(study, _STUDY_KEYS, where, "[study]")
+    for key in ("name", "model", "engine"):
+        if not isinstance(study.get(key), str) or not study[key].strip():
+            raise SpecError(f"{where}: [study] needs a string '{key}'")
+    name = study["name"].strip()
+    if not all(ch.isalnum() or ch in "-_." for ch in name):
+        raise SpecError(f"{where}: [study] name '{name}' may hold only letters, digits, '-', '_' and '.'")
+    engine = study["engine"]
+    if engine not in ENGINES:
+        raise SpecError(f"{where}: unknown engine '{engine}'; valid engines: {', '.join(ENGINES)}")
+    seed = study.get("seed", 0)
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        raise SpecError(f"{where}: [study] seed = {seed!r} must be a non-negative integer")
+    warm = study.get("warm_start", False)
+    if not isinstance(warm, bool):
+        raise SpecError(f"{where}: [study] warm_start must be true or false")
+
+    model_path = _resolve_model(study["model"], path, where)
+    try:
+        model_text = model_path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise SpecError(f"{where}: cannot read model file {model_path}: {err}") from None
+    spec = parse_spec(model_text, path=str(model_path))
+    parameters = list(spec.parameters)
+
+    fixed_raw = raw.get("set", {})
+    _check_keys(fixed_raw, set(parameters), where, f"[set] (parameters of model '{spec.name}')")
+    fixed = {k: _fixed_value(k, v, where) for k, v in fixed_raw.items()}
+
+    axes: tuple[GridAxis, ...] = ()
+    points: list[StudyPoint] = []
+    if "grid" in raw and "point" in raw:
+        raise SpecError(f"{where}: give either [grid] or [[point]] entries, not both")
+    if "grid" in raw:
+        grid = raw["grid"]
+        if not isinstance(grid, dict):
+            raise SpecError(f"{where}: [grid] must be a table of parameter = {{ start, stop, num }} entries")
+        if not grid:
+            raise SpecError(f"{where}: the grid is empty; sweep one or two parameters, e.g. h = {{ start = 0.5, "
+                            "stop = 1.5, num = 11 }")
+        if len(grid) > _MAX_AXES:
+            raise SpecError(f"{where}: [grid] sweeps {len(grid)} parameters ({', '.join(grid)}); a grid sweeps one "
+                            "or two (use [[point]] entries for other sets)")
+        for key in grid:
+            _check_parameter(key, parameters, spec.name, where, "[grid]")
+            if key in fixed:
+                raise SpecError(f"{where}: '{key}' is both swept in [grid] and fixed in [set]; keep one")
+        axes = tuple(_axis(k, v, where) for k, v in grid.items())
+        for index in np.ndindex(*(len(a.values) for a in axes)):
+            values = {a.name: a.values[i] for a, i in zip(axes, index)}
+            points.append(StudyPoint(len(points), values, tuple(int(i) for i in index)))
+    elif "point" in raw:
+        entries = raw["point"]
+        if not isinstance(entries, list) or not entries:
+            raise SpecError(f"{where}: the list of points is empty; add [[point]] entries")
+        for k, entry in enumerate(entries):
+            if not isinstance(entry, dict) or not entry:
+                raise SpecError(f"{where}: [[point]] #{k + 1} must set at least one parameter")
+            values = {}
+            for key, value in entry.items():
+                _check_parameter(key, parameters, spec.name, where, f"[[point]] #{k + 1}")
+                if key in fixed:
+                    raise SpecError(f"{where}: '{key}' is both set in [[point]] #{k + 1} and fixed in [set]; keep one")
+                if not _is_number(value):
+                    raise SpecError(f"{where}: [[point]] #{k + 1}: {key} must be a number")
+                values[key] = value
+            points.append(StudyPoint(k, values, None))
+        labels = [p.label for p in points]
+        if len(set(labels)) != len(labels):
+            raise SpecError(f"{where}: [[point]] entries repeat a point; give each point once")
+    else:
+        raise SpecError(f"{where}: the grid is empty: no [grid] and no [[point]] entries; add one")
+    swept = _swept_names(axes, points)
+
+    ladder_raw = raw.get("ladder", {})
+    _check_keys(ladder_raw, _LADDER_ONLY | _SWEEP_KEYS, where, "[ladder]")
+    if engine == "dmrg":
+        chis = ladder_raw.get("bond_dimensions")
+        if not isinstance(chis, list) or not chis:
+            raise SpecError(f"{where}: engine dmrg needs [ladder] bond_dimensions = [...], e.g. [32, 64, 128]")
+        if not all(isinstance(c, int) and not isinstance(c, bool) and c >= 1 for c in chis):
+            raise SpecError(f"{where}: [ladder] bond_dimensions must be positive integers, got {chis}")
+        if any(b <= a for a, b in zip(chis, chis[1:])):
+            raise SpecError(f"{where}: [ladder] bond_dimensions {chis} must increase; sort them")
+        ladder = tuple(chis)
+    else:
+        ladder = (0,)
+    sweep_settings = {k: v for k, v in ladder_raw.items() if k in _SWEEP_KEYS}
+    variance = ladder_raw.get("variance", True)
+    if not isinstance(variance, bool):
+        raise SpecError(f"{where}: [ladder] variance must be true or false")
+    if engine == "dmrg":
+        _check_sweep_settings(sweep_settings, ladder, where)
+
+    measure = raw.get("measure", {})
+    _check_keys(measure, _MEASURE_KEYS, where, "[measure]")
+    if "region" in measure and "regions" in measure:
+        raise SpecError(f"{where}: [measure] takes region = \"...\" or regions = {{ ... }}, not both")
+    regions: dict[str, str] = {}
+    if "region" in measure:
+        if not isinstance(measure["region"], str):
+            raise SpecError(f"{where}: [measure] region must be a layout string such as \"sectors:radius=3\"")
+        regions[_DEFAULT_REGION] = measure["region"]
+    elif "regions" in measure:
+        if not isinstance(measure["regions"], dict) or not all(isinstance(v, str) for v in measure["regions"].values()):
+            raise SpecError(f"{where}: [measure] regions must be a table of name = \"layout\" entries")
+        for key in measure["regions"]:
+            if not key.isidentifier():
+                raise SpecError(f"{where}: region name '{key}' must be a plain word (letters, digits, _)")
+        regions = dict(measure["regions"])
+    probe_texts = measure.get("probes", ["energy"])
+    if not isinstance(probe_texts, list) or not probe_texts:
+        raise SpecError(f"{where}: [measure] probes must be a non-empty list, e.g. [\"energy\", \"J\"]")
+    probes = tuple(parse_probe(t, regions, engine, where) for t in probe_texts)
+    if len({p.text for p in probes}) != len(probes):
+        raise SpecError(f"{where}: [measure] probes lists a probe twice")
+
+    exec_raw = raw.get("executor", {})
+    _check_keys(exec_raw, {f.name for f in fields(ExecutorSettings)}, where, "[executor]")
+    verdict_raw = raw.get("verdicts", {})
+    _check_keys(verdict_raw, {f.name for f in fields(VerdictSettings)}, where, "[verdicts]")
+    try:
+        executor = ExecutorSettings(**exec_raw)
+        verdicts = VerdictSettings(**verdict_raw)
+    except SpecError as err:
+        raise SpecError(f"{where}: {err}") from None
+    return StudyDescription(
+        name=name, text=str(study.get("description", "")), path=path, model=study["model"],
+        model_text=model_text, model_path=str(model_path), engine=engine, seed=seed, warm_start=warm,
+        fixed=fixed, axes=axes, points=tuple(points), swept=swept, ladder=ladder,
+        sweep_settings=sweep_settings, variance=variance, regions=regions, probes=probes, executor=executor,
+        verdicts=verdicts,
+    )
+
+
+def _check_parameter(key, parameters, model_name, where, what):
+    if key not in parameters:
+        raise SpecError(
+            f"{where}: {what} parameter '{key}' is not a parameter of model '{model_name}'; valid: "
+            f"{', '.join(parameters)}")
+
+
+def _check_sweep_settings(settings, ladder, where):
+    from netprobe.dmrg import SweepSettings
+
+    try:
+        SweepSettings(bond_dimension=ladder[0], **settings)
+    except NetprobeError as err:
+        raise SpecError(f"{where}: [ladder]: {' '.join(str(err).split())}") from None
+    except TypeError as err:
+        raise SpecError(f"{where}: [ladder]: {err}") from None
+
+
+def _resolve_model(model: str, path: str, where: str) -> Path:
+    if path:
+        local = Path(path).parent / model
+        if local.is_file():
+            return local.resolve()
+    try:
+        return find_model(model).resolve()
+    except SpecError as err:
+        raise SpecError(f"{where}: {err}") from None
+
+
+def load_study(name_or_path: str) -> StudyDescription:
+    """Read and parse a study file (a path, or the name of a bundled study)."""
+    path = find_study(name_or_path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise SpecError(f"cannot read study file {path}: {err}") from None
+    return parse_study(text, path=str(path))
