@@ -1,8 +1,9 @@
-"""Studies: the description layout and its errors, the SQLite ledger under concurrency, the transition
-estimator, the convergence verdicts and the command line (real subprocesses, real ledgers)."""
+"""Studies: description errors, the ledger under concurrency, estimates, verdicts and the command line.
+
+The ledger is a real SQLite file, the command line a real subprocess.
+"""
 
 import json
-import math
 import multiprocessing
 import os
 import socket
@@ -42,8 +43,15 @@ sys.exit(cli.main(sys.argv[1:]))
 def netprobe_cli(*args, cwd=None, timeout=600, **popen):
     """Run ``netprobe ARGS`` in a real subprocess (returns CompletedProcess, text)."""
     env = dict(os.environ, PYTHONUNBUFFERED="1")
-    return subprocess.run([sys.executable, "-c", _CLI, *map(str, args)], capture_output=True, text=True,
-                          env=env, timeout=timeout, cwd=cwd, **popen)
+    return subprocess.run(
+        [sys.executable, "-c", _CLI, *map(str, args)],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=timeout,
+        cwd=cwd,
+        **popen,
+    )
 
 
 def netprobe_popen(*args, **kwargs):
@@ -118,24 +126,33 @@ def _parse(rest, engine="exact", extra_study=""):
     return parse_study(BASE.format(engine=engine, rest=rest, extra_study=extra_study), path="t.toml")
 
 
-@pytest.mark.parametrize("rest, match", [
-    ("[grid]\nhx = { values = [1.0] }", "grid] parameter 'hx' is not a parameter of model 'tfim'"),
-    ("[grid]\nh = { values = [] }", "the grid is empty"),
-    ("[grid]\nh = { start = 0.5, stop = 1.0, num = 0 }", "the grid is empty"),
-    ("[grid]\n", "the grid is empty"),
-    ("", "the grid is empty"),
-    ("[grid]\nh = { start = 0.5, stop = 1.0 }", "needs start, stop and num"),
-    ("[grid]\nh = { values = [1.0], step = 0.1 }", "unknown key 'step' in [grid] h"),
-    ("[grid]\nh = { values = [1.0] }\n[measure]\nprobes = [\"Jx\"]", "unknown probe 'Jx'"),
-    ("[grid]\nh = { values = [1.0] }\n[measure]\nprobes = [\"J\"]", "needs a region"),
-    ("[grid]\nh = { values = [1.0] }\n[measure]\nregion = \"sectors:radius=1\"\nprobes = [\"chern_number\"]",
-     "not available with engine 'exact'"),
-    ("[grid]\nh = { values = [1.0] }\n[sett]\nJ = 1", "unknown key 'sett' in the top level"),
-    ("[grid]\nh = { values = [1.0] }\n[set]\nh = 1.0", "both swept in [grid] and fixed in [set]"),
-    ("[grid]\nh = { values = [1.0] }\n[executor]\nworkers = 0", "workers = 0 must be a positive integer"),
-    ("[grid]\nh = { values = [1.0] }\n[executor]\nthreads = 2", "unknown key 'threads' in [executor]"),
-    ("[grid]\nh = { values = [1.0] }\nJ = { values = [1.0] }\nlength = { values = [4] }", "a grid sweeps one or two"),
-])
+@pytest.mark.parametrize(
+    "rest, match",
+    [
+        ("[grid]\nhx = { values = [1.0] }", "grid] parameter 'hx' is not a parameter of model 'tfim'"),
+        ("[grid]\nh = { values = [] }", "the grid is empty"),
+        ("[grid]\nh = { start = 0.5, stop = 1.0, num = 0 }", "the grid is empty"),
+        ("[grid]\n", "the grid is empty"),
+        ("", "the grid is empty"),
+        ("[grid]\nh = { start = 0.5, stop = 1.0 }", "needs start, stop and num"),
+        ("[grid]\nh = { values = [1.0], step = 0.1 }", "unknown key 'step' in [grid] h"),
+        ('[grid]\nh = { values = [1.0] }\n[measure]\nprobes = ["Jx"]', "unknown probe 'Jx'"),
+        ('[grid]\nh = { values = [1.0] }\n[measure]\nprobes = ["J"]', "needs a region"),
+        (
+            '[grid]\nh = { values = [1.0] }\n[measure]\nregion = "sectors:radius=1"\n'
+            'probes = ["chern_number"]',
+            "not available with engine 'exact'",
+        ),
+        ("[grid]\nh = { values = [1.0] }\n[sett]\nJ = 1", "unknown key 'sett' in the top level"),
+        ("[grid]\nh = { values = [1.0] }\n[set]\nh = 1.0", "both swept in [grid] and fixed in [set]"),
+        ("[grid]\nh = { values = [1.0] }\n[executor]\nworkers = 0", "workers = 0 must be a positive integer"),
+        ("[grid]\nh = { values = [1.0] }\n[executor]\nthreads = 2", "unknown key 'threads' in [executor]"),
+        (
+            "[grid]\nh = { values = [1.0] }\nJ = { values = [1.0] }\nlength = { values = [4] }",
+            "a grid sweeps one or two",
+        ),
+    ],
+)
 def test_description_errors_name_the_problem(rest, match):
     with pytest.raises(SpecError, match=_escape(match)):
         _parse(rest)
@@ -153,12 +170,18 @@ def test_description_dmrg_needs_an_increasing_ladder():
     with pytest.raises(SpecError, match="must increase"):
         _parse("[grid]\nh = { values = [1.0] }\n[ladder]\nbond_dimensions = [16, 8]", engine="dmrg")
     with pytest.raises(SpecError, match="max_sweeps"):
-        _parse("[grid]\nh = { values = [1.0] }\n[ladder]\nbond_dimensions = [8]\nmax_sweeps = 0", engine="dmrg")
+        _parse(
+            "[grid]\nh = { values = [1.0] }\n[ladder]\nbond_dimensions = [8]\nmax_sweeps = 0", engine="dmrg"
+        )
 
 
 def test_grid_points_plan_and_warm_start_neighbours():
-    d = _parse("[grid]\nlength = { values = [8, 12] }\nh = { start = 0.5, stop = 1.0, num = 3 }\n"
-               "[ladder]\nbond_dimensions = [4, 8]", engine="dmrg", extra_study="warm_start = true")
+    d = _parse(
+        "[grid]\nlength = { values = [8, 12] }\nh = { start = 0.5, stop = 1.0, num = 3 }\n"
+        "[ladder]\nbond_dimensions = [4, 8]",
+        engine="dmrg",
+        extra_study="warm_start = true",
+    )
     # linspace values, both ends included (numpy.linspace)
     assert [p.values["h"] for p in d.points[:3]] == pytest.approx(np.linspace(0.5, 1.0, 3).tolist())
     assert [p.label for p in d.points[:2]] == ["length=8,h=0.5", "length=8,h=0.75"]
@@ -173,6 +196,16 @@ def test_grid_points_plan_and_warm_start_neighbours():
     assert d.overrides(d.points[4]) == {"length": "12", "h": "0.75"}
 
 
+def test_point_lists_keep_their_order_and_reject_repeats():
+    d = _parse("[[point]]\nh = 1.5\n[[point]]\nh = 0.5\nJ = 2.0")
+    assert [p.values for p in d.points] == [{"h": 1.5}, {"h": 0.5, "J": 2.0}]
+    assert d.swept == ("h", "J") and d.points[1].grid_index is None
+    with pytest.raises(SpecError, match="repeat a point"):
+        _parse("[[point]]\nh = 1.5\n[[point]]\nh = 1.5")
+    with pytest.raises(SpecError, match="'hh' is not a parameter"):
+        _parse("[[point]]\nhh = 1.5")
+
+
 def test_fingerprint_ignores_executor_settings():
     a = _parse("[grid]\nh = { values = [1.0, 2.0] }\n[executor]\nworkers = 1")
     b = _parse("[grid]\nh = { values = [1.0, 2.0] }\n[executor]\nworkers = 2")
@@ -185,8 +218,10 @@ def test_fingerprint_ignores_executor_settings():
 
 def _small_ledger(tmp_path, engine="exact", values="[0.5, 1.0, 1.5]"):
     if engine == "dmrg":
-        text = (f"[study]\nname = \"l\"\nmodel = \"tfim\"\nengine = \"dmrg\"\nwarm_start = true\n[set]\n"
-                f"length = 6\n[grid]\nh = {{ values = {values} }}\n[ladder]\nbond_dimensions = [4, 8]\n")
+        text = (
+            f'[study]\nname = "l"\nmodel = "tfim"\nengine = "dmrg"\nwarm_start = true\n[set]\n'
+            f"length = 6\n[grid]\nh = {{ values = {values} }}\n[ladder]\nbond_dimensions = [4, 8]\n"
+        )
     else:
         text = TFIM_EXACT.format(values=values)
     d = parse_study(text, path=str(tmp_path / "l.toml"))
@@ -329,17 +364,26 @@ def test_inverse_bond_fit_matches_a_least_squares_line():
 
 
 def test_verdict_flags_a_probe_that_moves_between_the_last_rungs(tmp_path):
-    text = ("[study]\nname = \"v\"\nmodel = \"tfim\"\nengine = \"dmrg\"\n[set]\nlength = 6\n[grid]\nh = { values = "
-            "[0.5, 1.0] }\n[ladder]\nbond_dimensions = [4, 8]\n[measure]\nprobes = [\"mean:X\"]\n[verdicts]\n"
-            "change_threshold = 0.01\n")
+    text = (
+        '[study]\nname = "v"\nmodel = "tfim"\nengine = "dmrg"\n[set]\nlength = 6\n[grid]\nh = { values = '
+        '[0.5, 1.0] }\n[ladder]\nbond_dimensions = [4, 8]\n[measure]\nprobes = ["mean:X"]\n[verdicts]\n'
+        "change_threshold = 0.01\n"
+    )
     d = parse_study(text, path=str(tmp_path / "v.toml"))
     ledger = Ledger.prepare(tmp_path / "out", d)
     ledger.begin_run(1)
     fake = {(0, 4): 0.50, (0, 8): 0.505, (1, 4): 0.60, (1, 8): 0.65}
     while (c := ledger.claim(owner_pid=os.getpid())) is not None:
         value = fake[(c.point, c.bond_dimension)]
-        ledger.finish(c.task, c.lease, {"energy": -1.0 - 1e-3 * c.rung, "probes": {"mean:X": value},
-                                        "dmrg": {"discarded_weight": 1e-6 / (1 + c.rung), "converged": True}})
+        ledger.finish(
+            c.task,
+            c.lease,
+            {
+                "energy": -1.0 - 1e-3 * c.rung,
+                "probes": {"mean:X": value},
+                "dmrg": {"discarded_weight": 1e-6 / (1 + c.rung), "converged": True},
+            },
+        )
     rows = ledger.tasks()
     ledger.close()
     v0 = point_verdict(d, [r for r in rows if r.point == 0])
@@ -348,7 +392,9 @@ def test_verdict_flags_a_probe_that_moves_between_the_last_rungs(tmp_path):
     assert v1.status == "flagged" and any("mean:X changed by 0.05" in f for f in v1.flags)
     # energies changed by 1e-3 > 1e-6 * max(1, |E|): flagged at both points
     assert v0.energy.flagged and v0.energy.extrapolated is not None
-    assert v1.probes["mean:X"].fit.value == pytest.approx(0.65 + (0.65 - 0.60))  # line in 1/D: v(inf) = 2 v8 - v4
+    assert v1.probes["mean:X"].fit.value == pytest.approx(
+        0.65 + (0.65 - 0.60)
+    )  # line in 1/D: v(inf) = 2 v8 - v4
 
 
 # ---- the command line --------------------------------------------------------------------------------
@@ -367,8 +413,10 @@ def small_study(tmp_path_factory):
 
 def _snapshot(out):
     with sqlite3.connect(ledger_path(out)) as conn:
-        return (conn.execute("SELECT * FROM tasks ORDER BY id").fetchall(),
-                conn.execute("SELECT * FROM attempts ORDER BY id").fetchall())
+        return (
+            conn.execute("SELECT * FROM tasks ORDER BY id").fetchall(),
+            conn.execute("SELECT * FROM attempts ORDER BY id").fetchall(),
+        )
 
 
 def test_cli_study_runs_and_reports_status(small_study):

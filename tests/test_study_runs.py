@@ -1,5 +1,8 @@
-"""Whole studies on real executors: the Haldane and Ising transitions, a study killed mid-run and resumed,
-Dask against local processes, and a worker process that dies."""
+"""Whole studies on real executors.
+
+The Haldane and Ising transitions, a study killed mid-run and resumed, Dask against local processes,
+and a worker process that dies.
+"""
 
 import json
 import math
@@ -14,7 +17,7 @@ from test_study import TFIM_EXACT, netprobe_cli, netprobe_popen, pfeuty_chain, w
 
 from netprobe.spec import load_model
 from netprobe.store import load_state
-from netprobe.study import build_report, load_study, parse_study, run_study
+from netprobe.study import build_report, load_study, parse_study, run_study, write_report
 from netprobe.study.executors import DaskExecutor, LocalExecutor
 from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.report import steepest_change
@@ -35,9 +38,14 @@ def test_haldane_sweep_locates_the_chern_transition(tmp_path):
         assert abs(found[0]["location"] - critical) <= found[0]["uncertainty"], found[0]
     for point in report["points"]:
         m = point["parameters"]["M"]
-        j_units = abs(point["values"]["J"]) / (math.pi / 3)  # J = (pi/3) c- with |c-| = |C| = 1 in the Chern phase
-        nu = abs(point["values"]["chern_number"])  # real-space Chern number (Kitaev, Ann. Phys. 321, 2 (2006))
-        # 0.1: finite-disk corrections of a radius-6 disk on a 14 x 12 cylinder, a few per cent deep in a phase
+        j_units = abs(point["values"]["J"]) / (
+            math.pi / 3
+        )  # J = (pi/3) c- with |c-| = |C| = 1 in the Chern phase
+        nu = abs(
+            point["values"]["chern_number"]
+        )  # real-space Chern number (Kitaev, Ann. Phys. 321, 2 (2006))
+        # 0.1: finite-disk corrections of a radius-6 disk on a 14 x 12 cylinder, a few per cent
+        # deep inside a phase
         if m <= 1.0:
             assert j_units == pytest.approx(1.0, abs=0.1) and nu == pytest.approx(1.0, abs=0.1)
         if m >= 2.5:
@@ -49,6 +57,8 @@ def test_dmrg_ising_sweep_extrapolates_to_the_critical_field(tmp_path):
     run = run_study(description, tmp_path / "tfim", progress=None)
     assert run.complete, run.failures
     report = build_report(tmp_path / "tfim")
+    names = {f.name for f in write_report(report)}
+    assert {"phase_mean_X.png", "lines_mean_X.png", "convergence.png", "points.csv"} <= names
     hs = np.array(description.axes[1].values)
     locations = {}
     for entry in report.points:
@@ -110,8 +120,15 @@ def _rows(path):
 def test_killed_study_resumes_without_recomputing(tmp_path):
     spec = write_study(tmp_path, KILL_STUDY)
     out = tmp_path / "out"
-    proc = netprobe_popen("study", spec, "--out", out, start_new_session=True, stdout=open(os.devnull, "w"),
-                          stderr=open(tmp_path / "first.log", "w"))
+    proc = netprobe_popen(
+        "study",
+        spec,
+        "--out",
+        out,
+        start_new_session=True,
+        stdout=open(os.devnull, "w"),
+        stderr=open(tmp_path / "first.log", "w"),
+    )
     deadline = time.monotonic() + 300
     try:
         while True:
@@ -166,9 +183,12 @@ def test_dask_cluster_and_local_processes_agree(tmp_path):
     distributed = pytest.importorskip("distributed")
     description = parse_study(TFIM_EXACT.format(values="[0.5, 1.0, 1.5]"), path=str(tmp_path / "s.toml"))
     local = run_study(description, tmp_path / "local", executor=LocalExecutor(workers=2), progress=None)
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
-        remote = run_study(description, tmp_path / "dask", executor=DaskExecutor(cluster.scheduler_address),
-                           progress=None)
+    with distributed.LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+    ) as cluster:
+        remote = run_study(
+            description, tmp_path / "dask", executor=DaskExecutor(cluster.scheduler_address), progress=None
+        )
     assert local.complete and remote.complete
     a = {p["label"]: p["values"] for p in build_report(tmp_path / "local").points}
     b = {p["label"]: p["values"] for p in build_report(tmp_path / "dask").points}
@@ -191,8 +211,9 @@ def dying_runner(ledger_file, task, lease, *, blas_threads=None):
 
 def test_a_dying_worker_fails_its_task_and_the_study_goes_on(tmp_path):
     description = parse_study(TFIM_EXACT.format(values="[0.5, 1.0, 1.5]"), path=str(tmp_path / "s.toml"))
-    run = run_study(description, tmp_path / "out", executor=LocalExecutor(workers=2, runner=dying_runner),
-                    progress=None)
+    run = run_study(
+        description, tmp_path / "out", executor=LocalExecutor(workers=2, runner=dying_runner), progress=None
+    )
     assert (run.counts["done"], run.counts["failed"]) == (2, 1)
     with Ledger(ledger_path(tmp_path / "out")) as ledger:
         failed = [r for r in ledger.tasks() if r.status == "failed"]

@@ -21,5 +21,16 @@ from netprobe.study.executors import DaskExecutor, LocalExecutor, StudyRun, run_
 from netprobe.study.ledger import Ledger
 from netprobe.study.report import build_report, write_report
 
-__all__ = ["StudyDescription", "StudyError", "load_study", "parse_study", "Ledger", "LocalExecutor",
-           "DaskExecutor", "StudyRun", "run_study", "build_report", "write_report"]
+__all__ = [
+    "StudyDescription",
+    "StudyError",
+    "load_study",
+    "parse_study",
+    "Ledger",
+    "LocalExecutor",
+    "DaskExecutor",
+    "StudyRun",
+    "run_study",
+    "build_report",
+    "write_report",
+]

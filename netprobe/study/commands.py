@@ -18,7 +18,9 @@ into one line on standard error and exit status 2).
 
 from __future__ import annotations
 
+import contextlib
 import json
+import signal
 import sys
 from pathlib import Path
 
@@ -41,19 +43,36 @@ def _positive_int(text: str) -> int:
 
 def add_study_parser(subparsers) -> None:
     """Register ``netprobe study`` on an ``argparse`` subparsers object."""
-    p = subparsers.add_parser("study", help="run a parameter sweep described by a study file (or show its status)",
-                              description="Run the tasks of a study (a sweep over a grid of parameter points "
-                                          "and bond dimensions) that are not done yet, on local processes or a "
-                                          "Dask scheduler; the ledger in the study folder keeps every result.")
+    p = subparsers.add_parser(
+        "study",
+        help="run a parameter sweep described by a study file (or show its status)",
+        description="Run the tasks of a study (a sweep over a grid of parameter points "
+        "and bond dimensions) that are not done yet, on local processes or a "
+        "Dask scheduler; the ledger in the study folder keeps every result.",
+    )
     p.add_argument("spec", metavar="SPEC", help="study file (path) or the name of a bundled study")
-    p.add_argument("--out", metavar="DIR", help="study folder for the ledger, states and reports "
-                                                "(default: ./<study name>-study)")
-    p.add_argument("--workers", type=_positive_int, metavar="N",
-                   help="local worker processes (default: [executor] workers, else one per core)")
-    p.add_argument("--scheduler", metavar="ADDRESS",
-                   help="run on a dask.distributed scheduler, e.g. tcp://10.0.0.5:8786 (the workers must see DIR)")
-    p.add_argument("--attempts", type=_positive_int, metavar="K",
-                   help="tries per task in this run (default: [executor] attempts)")
+    p.add_argument(
+        "--out",
+        metavar="DIR",
+        help="study folder for the ledger, states and reports (default: ./<study name>-study)",
+    )
+    p.add_argument(
+        "--workers",
+        type=_positive_int,
+        metavar="N",
+        help="local worker processes (default: [executor] workers, else one per core)",
+    )
+    p.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="run on a dask.distributed scheduler, e.g. tcp://10.0.0.5:8786 (the workers must see DIR)",
+    )
+    p.add_argument(
+        "--attempts",
+        type=_positive_int,
+        metavar="K",
+        help="tries per task in this run (default: [executor] attempts)",
+    )
     p.add_argument("--status", action="store_true", help="only report task counts; change nothing")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_study)
@@ -61,9 +80,12 @@ def add_study_parser(subparsers) -> None:
 
 def add_report_parser(subparsers) -> None:
     """Register ``netprobe report`` on an ``argparse`` subparsers object."""
-    p = subparsers.add_parser("report", help="tables, transition estimates and phase maps of a study folder",
-                              description="Read a study folder, write CSV/JSON tables and PNG figures, and print "
-                                          "a summary with convergence verdicts and transition estimates.")
+    p = subparsers.add_parser(
+        "report",
+        help="tables, transition estimates and phase maps of a study folder",
+        description="Read a study folder, write CSV/JSON tables and PNG figures, and print "
+        "a summary with convergence verdicts and transition estimates.",
+    )
     p.add_argument("folder", metavar="DIR", help="the study folder (the --out of 'netprobe study')")
     p.add_argument("--out", metavar="FOLDER", help="where the files go (default: DIR/report)")
     p.add_argument("--no-plots", dest="plots", action="store_false", help="write the tables only")
@@ -88,8 +110,10 @@ def _status(description: StudyDescription, folder: Path, as_json: bool) -> int:
     if path.is_file():
         with Ledger(path) as ledger:
             if ledger.fingerprint != description.fingerprint():
-                raise StudyError(f"{folder} holds the ledger of a different study ('{ledger.description().name}'); "
-                                 "give the --out folder of this study")
+                raise StudyError(
+                    f"{folder} holds the ledger of a different study ('{ledger.description().name}'); "
+                    "give the --out folder of this study"
+                )
             counts = ledger.counts()
             stale = ledger.stale(description.executor.lease_seconds)
         where = str(path)
@@ -97,16 +121,43 @@ def _status(description: StudyDescription, folder: Path, as_json: bool) -> int:
         total = len(description.plan())
         counts = {"pending": total, "running": 0, "done": 0, "failed": 0, "total": total}
         stale, where = 0, None
-    payload = {"study": description.name, "folder": str(folder), "ledger": where, **counts, "stale": stale,
-               "points": len(description.points)}
+    payload = {
+        "study": description.name,
+        "folder": str(folder),
+        "ledger": where,
+        **counts,
+        "stale": stale,
+        "points": len(description.points),
+    }
     if as_json:
         _print_json(payload)
     else:
         note = "" if where else " (not started: no ledger yet)"
-        print(f"study {description.name}{note}: {counts['done']}/{counts['total']} done, {counts['failed']} failed, "
-              f"{counts['running']} running ({stale} with a dead holder), {counts['pending']} pending; "
-              f"{len(description.points)} points; folder {folder}")
+        print(
+            f"study {description.name}{note}: {counts['done']}/{counts['total']} done, "
+            f"{counts['failed']} failed, "
+            f"{counts['running']} running ({stale} with a dead holder), {counts['pending']} pending; "
+            f"{len(description.points)} points; folder {folder}"
+        )
     return 0
+
+
+@contextlib.contextmanager
+def _terminate_as_interrupt():
+    """Treat SIGTERM (batch systems, ``kill``) like Ctrl-C, so that running tasks are handed back."""
+
+    def stop(signum, frame):
+        raise KeyboardInterrupt
+
+    try:
+        previous = signal.signal(signal.SIGTERM, stop)
+    except ValueError:  # not the main thread: leave signals alone
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
 
 
 def cmd_study(args) -> int:
@@ -118,7 +169,9 @@ def cmd_study(args) -> int:
     if args.status:
         return _status(description, folder, args.json)
     if args.workers is not None and args.scheduler:
-        raise StudyError("give --workers (local processes) or --scheduler (Dask), not both; Dask decides its workers")
+        raise StudyError(
+            "give --workers (local processes) or --scheduler (Dask), not both; Dask decides its workers"
+        )
     changes = {}
     if args.workers is not None:
         changes["workers"] = args.workers
@@ -128,19 +181,29 @@ def cmd_study(args) -> int:
         description = description.with_executor(**changes)
     settings = description.executor
     if args.scheduler:
-        executor = DaskExecutor(args.scheduler, connect_seconds=settings.connect_seconds,
-                                blas_threads=settings.blas_threads or 1)
+        executor = DaskExecutor(
+            args.scheduler, connect_seconds=settings.connect_seconds, blas_threads=settings.blas_threads or 1
+        )
     else:
         executor = LocalExecutor(workers=settings.workers, blas_threads=settings.blas_threads)
-    run = run_study(description, folder, executor=executor, progress="stderr")
-    payload = {"study": description.name, "folder": str(folder), **dict(run.counts), "seconds": run.seconds,
-               "executor": run.executor, "failures": list(run.failures)}
+    with _terminate_as_interrupt():
+        run = run_study(description, folder, executor=executor, progress="stderr")
+    payload = {
+        "study": description.name,
+        "folder": str(folder),
+        **dict(run.counts),
+        "seconds": run.seconds,
+        "executor": run.executor,
+        "failures": list(run.failures),
+    }
     if args.json:
         _print_json(payload)
     else:
         c = run.counts
-        print(f"study {description.name}: {c['done']}/{c['total']} tasks done, {c['failed']} failed, "
-              f"{run.seconds:.1f} s; folder {folder} (see 'netprobe report {folder}')")
+        print(
+            f"study {description.name}: {c['done']}/{c['total']} tasks done, {c['failed']} failed, "
+            f"{run.seconds:.1f} s; folder {folder} (see 'netprobe report {folder}')"
+        )
     return 0 if run.complete else 1
 
 

@@ -91,11 +91,13 @@ class StudyError(NetprobeError):
 
 
 #: Engines by name, with what each does with the ladder.
-ENGINES: Mapping[str, str] = MappingProxyType({
-    "dmrg": "two-site DMRG, one task per (point, bond dimension) of the ladder",
-    "exact": "exact diagonalisation in the model's sector, one task per point",
-    "gaussian": "free-fermion ground state of a quadratic model, one task per point",
-})
+ENGINES: Mapping[str, str] = MappingProxyType(
+    {
+        "dmrg": "two-site DMRG, one task per (point, bond dimension) of the ladder",
+        "exact": "exact diagonalisation in the model's sector, one task per point",
+        "gaussian": "free-fermion ground state of a quadratic model, one task per point",
+    }
+)
 
 
 @dataclass(frozen=True)
@@ -111,27 +113,45 @@ _ALL = frozenset(ENGINES)
 
 #: Probes by name. ``mean:OP`` averages a local operator over the lattice (or, with ``@region``,
 #: over the union of the region's parts).
-PROBES: Mapping[str, ProbeKind] = MappingProxyType({
-    "energy": ProbeKind("ground-state energy", "none", _ALL),
-    "energy_per_site": ProbeKind("ground-state energy divided by the number of sites", "none", _ALL),
-    "entropy": ProbeKind("von Neumann entropy of part A (nats)", "A", _ALL),
-    "J": ProbeKind("modular commutator J(A, B, C)", "ABC", _ALL),
-    "c_minus": ProbeKind("chiral central charge estimate 3 J / pi", "ABC", _ALL),
-    "cmi": ProbeKind("conditional mutual information I(A:C|B) (nats)", "ABC", _ALL),
-    "gamma": ProbeKind("topological entanglement entropy from the Kitaev-Preskill combination", "ABC", _ALL),
-    "chern_number": ProbeKind("real-space Chern number of three sectors (number-conserving fermions)", "ABC",
-                              frozenset({"gaussian"})),
-    "mean:OP": ProbeKind("mean of a local operator OP over the sites", "optional", _ALL),
-})
+PROBES: Mapping[str, ProbeKind] = MappingProxyType(
+    {
+        "energy": ProbeKind("ground-state energy", "none", _ALL),
+        "energy_per_site": ProbeKind("ground-state energy divided by the number of sites", "none", _ALL),
+        "entropy": ProbeKind("von Neumann entropy of part A (nats)", "A", _ALL),
+        "J": ProbeKind("modular commutator J(A, B, C)", "ABC", _ALL),
+        "c_minus": ProbeKind("chiral central charge estimate 3 J / pi", "ABC", _ALL),
+        "cmi": ProbeKind("conditional mutual information I(A:C|B) (nats)", "ABC", _ALL),
+        "gamma": ProbeKind(
+            "topological entanglement entropy from the Kitaev-Preskill combination", "ABC", _ALL
+        ),
+        "chern_number": ProbeKind(
+            "real-space Chern number of three sectors (number-conserving fermions)",
+            "ABC",
+            frozenset({"gaussian"}),
+        ),
+        "mean:OP": ProbeKind("mean of a local operator OP over the sites", "optional", _ALL),
+    }
+)
 
 _STUDY_KEYS = {"name", "description", "model", "engine", "seed", "warm_start"}
 _TOP_KEYS = {"study", "set", "grid", "point", "ladder", "measure", "executor", "verdicts"}
 _AXIS_KEYS = {"start", "stop", "num", "values"}
 _MEASURE_KEYS = {"region", "regions", "probes"}
 _LADDER_ONLY = {"bond_dimensions", "variance"}
-_SWEEP_KEYS = {"max_sweeps", "min_sweeps", "energy_tolerance", "discarded_tolerance", "truncation_weight",
-               "noise", "noise_sweeps", "eigensolver", "solver_tolerance", "ramp_solver_tolerance",
-               "krylov_dimension", "solver_restarts"}
+_SWEEP_KEYS = {
+    "max_sweeps",
+    "min_sweeps",
+    "energy_tolerance",
+    "discarded_tolerance",
+    "truncation_weight",
+    "noise",
+    "noise_sweeps",
+    "eigensolver",
+    "solver_tolerance",
+    "ramp_solver_tolerance",
+    "krylov_dimension",
+    "solver_restarts",
+}
 _DEFAULT_REGION = "main"
 _MAX_AXES = 2
 _DECIMALS = 12  # grid values are rounded so that 0.1 * 3 prints as 0.3 in labels and overrides
@@ -155,6 +175,7 @@ def find_study(name_or_path: str) -> Path:
     ------
     SpecError
         If neither exists; the message lists the bundled studies.
+
     """
     path = Path(name_or_path)
     if path.is_file():
@@ -184,6 +205,7 @@ class ExecutorSettings:
         How long to try to reach a Dask scheduler.
     blas_threads : int or None
         BLAS/LAPACK threads per task; None shares the cores among the workers.
+
     """
 
     workers: int | None = None
@@ -196,10 +218,15 @@ class ExecutorSettings:
     def __post_init__(self):
         for name in ("workers", "blas_threads"):
             value = getattr(self, name)
-            if value is not None and (isinstance(value, bool) or not isinstance(value, numbers.Integral)
-                                      or value < 1):
+            if value is not None and (
+                isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < 1
+            ):
                 raise SpecError(f"[executor] {name} = {value!r} must be a positive integer")
-        if isinstance(self.attempts, bool) or not isinstance(self.attempts, numbers.Integral) or self.attempts < 1:
+        if (
+            isinstance(self.attempts, bool)
+            or not isinstance(self.attempts, numbers.Integral)
+            or self.attempts < 1
+        ):
             raise SpecError(f"[executor] attempts = {self.attempts!r} must be a positive integer")
         for name in ("heartbeat_seconds", "lease_seconds", "connect_seconds"):
             value = getattr(self, name)
@@ -208,7 +235,8 @@ class ExecutorSettings:
         if self.lease_seconds < 2 * self.heartbeat_seconds:
             raise SpecError(
                 f"[executor] lease_seconds = {self.lease_seconds} must be at least twice heartbeat_seconds = "
-                f"{self.heartbeat_seconds}, or live tasks would be taken back")
+                f"{self.heartbeat_seconds}, or live tasks would be taken back"
+            )
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -221,6 +249,7 @@ class VerdictSettings:
         A probe is flagged when its values at the last two rungs differ by more than this.
     energy_threshold : float
         The energy is flagged when its last two rungs differ by more than this times ``max(1, |E|)``.
+
     """
 
     change_threshold: float = 1e-2
@@ -255,9 +284,10 @@ def parse_probe(text: str, regions: Mapping[str, str], engine: str, where: str) 
     SpecError
         For an unknown probe or region, a probe that needs a region when none is given, or a probe
         the engine cannot evaluate.
+
     """
     if not isinstance(text, str) or not text.strip():
-        raise SpecError(f"{where}: [measure] probes must be a list of names such as \"J\" or \"mean:X\"")
+        raise SpecError(f'{where}: [measure] probes must be a list of names such as "J" or "mean:X"')
     body, _, region = text.strip().partition("@")
     name, colon, operator = body.partition(":")
     valid = ", ".join(PROBES)
@@ -274,21 +304,26 @@ def parse_probe(text: str, regions: Mapping[str, str], engine: str, where: str) 
     if engine not in kind.engines:
         raise SpecError(
             f"{where}: probe '{text}' is not available with engine '{engine}'; it needs "
-            f"{' or '.join(sorted(kind.engines))}")
+            f"{' or '.join(sorted(kind.engines))}"
+        )
     if region:
         if kind.region == "none":
             raise SpecError(f"{where}: probe '{text}': {name} takes no region; write '{name}'")
         if region not in regions:
             raise SpecError(
-                f"{where}: probe '{text}' names region '{region}'; defined regions: {', '.join(regions) or 'none'}")
+                f"{where}: probe '{text}' names region '{region}'; defined regions: "
+                f"{', '.join(regions) or 'none'}"
+            )
     elif kind.region in ("A", "ABC"):
         if not regions:
             raise SpecError(
-                f"{where}: probe '{text}' needs a region; add [measure] region = \"sectors:radius=R\"")
+                f"{where}: probe '{text}' needs a region; add [measure] region = \"sectors:radius=R\""
+            )
         if len(regions) > 1:
             raise SpecError(
                 f"{where}: probe '{text}': several regions are defined ({', '.join(regions)}); write "
-                f"'{name}@NAME'")
+                f"'{name}@NAME'"
+            )
         region = next(iter(regions))
     return ProbeRequest(text.strip(), name, operator, region or None)
 
@@ -313,6 +348,7 @@ class StudyPoint:
         The swept parameters at this point.
     grid_index : tuple of int or None
         Indices along the grid axes (None for an explicit list of points).
+
     """
 
     index: int
@@ -382,6 +418,7 @@ class StudyDescription:
     probes : tuple of ProbeRequest
     executor : ExecutorSettings
     verdicts : VerdictSettings
+
     """
 
     name: str
@@ -426,7 +463,9 @@ class StudyDescription:
     def lattice_key(self, point: StudyPoint) -> tuple:
         """The lattice-defining overrides of a point (points with equal keys share a lattice)."""
         over = self.overrides(point)
-        return tuple((k, over.get(k)) for k in ("lattice", "geometry", "orientation", "length", "circumference"))
+        return tuple(
+            (k, over.get(k)) for k in ("lattice", "geometry", "orientation", "length", "circumference")
+        )
 
     def plan(self) -> tuple[TaskPlan, ...]:
         """All tasks of the study, with the tasks each one starts from.
@@ -479,11 +518,18 @@ class StudyDescription:
     def identity(self) -> dict:
         """What makes two descriptions the same study (the executor settings and thresholds do not)."""
         return {
-            "name": self.name, "model_text": self.model_text, "engine": self.engine, "seed": self.seed,
-            "warm_start": self.warm_start, "fixed": dict(self.fixed),
+            "name": self.name,
+            "model_text": self.model_text,
+            "engine": self.engine,
+            "seed": self.seed,
+            "warm_start": self.warm_start,
+            "fixed": dict(self.fixed),
             "points": [{"values": dict(p.values), "grid_index": p.grid_index} for p in self.points],
-            "ladder": list(self.ladder), "sweep_settings": dict(self.sweep_settings), "variance": self.variance,
-            "regions": dict(self.regions), "probes": [p.text for p in self.probes],
+            "ladder": list(self.ladder),
+            "sweep_settings": dict(self.sweep_settings),
+            "variance": self.variance,
+            "regions": dict(self.regions),
+            "probes": [p.text for p in self.probes],
         }
 
     def fingerprint(self) -> str:
@@ -494,15 +540,31 @@ class StudyDescription:
     def to_dict(self) -> dict:
         """Plain values (JSON-ready); :meth:`from_dict` inverts it."""
         return {
-            "name": self.name, "text": self.text, "path": self.path, "model": self.model,
-            "model_text": self.model_text, "model_path": self.model_path, "engine": self.engine,
-            "seed": self.seed, "warm_start": self.warm_start, "fixed": dict(self.fixed),
+            "name": self.name,
+            "text": self.text,
+            "path": self.path,
+            "model": self.model,
+            "model_text": self.model_text,
+            "model_path": self.model_path,
+            "engine": self.engine,
+            "seed": self.seed,
+            "warm_start": self.warm_start,
+            "fixed": dict(self.fixed),
             "axes": [{"name": a.name, "values": list(a.values)} for a in self.axes],
-            "points": [{"index": p.index, "values": dict(p.values),
-                        "grid_index": None if p.grid_index is None else list(p.grid_index)} for p in self.points],
-            "ladder": list(self.ladder), "sweep_settings": dict(self.sweep_settings),
-            "variance": self.variance, "regions": dict(self.regions),
-            "probes": [p.text for p in self.probes], "executor": asdict(self.executor),
+            "points": [
+                {
+                    "index": p.index,
+                    "values": dict(p.values),
+                    "grid_index": None if p.grid_index is None else list(p.grid_index),
+                }
+                for p in self.points
+            ],
+            "ladder": list(self.ladder),
+            "sweep_settings": dict(self.sweep_settings),
+            "variance": self.variance,
+            "regions": dict(self.regions),
+            "probes": [p.text for p in self.probes],
+            "executor": asdict(self.executor),
             "verdicts": asdict(self.verdicts),
         }
 
@@ -512,16 +574,32 @@ class StudyDescription:
         regions = dict(data["regions"])
         probes = tuple(parse_probe(t, regions, data["engine"], "stored study") for t in data["probes"])
         return cls(
-            name=data["name"], text=data["text"], path=data["path"], model=data["model"],
-            model_text=data["model_text"], model_path=data["model_path"], engine=data["engine"],
-            seed=int(data["seed"]), warm_start=bool(data["warm_start"]), fixed=dict(data["fixed"]),
+            name=data["name"],
+            text=data["text"],
+            path=data["path"],
+            model=data["model"],
+            model_text=data["model_text"],
+            model_path=data["model_path"],
+            engine=data["engine"],
+            seed=int(data["seed"]),
+            warm_start=bool(data["warm_start"]),
+            fixed=dict(data["fixed"]),
             axes=tuple(GridAxis(a["name"], tuple(a["values"])) for a in data["axes"]),
-            points=tuple(StudyPoint(int(p["index"]), dict(p["values"]),
-                                    None if p["grid_index"] is None else tuple(p["grid_index"]))
-                         for p in data["points"]),
-            swept=_swept_names(data["axes"], data["points"]), ladder=tuple(int(c) for c in data["ladder"]),
-            sweep_settings=dict(data["sweep_settings"]), variance=bool(data["variance"]), regions=regions,
-            probes=probes, executor=ExecutorSettings(**data["executor"]),
+            points=tuple(
+                StudyPoint(
+                    int(p["index"]),
+                    dict(p["values"]),
+                    None if p["grid_index"] is None else tuple(p["grid_index"]),
+                )
+                for p in data["points"]
+            ),
+            swept=_swept_names(data["axes"], data["points"]),
+            ladder=tuple(int(c) for c in data["ladder"]),
+            sweep_settings=dict(data["sweep_settings"]),
+            variance=bool(data["variance"]),
+            regions=regions,
+            probes=probes,
+            executor=ExecutorSettings(**data["executor"]),
             verdicts=VerdictSettings(**data["verdicts"]),
         )
 
@@ -539,6 +617,7 @@ class StudyDescription:
         NetprobeError
             The model's own error (a bad value, sector or size), an unknown operator of a
             ``mean:OP`` probe, or a region that does not fit the lattice; prefixed with the study file.
+
         """
         from netprobe.regions import parse_region
 
@@ -551,7 +630,7 @@ class StudyDescription:
             seen.add(key)
             try:
                 model = self.build_model(point)
-                for name, text in self.regions.items():
+                for text in self.regions.values():
                     parse_region(text, model.lattice)
                 for probe in self.probes:
                     if probe.operator is not None:
@@ -560,9 +639,13 @@ class StudyDescription:
                 raise type(err)(f"{where}: at point {point.label}: {' '.join(str(err).split())}") from None
 
     def __repr__(self) -> str:
-        axes = ", ".join(f"{a.name}[{len(a.values)}]" for a in self.axes) or f"{len(self.points)} listed points"
-        return (f"StudyDescription('{self.name}', model={self.model!r}, engine={self.engine}, {axes}, "
-                f"ladder={list(self.ladder)}, probes={[p.text for p in self.probes]})")
+        axes = (
+            ", ".join(f"{a.name}[{len(a.values)}]" for a in self.axes) or f"{len(self.points)} listed points"
+        )
+        return (
+            f"StudyDescription('{self.name}', model={self.model!r}, engine={self.engine}, {axes}, "
+            f"ladder={list(self.ladder)}, probes={[p.text for p in self.probes]})"
+        )
 
 
 def _check_operator(model, probe: ProbeRequest, engine: str) -> None:
@@ -572,7 +655,8 @@ def _check_operator(model, probe: ProbeRequest, engine: str) -> None:
         if probe.operator != "n" or model.space.name != "fermion":
             raise SpecError(
                 f"probe '{probe.text}': the gaussian engine evaluates only mean:n on fermion sites; use "
-                "the exact or dmrg engine")
+                "the exact or dmrg engine"
+            )
         return
     try:
         model.space.operator(probe.operator)
@@ -589,7 +673,7 @@ def _swept_names(axes, points) -> tuple[str, ...]:
         return tuple(a["name"] if isinstance(a, Mapping) else a.name for a in axes)
     names: list[str] = []
     for p in points:
-        for key in (p["values"] if isinstance(p, Mapping) else p.values):
+        for key in p["values"] if isinstance(p, Mapping) else p.values:
             if key not in names:
                 names.append(key)
     return tuple(names)
@@ -600,7 +684,9 @@ def _check_keys(table, allowed, where, what):
         raise SpecError(f"{where}: {what} must be a table")
     for key in table:
         if key not in allowed:
-            raise SpecError(f"{where}: unknown key '{key}' in {what}; valid keys: {', '.join(sorted(allowed))}")
+            raise SpecError(
+                f"{where}: unknown key '{key}' in {what}; valid keys: {', '.join(sorted(allowed))}"
+            )
 
 
 def _is_number(value) -> bool:
@@ -622,8 +708,10 @@ def _axis(name: str, entry, where: str) -> GridAxis:
     else:
         missing = [k for k in ("start", "stop", "num") if k not in entry]
         if missing:
-            raise SpecError(f"{where}: {what} needs start, stop and num (missing: {', '.join(missing)}), or "
-                            "values = [...]")
+            raise SpecError(
+                f"{where}: {what} needs start, stop and num (missing: {', '.join(missing)}), or "
+                "values = [...]"
+            )
         start, stop, num = entry["start"], entry["stop"], entry["num"]
         if not (_is_number(start) and _is_number(stop)):
             raise SpecError(f"{where}: {what}: start and stop must be numbers")
@@ -652,7 +740,7 @@ def _fixed_value(key, value, where) -> str:
 
 
 def parse_study(text: str, *, path: str = "") -> StudyDescription:
-    """Parse and check the layout of a study file (cheap: no model is built; see :meth:`StudyDescription.check`).
+    """Parse and check the layout of a study file (cheap: no model is built, see ``StudyDescription.check``).
 
     Parameters
     ----------
@@ -670,6 +758,7 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
     SpecError
         For malformed TOML, an unknown key, an unknown engine or probe, a grid parameter that is not a
         parameter of the model, an empty grid, or a bad ladder or executor setting.
+
     """
     where = _where(path)
     try:
@@ -718,11 +807,15 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
         if not isinstance(grid, dict):
             raise SpecError(f"{where}: [grid] must be a table of parameter = {{ start, stop, num }} entries")
         if not grid:
-            raise SpecError(f"{where}: the grid is empty; sweep one or two parameters, e.g. h = {{ start = 0.5, "
-                            "stop = 1.5, num = 11 }")
+            raise SpecError(
+                f"{where}: the grid is empty; sweep one or two parameters, e.g. h = {{ start = 0.5, "
+                "stop = 1.5, num = 11 }"
+            )
         if len(grid) > _MAX_AXES:
-            raise SpecError(f"{where}: [grid] sweeps {len(grid)} parameters ({', '.join(grid)}); a grid sweeps one "
-                            "or two (use [[point]] entries for other sets)")
+            raise SpecError(
+                f"{where}: [grid] sweeps {len(grid)} parameters ({', '.join(grid)}); a grid sweeps one "
+                "or two (use [[point]] entries for other sets)"
+            )
         for key in grid:
             _check_parameter(key, parameters, spec.name, where, "[grid]")
             if key in fixed:
@@ -742,7 +835,9 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
             for key, value in entry.items():
                 _check_parameter(key, parameters, spec.name, where, f"[[point]] #{k + 1}")
                 if key in fixed:
-                    raise SpecError(f"{where}: '{key}' is both set in [[point]] #{k + 1} and fixed in [set]; keep one")
+                    raise SpecError(
+                        f"{where}: '{key}' is both set in [[point]] #{k + 1} and fixed in [set]; keep one"
+                    )
                 if not _is_number(value):
                     raise SpecError(f"{where}: [[point]] #{k + 1}: {key} must be a number")
                 values[key] = value
@@ -759,7 +854,9 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
     if engine == "dmrg":
         chis = ladder_raw.get("bond_dimensions")
         if not isinstance(chis, list) or not chis:
-            raise SpecError(f"{where}: engine dmrg needs [ladder] bond_dimensions = [...], e.g. [32, 64, 128]")
+            raise SpecError(
+                f"{where}: engine dmrg needs [ladder] bond_dimensions = [...], e.g. [32, 64, 128]"
+            )
         if not all(isinstance(c, int) and not isinstance(c, bool) and c >= 1 for c in chis):
             raise SpecError(f"{where}: [ladder] bond_dimensions must be positive integers, got {chis}")
         if any(b <= a for a, b in zip(chis, chis[1:])):
@@ -777,22 +874,24 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
     measure = raw.get("measure", {})
     _check_keys(measure, _MEASURE_KEYS, where, "[measure]")
     if "region" in measure and "regions" in measure:
-        raise SpecError(f"{where}: [measure] takes region = \"...\" or regions = {{ ... }}, not both")
+        raise SpecError(f'{where}: [measure] takes region = "..." or regions = {{ ... }}, not both')
     regions: dict[str, str] = {}
     if "region" in measure:
         if not isinstance(measure["region"], str):
-            raise SpecError(f"{where}: [measure] region must be a layout string such as \"sectors:radius=3\"")
+            raise SpecError(f'{where}: [measure] region must be a layout string such as "sectors:radius=3"')
         regions[_DEFAULT_REGION] = measure["region"]
     elif "regions" in measure:
-        if not isinstance(measure["regions"], dict) or not all(isinstance(v, str) for v in measure["regions"].values()):
-            raise SpecError(f"{where}: [measure] regions must be a table of name = \"layout\" entries")
+        if not isinstance(measure["regions"], dict) or not all(
+            isinstance(v, str) for v in measure["regions"].values()
+        ):
+            raise SpecError(f'{where}: [measure] regions must be a table of name = "layout" entries')
         for key in measure["regions"]:
             if not key.isidentifier():
                 raise SpecError(f"{where}: region name '{key}' must be a plain word (letters, digits, _)")
         regions = dict(measure["regions"])
     probe_texts = measure.get("probes", ["energy"])
     if not isinstance(probe_texts, list) or not probe_texts:
-        raise SpecError(f"{where}: [measure] probes must be a non-empty list, e.g. [\"energy\", \"J\"]")
+        raise SpecError(f'{where}: [measure] probes must be a non-empty list, e.g. ["energy", "J"]')
     probes = tuple(parse_probe(t, regions, engine, where) for t in probe_texts)
     if len({p.text for p in probes}) != len(probes):
         raise SpecError(f"{where}: [measure] probes lists a probe twice")
@@ -807,10 +906,25 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
     except SpecError as err:
         raise SpecError(f"{where}: {err}") from None
     return StudyDescription(
-        name=name, text=str(study.get("description", "")), path=path, model=study["model"],
-        model_text=model_text, model_path=str(model_path), engine=engine, seed=seed, warm_start=warm,
-        fixed=fixed, axes=axes, points=tuple(points), swept=swept, ladder=ladder,
-        sweep_settings=sweep_settings, variance=variance, regions=regions, probes=probes, executor=executor,
+        name=name,
+        text=str(study.get("description", "")),
+        path=path,
+        model=study["model"],
+        model_text=model_text,
+        model_path=str(model_path),
+        engine=engine,
+        seed=seed,
+        warm_start=warm,
+        fixed=fixed,
+        axes=axes,
+        points=tuple(points),
+        swept=swept,
+        ladder=ladder,
+        sweep_settings=sweep_settings,
+        variance=variance,
+        regions=regions,
+        probes=probes,
+        executor=executor,
         verdicts=verdicts,
     )
 
@@ -819,7 +933,8 @@ def _check_parameter(key, parameters, model_name, where, what):
     if key not in parameters:
         raise SpecError(
             f"{where}: {what} parameter '{key}' is not a parameter of model '{model_name}'; valid: "
-            f"{', '.join(parameters)}")
+            f"{', '.join(parameters)}"
+        )
 
 
 def _check_sweep_settings(settings, ladder, where):

@@ -32,17 +32,33 @@ from typing import Callable, Mapping
 from netprobe.study.description import StudyDescription, StudyError
 from netprobe.study.ledger import STATES_FOLDER, Claim, Ledger, process_alive
 
-__all__ = ["EXECUTORS", "LocalExecutor", "DaskExecutor", "StudyRun", "run_study", "default_workers",
-           "tidy_states"]
+__all__ = [
+    "EXECUTORS",
+    "LocalExecutor",
+    "DaskExecutor",
+    "StudyRun",
+    "run_study",
+    "default_workers",
+    "tidy_states",
+]
 
 #: Executors by name.
-EXECUTORS: Mapping[str, str] = MappingProxyType({
-    "local": "worker processes on this machine (spawned, one task at a time each)",
-    "dask": "a dask.distributed scheduler (give its address)",
-})
+EXECUTORS: Mapping[str, str] = MappingProxyType(
+    {
+        "local": "worker processes on this machine (spawned, one task at a time each)",
+        "dask": "a dask.distributed scheduler (give its address)",
+    }
+)
 
-_THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
-                     "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS", "NUMBA_NUM_THREADS")
+_THREAD_VARIABLES = (
+    "OMP_NUM_THREADS",
+    "OPENBLAS_NUM_THREADS",
+    "MKL_NUM_THREADS",
+    "BLIS_NUM_THREADS",
+    "VECLIB_MAXIMUM_THREADS",
+    "NUMEXPR_NUM_THREADS",
+    "NUMBA_NUM_THREADS",
+)
 _POLL = 0.2  # seconds between looks at the ledger while tasks run
 
 
@@ -138,12 +154,14 @@ class LocalExecutor:
     runner : callable, optional
         ``runner(ledger_file, task, lease, blas_threads=...) -> status``, a module-level function;
         default :func:`netprobe.study.tasks.run_task`. Tests pass one that wraps it.
+
     """
 
     name = "local"
 
-    def __init__(self, *, workers: int | None = None, blas_threads: int | None = None,
-                 runner: Callable | None = None):
+    def __init__(
+        self, *, workers: int | None = None, blas_threads: int | None = None, runner: Callable | None = None
+    ):
         if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 1):
             raise StudyError(f"--workers {workers!r}: give a positive number of worker processes")
         self.workers = workers or default_workers()
@@ -164,9 +182,12 @@ class LocalExecutor:
 
     def _spawn(self) -> _Slot:
         parent, child = self._context.Pipe()
-        process = self._context.Process(target=_local_worker, name="netprobe-study-worker",
-                                        args=(child, self._ledger_file, self.blas_threads, self.runner),
-                                        daemon=True)
+        process = self._context.Process(
+            target=_local_worker,
+            name="netprobe-study-worker",
+            args=(child, self._ledger_file, self.blas_threads, self.runner),
+            daemon=True,
+        )
         with _thread_environment(self.blas_threads):
             process.start()
         child.close()
@@ -228,8 +249,13 @@ class LocalExecutor:
                 slot.process.join(timeout=5)
                 code = slot.process.exitcode
                 how = f"killed by signal {-code}" if code is not None and code < 0 else f"exit status {code}"
-                out.append(_Finished(slot.claim, None,
-                                     f"worker process {slot.process.pid} died ({how}) while running this task"))
+                out.append(
+                    _Finished(
+                        slot.claim,
+                        None,
+                        f"worker process {slot.process.pid} died ({how}) while running this task",
+                    )
+                )
                 slot.claim = None
                 slot.conn.close()
                 self._slots.remove(slot)
@@ -276,12 +302,19 @@ class DaskExecutor:
     ------
     StudyError
         From :meth:`open`, if the scheduler cannot be reached.
+
     """
 
     name = "dask"
 
-    def __init__(self, address: str, *, connect_seconds: float = 10.0, blas_threads: int | None = 1,
-                 runner: Callable | None = None):
+    def __init__(
+        self,
+        address: str,
+        *,
+        connect_seconds: float = 10.0,
+        blas_threads: int | None = 1,
+        runner: Callable | None = None,
+    ):
         self.address = address
         self.connect_seconds = connect_seconds
         self.blas_threads = blas_threads
@@ -305,8 +338,10 @@ class DaskExecutor:
         except Exception as err:  # the client raises OSError, TimeoutError or ValueError by cause
             detail = " ".join(str(err).split()) or type(err).__name__
             raise StudyError(
-                f"cannot reach the Dask scheduler at {self.address} ({detail}); check the address and that the "
-                "scheduler runs, or leave out --scheduler to use local processes") from None
+                f"cannot reach the Dask scheduler at {self.address} ({detail}); check the address and "
+                "that the "
+                "scheduler runs, or leave out --scheduler to use local processes"
+            ) from None
         self._slots = max(1, sum(self.client.nthreads().values()))
 
     def open(self, ledger_file) -> None:
@@ -319,8 +354,16 @@ class DaskExecutor:
         return os.getpid() if len(self._futures) < self._slots else None
 
     def submit(self, claim: Claim) -> None:
-        future = self.client.submit(_dask_task, self._ledger_file, claim.task, claim.lease, self.blas_threads,
-                                    self.runner, pure=False, key=f"netprobe-study-{claim.lease}")
+        future = self.client.submit(
+            _dask_task,
+            self._ledger_file,
+            claim.task,
+            claim.lease,
+            self.blas_threads,
+            self.runner,
+            pure=False,
+            key=f"netprobe-study-{claim.lease}",
+        )
         self._futures[future] = claim
 
     def leases(self) -> list[str]:
@@ -375,6 +418,7 @@ class StudyRun:
     failures : tuple of str
         One line per failed try in this run.
     executor : str
+
     """
 
     folder: Path
@@ -390,8 +434,10 @@ class StudyRun:
 
     def __repr__(self) -> str:
         c = self.counts
-        return (f"StudyRun({c['done']}/{c['total']} done, {c['failed']} failed, {self.seconds:.1f} s, "
-                f"{self.folder})")
+        return (
+            f"StudyRun({c['done']}/{c['total']} done, {c['failed']} failed, {self.seconds:.1f} s, "
+            f"{self.folder})"
+        )
 
 
 class _Progress:
@@ -410,8 +456,10 @@ class _Progress:
         key = (counts["done"], counts["failed"])
         if key != self._last or force:
             self._last = key
-            self.line(f"{counts['done']}/{counts['total']} done, {counts['failed']} failed, "
-                      f"{counts['running']} running, {counts['pending']} pending")
+            self.line(
+                f"{counts['done']}/{counts['total']} done, {counts['failed']} failed, "
+                f"{counts['running']} running, {counts['pending']} pending"
+            )
 
 
 def tidy_states(folder, ledger: Ledger) -> list[Path]:
@@ -424,6 +472,7 @@ def tidy_states(folder, ledger: Ledger) -> list[Path]:
     -------
     list of Path
         The files removed.
+
     """
     states = Path(folder) / STATES_FOLDER
     if not states.is_dir():
@@ -468,6 +517,7 @@ def run_study(description: StudyDescription, out, *, executor=None, progress="st
         scheduler): then nothing in the ledger has changed.
     NetprobeError
         If the model cannot be built at some lattice of the study, or a region does not fit.
+
     """
     start = time.monotonic()
     report = _Progress(description.name, progress)
@@ -478,15 +528,21 @@ def run_study(description: StudyDescription, out, *, executor=None, progress="st
     if isinstance(executor, DaskExecutor) and executor.client is None:
         executor.connect()  # before the ledger is touched
     failures: list[str] = []
-    ledger = Ledger.prepare(out, description)
+    try:
+        ledger = Ledger.prepare(out, description)
+    except BaseException:
+        executor.close()
+        raise
     try:
         executor.open(ledger.path)
         ledger.recover(settings.lease_seconds)
         reopened = ledger.begin_run(settings.attempts)
         tidy_states(ledger.folder, ledger)
         counts = ledger.counts()
-        report.line(f"{counts['total']} tasks ({counts['done']} done before, {reopened} failed before and retried); "
-                    f"{executor.describe()}; ledger {ledger.path}")
+        report.line(
+            f"{counts['total']} tasks ({counts['done']} done before, {reopened} failed before and retried); "
+            f"{executor.describe()}; ledger {ledger.path}"
+        )
         report.counts(counts, force=True)
         waiting_noted = False
         while True:
@@ -521,8 +577,10 @@ def run_study(description: StudyDescription, out, *, executor=None, progress="st
                     continue
                 row = ledger.task(claim.task)
                 chi = f", D={row.bond_dimension}" if row.bond_dimension else ""
-                text = (f"task {claim.task} ({row.label}{chi}) failed on try {claim.attempt}"
-                        f"{'; will retry' if status == 'pending' else ''}: {error}")
+                text = (
+                    f"task {claim.task} ({row.label}{chi}) failed on try {claim.attempt}"
+                    f"{'; will retry' if status == 'pending' else ''}: {error}"
+                )
                 failures.append(text)
                 report.line(text)
             report.counts(ledger.counts())
@@ -537,5 +595,7 @@ def run_study(description: StudyDescription, out, *, executor=None, progress="st
         executor.close()
         ledger.close()
     seconds = time.monotonic() - start
-    report.line(f"finished: {counts['done']}/{counts['total']} done, {counts['failed']} failed, {seconds:.1f} s")
+    report.line(
+        f"finished: {counts['done']}/{counts['total']} done, {counts['failed']} failed, {seconds:.1f} s"
+    )
     return StudyRun(Path(out), counts, seconds, tuple(failures), executor.name)

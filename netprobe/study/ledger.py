@@ -50,8 +50,20 @@ from typing import Any, Iterator, Mapping
 from netprobe import __version__
 from netprobe.study.description import StudyDescription, StudyError
 
-__all__ = ["LEDGER_NAME", "STATES_FOLDER", "FORMAT_NAME", "FORMAT_VERSION", "STATUSES", "Claim", "TaskRow",
-           "Ledger", "host_name", "process_alive", "ledger_path", "encode_json"]
+__all__ = [
+    "LEDGER_NAME",
+    "STATES_FOLDER",
+    "FORMAT_NAME",
+    "FORMAT_VERSION",
+    "STATUSES",
+    "Claim",
+    "TaskRow",
+    "Ledger",
+    "host_name",
+    "process_alive",
+    "ledger_path",
+    "encode_json",
+]
 
 LEDGER_NAME = "study.sqlite"
 STATES_FOLDER = "states"
@@ -212,23 +224,29 @@ class Ledger:
     ------
     StudyError
         If the file is missing, not SQLite, or not a study ledger of a version we read.
+
     """
 
     def __init__(self, path):
         self.path = Path(path)
         if not self.path.is_file():
-            raise StudyError(f"no study ledger at {self.path}; run 'netprobe study SPEC --out {self.path.parent}' first")
+            raise StudyError(
+                f"no study ledger at {self.path}; run 'netprobe study SPEC --out {self.path.parent}' first"
+            )
         self._conn = self._connect(self.path)
         try:
             meta = dict(self._conn.execute("SELECT key, value FROM meta").fetchall())
         except sqlite3.DatabaseError as err:
             self._conn.close()
-            raise StudyError(f"{self.path} is not a study ledger ({err}); give the folder of a study") from None
+            raise StudyError(
+                f"{self.path} is not a study ledger ({err}); give the folder of a study"
+            ) from None
         if meta.get("format") != FORMAT_NAME or meta.get("format_version") != str(FORMAT_VERSION):
             self._conn.close()
             raise StudyError(
                 f"{self.path} is not a netprobe study ledger of format version {FORMAT_VERSION} (found "
-                f"{meta.get('format')!r} version {meta.get('format_version')!r})")
+                f"{meta.get('format')!r} version {meta.get('format_version')!r})"
+            )
         self._meta = meta
 
     # ---- opening and creating ----------------------------------------------------------------
@@ -253,6 +271,7 @@ class Ledger:
         ------
         StudyError
             If the folder holds the ledger of a different study.
+
         """
         folder = Path(folder)
         folder.mkdir(parents=True, exist_ok=True)
@@ -268,34 +287,51 @@ class Ledger:
                 fingerprint = description.fingerprint()
                 if not meta:
                     now = datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds")
-                    rows = {"format": FORMAT_NAME, "format_version": str(FORMAT_VERSION),
-                            "package_version": __version__, "created": now, "fingerprint": fingerprint,
-                            "description": json.dumps(description.to_dict())}
+                    rows = {
+                        "format": FORMAT_NAME,
+                        "format_version": str(FORMAT_VERSION),
+                        "package_version": __version__,
+                        "created": now,
+                        "fingerprint": fingerprint,
+                        "description": json.dumps(description.to_dict()),
+                    }
                     conn.executemany("INSERT INTO meta (key, value) VALUES (?, ?)", rows.items())
                 elif meta.get("fingerprint") != fingerprint:
                     stored = StudyDescription.from_dict(json.loads(meta["description"]))
-                    diffs = sorted(k for k, v in description.identity().items() if stored.identity().get(k) != v)
+                    diffs = sorted(
+                        k for k, v in description.identity().items() if stored.identity().get(k) != v
+                    )
                     raise StudyError(
                         f"{folder} holds the ledger of a different study ('{stored.name}', differing in "
-                        f"{', '.join(diffs) or 'its layout'}); use another --out folder")
+                        f"{', '.join(diffs) or 'its layout'}); use another --out folder"
+                    )
                 else:
                     # executor settings and thresholds may change between runs; keep the latest
-                    conn.execute("UPDATE meta SET value = ? WHERE key = 'description'",
-                                 (json.dumps(description.to_dict()),))
+                    conn.execute(
+                        "UPDATE meta SET value = ? WHERE key = 'description'",
+                        (json.dumps(description.to_dict()),),
+                    )
                 for point in description.points:
-                    conn.execute("INSERT OR IGNORE INTO points (id, label, parameters) VALUES (?, ?, ?)",
-                                 (point.index, point.label, json.dumps(dict(point.values))))
+                    conn.execute(
+                        "INSERT OR IGNORE INTO points (id, label, parameters) VALUES (?, ?, ?)",
+                        (point.index, point.label, json.dumps(dict(point.values))),
+                    )
                 ids = {}
                 for plan in description.plan():
-                    conn.execute("INSERT OR IGNORE INTO tasks (point, rung, bond_dimension) VALUES (?, ?, ?)",
-                                 (plan.point, plan.rung, plan.bond_dimension))
+                    conn.execute(
+                        "INSERT OR IGNORE INTO tasks (point, rung, bond_dimension) VALUES (?, ?, ?)",
+                        (plan.point, plan.rung, plan.bond_dimension),
+                    )
                     ids[(plan.point, plan.rung)] = conn.execute(
                         "SELECT id FROM tasks WHERE point = ? AND bond_dimension = ?",
-                        (plan.point, plan.bond_dimension)).fetchone()[0]
+                        (plan.point, plan.bond_dimension),
+                    ).fetchone()[0]
                 for plan in description.plan():
                     for need in plan.needs:
-                        conn.execute("INSERT OR IGNORE INTO needs (task, needed) VALUES (?, ?)",
-                                     (ids[(plan.point, plan.rung)], ids[need]))
+                        conn.execute(
+                            "INSERT OR IGNORE INTO needs (task, needed) VALUES (?, ?)",
+                            (ids[(plan.point, plan.rung)], ids[need]),
+                        )
         finally:
             conn.close()
         return cls(path)
@@ -338,12 +374,15 @@ class Ledger:
         -------
         int
             Tasks that were failed and are pending again.
+
         """
         with _transaction(self._conn):
             reopened = self._conn.execute(
-                "UPDATE tasks SET status = 'pending', lease = NULL WHERE status = 'failed'").rowcount
-            self._conn.execute("UPDATE tasks SET attempt_limit = attempts + ? WHERE status = 'pending'",
-                               (int(attempts),))
+                "UPDATE tasks SET status = 'pending', lease = NULL WHERE status = 'failed'"
+            ).rowcount
+            self._conn.execute(
+                "UPDATE tasks SET attempt_limit = attempts + ? WHERE status = 'pending'", (int(attempts),)
+            )
         return reopened
 
     def recover(self, lease_seconds: float, *, now: float | None = None, exclude=()) -> list[int]:
@@ -364,12 +403,14 @@ class Ledger:
         -------
         list of int
             The tasks taken back.
+
         """
         now = time.time() if now is None else now
         here = host_name()
         exclude = set(exclude)
         rows = self._conn.execute(
-            "SELECT id, lease, owner_host, owner_pid, heartbeat FROM tasks WHERE status = 'running'").fetchall()
+            "SELECT id, lease, owner_host, owner_pid, heartbeat FROM tasks WHERE status = 'running'"
+        ).fetchall()
         dead = []
         for task, lease, host, pid, beat in rows:
             if lease in exclude:
@@ -377,16 +418,22 @@ class Ledger:
             silent = beat is None or now - beat > lease_seconds
             gone = host == here and not process_alive(pid)
             if silent or gone:
-                why = (f"interrupted: process {pid} on {host} is gone" if gone else
-                       f"interrupted: no heartbeat from process {pid} on {host} for {now - (beat or 0):.0f} s")
+                why = (
+                    f"interrupted: process {pid} on {host} is gone"
+                    if gone
+                    else f"interrupted: no heartbeat from process {pid} on {host} "
+                    f"for {now - (beat or 0):.0f} s"
+                )
                 dead.append((task, lease, why))
         taken = []
         for task, lease, why in dead:
             with _transaction(self._conn):
                 changed = self._conn.execute(
-                    "UPDATE tasks SET status = CASE WHEN attempts < attempt_limit THEN 'pending' ELSE 'failed' END, "
+                    "UPDATE tasks SET status = "
+                    "CASE WHEN attempts < attempt_limit THEN 'pending' ELSE 'failed' END, "
                     "error = ?, lease = NULL WHERE id = ? AND lease = ? AND status = 'running'",
-                    (why, task, lease)).rowcount
+                    (why, task, lease),
+                ).rowcount
                 if changed:
                     self._close_attempt(lease, "interrupted", why, now)
                     taken.append(task)
@@ -404,20 +451,26 @@ class Ledger:
         with _transaction(self._conn):
             row = self._conn.execute(
                 "SELECT id, point, rung, bond_dimension, attempts FROM tasks t WHERE status = 'pending' "
-                "AND attempts < attempt_limit AND NOT EXISTS (SELECT 1 FROM needs n JOIN tasks u ON u.id = n.needed "
-                "WHERE n.task = t.id AND u.status NOT IN ('done', 'failed')) ORDER BY rung, point LIMIT 1").fetchone()
+                "AND attempts < attempt_limit AND NOT EXISTS "
+                "(SELECT 1 FROM needs n JOIN tasks u ON u.id = n.needed "
+                "WHERE n.task = t.id AND u.status NOT IN ('done', 'failed')) ORDER BY rung, point LIMIT 1"
+            ).fetchone()
             if row is None:
                 return None
             task, point, rung, chi, attempts = row
             changed = self._conn.execute(
                 "UPDATE tasks SET status = 'running', attempts = attempts + 1, lease = ?, owner_host = ?, "
                 "owner_pid = ?, claimed_at = ?, heartbeat = ?, started_at = NULL "
-                "WHERE id = ? AND status = 'pending'", (lease, host, int(owner_pid), now, now, task)).rowcount
+                "WHERE id = ? AND status = 'pending'",
+                (lease, host, int(owner_pid), now, now, task),
+            ).rowcount
             if changed != 1:
                 return None
             self._conn.execute(
-                "INSERT INTO attempts (task, attempt, lease, owner_host, owner_pid, claimed_at) VALUES (?, ?, ?, ?, ?, ?)",
-                (task, attempts + 1, lease, host, int(owner_pid), now))
+                "INSERT INTO attempts (task, attempt, lease, owner_host, owner_pid, claimed_at) "
+                "VALUES (?, ?, ?, ?, ?, ?)",
+                (task, attempts + 1, lease, host, int(owner_pid), now),
+            )
         return Claim(task, lease, point, rung, chi, attempts + 1)
 
     def start(self, task: int, lease: str, *, pid: int | None = None, host: str | None = None) -> bool:
@@ -428,10 +481,13 @@ class Ledger:
         with _transaction(self._conn):
             changed = self._conn.execute(
                 "UPDATE tasks SET started_at = ?, heartbeat = ?, owner_pid = ?, owner_host = ? "
-                "WHERE id = ? AND lease = ? AND status = 'running'", (now, now, pid, host, task, lease)).rowcount
+                "WHERE id = ? AND lease = ? AND status = 'running'",
+                (now, now, pid, host, task, lease),
+            ).rowcount
             if changed:
-                self._conn.execute("UPDATE attempts SET owner_pid = ?, owner_host = ? WHERE lease = ?",
-                                   (pid, host, lease))
+                self._conn.execute(
+                    "UPDATE attempts SET owner_pid = ?, owner_host = ? WHERE lease = ?", (pid, host, lease)
+                )
         return bool(changed)
 
     def beat(self, leases) -> None:
@@ -441,11 +497,20 @@ class Ledger:
             return
         now = time.time()
         with _transaction(self._conn):
-            self._conn.executemany("UPDATE tasks SET heartbeat = ? WHERE lease = ? AND status = 'running'",
-                                   [(now, lease) for lease in leases])
+            self._conn.executemany(
+                "UPDATE tasks SET heartbeat = ? WHERE lease = ? AND status = 'running'",
+                [(now, lease) for lease in leases],
+            )
 
-    def finish(self, task: int, lease: str, result: Mapping, *, state_file: str | None = None,
-               seconds: float | None = None) -> bool:
+    def finish(
+        self,
+        task: int,
+        lease: str,
+        result: Mapping,
+        *,
+        state_file: str | None = None,
+        seconds: float | None = None,
+    ) -> bool:
         """Store a task's result and mark it done; False (nothing written) if the lease was lost."""
         now = time.time()
         text = encode_json(result)
@@ -453,9 +518,14 @@ class Ledger:
             changed = self._conn.execute(
                 "UPDATE tasks SET status = 'done', result = ?, state_file = ?, finished_at = ?, seconds = ?, "
                 "error = NULL WHERE id = ? AND lease = ? AND status = 'running'",
-                (text, state_file, now, seconds, task, lease)).rowcount
-            self._close_attempt(lease, "done" if changed else "rejected",
-                                None if changed else "the lease was lost before the result arrived", now)
+                (text, state_file, now, seconds, task, lease),
+            ).rowcount
+            self._close_attempt(
+                lease,
+                "done" if changed else "rejected",
+                None if changed else "the lease was lost before the result arrived",
+                now,
+            )
         return bool(changed)
 
     def fail(self, task: int, lease: str, error: str) -> str | None:
@@ -465,34 +535,44 @@ class Ledger:
         -------
         str or None
             The new status, or None if the lease was lost (nothing written).
+
         """
         now = time.time()
         error = " ".join(str(error).split()) or "failed without a message"
         with _transaction(self._conn):
             changed = self._conn.execute(
-                "UPDATE tasks SET status = CASE WHEN attempts < attempt_limit THEN 'pending' ELSE 'failed' END, "
+                "UPDATE tasks SET status = "
+                "CASE WHEN attempts < attempt_limit THEN 'pending' ELSE 'failed' END, "
                 "error = ?, lease = NULL, finished_at = ? WHERE id = ? AND lease = ? AND status = 'running'",
-                (error, now, task, lease)).rowcount
+                (error, now, task, lease),
+            ).rowcount
             self._close_attempt(lease, "failed" if changed else "rejected", error, now)
             if not changed:
                 return None
             return self._conn.execute("SELECT status FROM tasks WHERE id = ?", (task,)).fetchone()[0]
 
     def release(self, task: int, lease: str, why: str) -> bool:
-        """Give a running task back unfinished (its holder was stopped): pending again, the try logged as
-        interrupted. False if the lease was already lost."""
+        """Give a running task back unfinished, because its holder was stopped.
+
+        The task becomes pending again and the try is logged as interrupted. Returns False if the
+        lease was already lost.
+        """
         now = time.time()
         with _transaction(self._conn):
             changed = self._conn.execute(
                 "UPDATE tasks SET status = 'pending', error = ?, lease = NULL WHERE id = ? AND lease = ? "
-                "AND status = 'running'", (why, task, lease)).rowcount
+                "AND status = 'running'",
+                (why, task, lease),
+            ).rowcount
             if changed:
                 self._close_attempt(lease, "interrupted", why, now)
         return bool(changed)
 
     def _close_attempt(self, lease, outcome, detail, now):
-        self._conn.execute("UPDATE attempts SET ended_at = ?, outcome = ?, detail = ? WHERE lease = ? AND ended_at IS NULL",
-                           (now, outcome, detail, lease))
+        self._conn.execute(
+            "UPDATE attempts SET ended_at = ?, outcome = ?, detail = ? WHERE lease = ? AND ended_at IS NULL",
+            (now, outcome, detail, lease),
+        )
 
     # ---- reading ---------------------------------------------------------------------------------
 
@@ -509,7 +589,8 @@ class Ledger:
         now, here = time.time(), host_name()
         n = 0
         for host, pid, beat in self._conn.execute(
-                "SELECT owner_host, owner_pid, heartbeat FROM tasks WHERE status = 'running'"):
+            "SELECT owner_host, owner_pid, heartbeat FROM tasks WHERE status = 'running'"
+        ):
             if beat is None or now - beat > lease_seconds or (host == here and not process_alive(pid)):
                 n += 1
         return n
@@ -518,9 +599,11 @@ class Ledger:
         """Every task, ordered by point and rung."""
         rows = self._conn.execute(
             "SELECT t.id, t.point, p.label, p.parameters, t.rung, t.bond_dimension, t.status, t.attempts, "
-            "t.attempt_limit, t.error, t.lease, t.owner_host, t.owner_pid, t.claimed_at, t.heartbeat, t.started_at, "
+            "t.attempt_limit, t.error, t.lease, t.owner_host, t.owner_pid, t.claimed_at, t.heartbeat, "
+            "t.started_at, "
             "t.finished_at, t.seconds, t.result, t.state_file FROM tasks t JOIN points p ON p.id = t.point "
-            "ORDER BY t.point, t.rung").fetchall()
+            "ORDER BY t.point, t.rung"
+        ).fetchall()
         out = []
         for r in rows:
             r = list(r)
@@ -545,7 +628,8 @@ class Ledger:
         """The history of claims: one dict per claim with its outcome."""
         cur = self._conn.execute(
             "SELECT id, task, attempt, lease, owner_host, owner_pid, claimed_at, ended_at, outcome, detail "
-            "FROM attempts ORDER BY id")
+            "FROM attempts ORDER BY id"
+        )
         names = [d[0] for d in cur.description]
         return [dict(zip(names, row)) for row in cur.fetchall()]
 

@@ -22,7 +22,7 @@ import json
 import math
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Any, Mapping, Sequence
+from typing import Mapping, Sequence
 
 import numpy as np
 
@@ -30,12 +30,23 @@ from netprobe.study.description import StudyDescription, StudyError
 from netprobe.study.ledger import Ledger, encode_json, ledger_path
 from netprobe.study.verdicts import PointVerdict, point_verdict
 
-__all__ = ["Boundary", "StudyReport", "steepest_change", "estimate_boundaries", "build_report", "write_report",
-           "summary_lines", "REPORT_FOLDER", "BOUNDARY_METHOD"]
+__all__ = [
+    "Boundary",
+    "StudyReport",
+    "steepest_change",
+    "estimate_boundaries",
+    "build_report",
+    "write_report",
+    "summary_lines",
+    "REPORT_FOLDER",
+    "BOUNDARY_METHOD",
+]
 
 REPORT_FOLDER = "report"
-BOUNDARY_METHOD = ("largest |change of probe / change of parameter| between neighbouring points, refined by a "
-                   "parabola through the three slopes around it; uncertainty: the spacing of that segment")
+BOUNDARY_METHOD = (
+    "largest |change of probe / change of parameter| between neighbouring points, refined by a "
+    "parabola through the three slopes around it; uncertainty: the spacing of that segment"
+)
 
 
 @dataclass(frozen=True)
@@ -56,6 +67,7 @@ class Boundary:
         The other swept parameters, fixed along this line.
     at_edge : bool
         The steepest change lies in the first or last segment of the line.
+
     """
 
     parameter: str
@@ -86,6 +98,7 @@ def steepest_change(x: Sequence[float], y: Sequence[float]):
     -------
     (location, uncertainty, (lo, hi), at_edge) or None
         None for fewer than two points or a constant ``y``.
+
     """
     x = np.asarray(x, float)
     y = np.asarray(y, float)
@@ -99,7 +112,7 @@ def steepest_change(x: Sequence[float], y: Sequence[float]):
         return None
     location = float(mids[k])
     if 0 < k < slopes.size - 1:
-        xs, ys = mids[k - 1:k + 2], slopes[k - 1:k + 2]
+        xs, ys = mids[k - 1 : k + 2], slopes[k - 1 : k + 2]
         a, b, _ = np.polyfit(xs - xs[1], ys, 2)
         if a < 0:
             location = float(np.clip(xs[1] - b / (2 * a), xs[0], xs[2]))
@@ -110,8 +123,9 @@ def _finite(value) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
 
 
-def estimate_boundaries(description: StudyDescription, values: Mapping[int, Mapping[str, float]]
-                        ) -> dict[str, list[Boundary]]:
+def estimate_boundaries(
+    description: StudyDescription, values: Mapping[int, Mapping[str, float]]
+) -> dict[str, list[Boundary]]:
     """Transition estimates for every swept parameter and probe.
 
     Parameters
@@ -125,6 +139,7 @@ def estimate_boundaries(description: StudyDescription, values: Mapping[int, Mapp
     dict of str to list of Boundary
         By swept parameter; one entry per probe and line (a line: the points that share the values
         of the other swept parameters; lines with fewer than three points are skipped).
+
     """
     out: dict[str, list[Boundary]] = {}
     for name in description.swept:
@@ -148,7 +163,9 @@ def estimate_boundaries(description: StudyDescription, values: Mapping[int, Mapp
                 if est is None:
                     continue
                 location, spacing, bracket, edge = est
-                found.append(Boundary(name, probe.text, location, spacing, bracket, dict(zip(others, key)), edge))
+                found.append(
+                    Boundary(name, probe.text, location, spacing, bracket, dict(zip(others, key)), edge)
+                )
         out[name] = found
     return out
 
@@ -167,6 +184,7 @@ class StudyReport:
         done), ``bond_dimension`` (that D), ``tasks`` (status, attempts, error per rung), ``verdict``.
     verdicts : list of PointVerdict
     boundaries : mapping of str to list of Boundary
+
     """
 
     description: StudyDescription
@@ -177,13 +195,23 @@ class StudyReport:
     boundaries: Mapping[str, list[Boundary]]
 
     def to_json(self) -> dict:
-        """Plain values: ``study``, ``engine``, ``model``, ``swept``, ``probes``, ``counts``, ``points``,
-        ``boundaries``, ``boundary_method``, ``folder``."""
+        """Plain values for JSON.
+
+        Keys: ``study``, ``description``, ``engine``, ``model``, ``swept``, ``probes``, ``ladder``,
+        ``counts``, ``points``, ``boundaries``, ``boundary_method``, ``folder``.
+        """
         d = self.description
         payload = {
-            "study": d.name, "description": d.text, "model": d.model, "engine": d.engine,
-            "swept": list(d.swept), "probes": [p.text for p in d.probes], "ladder": list(d.ladder),
-            "folder": str(self.folder), "counts": dict(self.counts), "points": self.points,
+            "study": d.name,
+            "description": d.text,
+            "model": d.model,
+            "engine": d.engine,
+            "swept": list(d.swept),
+            "probes": [p.text for p in d.probes],
+            "ladder": list(d.ladder),
+            "folder": str(self.folder),
+            "counts": dict(self.counts),
+            "points": self.points,
             "boundaries": {k: [b.to_dict() for b in v] for k, v in self.boundaries.items()},
             "boundary_method": BOUNDARY_METHOD,
         }
@@ -192,8 +220,10 @@ class StudyReport:
     def __repr__(self) -> str:
         c = self.counts
         n = sum(len(v) for v in self.boundaries.values())
-        return (f"StudyReport('{self.description.name}', {len(self.points)} points, {c['done']}/{c['total']} "
-                f"tasks done, {n} boundary estimate(s))")
+        return (
+            f"StudyReport('{self.description.name}', {len(self.points)} points, {c['done']}/{c['total']} "
+            f"tasks done, {n} boundary estimate(s))"
+        )
 
 
 def build_report(folder) -> StudyReport:
@@ -203,12 +233,15 @@ def build_report(folder) -> StudyReport:
     ------
     StudyError
         If the folder holds no ledger.
+
     """
     folder = Path(folder)
     path = ledger_path(folder)
     if not path.is_file():
-        raise StudyError(f"{folder} holds no study ledger ({path.name}); run 'netprobe study SPEC --out {folder}' "
-                         "first, or give the folder of a study")
+        raise StudyError(
+            f"{folder} holds no study ledger ({path.name}); run 'netprobe study SPEC --out {folder}' "
+            "first, or give the folder of a study"
+        )
     with Ledger(path) as ledger:
         description = ledger.description()
         rows = ledger.tasks()
@@ -227,16 +260,33 @@ def build_report(folder) -> StudyReport:
         best = done[-1] if done else None
         vals = {} if best is None else dict(best.result.get("probes", {}))
         values[point.index] = vals
-        points.append({
-            "index": point.index, "label": point.label, "parameters": dict(point.values), "values": vals,
-            "energy": None if best is None else best.result.get("energy"),
-            "bond_dimension": None if best is None else best.bond_dimension,
-            "tasks": [{"task": r.id, "bond_dimension": r.bond_dimension, "status": r.status, "attempts": r.attempts,
-                       "seconds": r.seconds, "error": r.error, "state_file": r.state_file,
-                       "values": None if r.result is None else r.result.get("probes")} for r in mine],
-            "verdict": verdict.to_dict(),
-        })
-    return StudyReport(description, folder, counts, points, verdicts, estimate_boundaries(description, values))
+        points.append(
+            {
+                "index": point.index,
+                "label": point.label,
+                "parameters": dict(point.values),
+                "values": vals,
+                "energy": None if best is None else best.result.get("energy"),
+                "bond_dimension": None if best is None else best.bond_dimension,
+                "tasks": [
+                    {
+                        "task": r.id,
+                        "bond_dimension": r.bond_dimension,
+                        "status": r.status,
+                        "attempts": r.attempts,
+                        "seconds": r.seconds,
+                        "error": r.error,
+                        "state_file": r.state_file,
+                        "values": None if r.result is None else r.result.get("probes"),
+                    }
+                    for r in mine
+                ],
+                "verdict": verdict.to_dict(),
+            }
+        )
+    return StudyReport(
+        description, folder, counts, points, verdicts, estimate_boundaries(description, values)
+    )
 
 
 # ---- tables ------------------------------------------------------------------------------------
@@ -263,30 +313,82 @@ def _write_csv(path: Path, header: list[str], rows: list[list]) -> Path:
 def _write_tables(report: StudyReport, out: Path) -> list[Path]:
     d = report.description
     probes = [p.text for p in d.probes]
-    header = ["point", "label", *d.swept, *probes, "bond_dimension", "energy", "energy_extrapolated",
-              "energy_error", "status", "flags"]
+    header = [
+        "point",
+        "label",
+        *d.swept,
+        *probes,
+        "bond_dimension",
+        "energy",
+        "energy_extrapolated",
+        "energy_error",
+        "status",
+        "flags",
+    ]
     rows = []
     for entry, verdict in zip(report.points, report.verdicts):
         e = verdict.energy
-        rows.append([entry["index"], entry["label"], *[entry["parameters"].get(n) for n in d.swept],
-                     *[entry["values"].get(p) for p in probes], entry["bond_dimension"], entry["energy"],
-                     e.extrapolated, e.error, verdict.status, "; ".join(verdict.flags)])
+        rows.append(
+            [
+                entry["index"],
+                entry["label"],
+                *[entry["parameters"].get(n) for n in d.swept],
+                *[entry["values"].get(p) for p in probes],
+                entry["bond_dimension"],
+                entry["energy"],
+                e.extrapolated,
+                e.error,
+                verdict.status,
+                "; ".join(verdict.flags),
+            ]
+        )
     files = [_write_csv(out / "points.csv", header, rows)]
     task_rows = []
     for entry in report.points:
         for t in entry["tasks"]:
             vals = t["values"] or {}
-            task_rows.append([t["task"], entry["index"], entry["label"], t["bond_dimension"], t["status"],
-                              t["attempts"], t["seconds"], *[vals.get(p) for p in probes], t["error"]])
-    files.append(_write_csv(out / "tasks.csv", ["task", "point", "label", "bond_dimension", "status", "attempts",
-                                                "seconds", *probes, "error"], task_rows))
+            task_rows.append(
+                [
+                    t["task"],
+                    entry["index"],
+                    entry["label"],
+                    t["bond_dimension"],
+                    t["status"],
+                    t["attempts"],
+                    t["seconds"],
+                    *[vals.get(p) for p in probes],
+                    t["error"],
+                ]
+            )
+    files.append(
+        _write_csv(
+            out / "tasks.csv",
+            ["task", "point", "label", "bond_dimension", "status", "attempts", "seconds", *probes, "error"],
+            task_rows,
+        )
+    )
     b_rows = []
     for name, found in report.boundaries.items():
         for b in found:
-            b_rows.append([name, b.probe, json.dumps(dict(b.at)), b.location, b.uncertainty, b.bracket[0],
-                           b.bracket[1], b.at_edge])
-    files.append(_write_csv(out / "boundaries.csv", ["parameter", "probe", "at", "location", "uncertainty",
-                                                     "bracket_low", "bracket_high", "at_edge"], b_rows))
+            b_rows.append(
+                [
+                    name,
+                    b.probe,
+                    json.dumps(dict(b.at)),
+                    b.location,
+                    b.uncertainty,
+                    b.bracket[0],
+                    b.bracket[1],
+                    b.at_edge,
+                ]
+            )
+    files.append(
+        _write_csv(
+            out / "boundaries.csv",
+            ["parameter", "probe", "at", "location", "uncertainty", "bracket_low", "bracket_high", "at_edge"],
+            b_rows,
+        )
+    )
     path = out / "report.json"
     tmp = path.with_name(f".{path.name}.tmp")
     tmp.write_text(json.dumps(report.to_json(), indent=2, allow_nan=False), encoding="utf-8")
@@ -350,17 +452,33 @@ def _line_plot(report: StudyReport, probe: str, out: Path, along: str, stem: str
         pts.sort()
         colour = _LINE[k % len(_LINE)]
         label = ", ".join(f"{n} = {v:g}" for n, v in zip(others, key)) or None
-        ax.plot([p[0] for p in pts], [p[1] for p in pts], color=colour, marker="o", markersize=3.5,
-                linewidth=1.2, label=label)
+        ax.plot(
+            [p[0] for p in pts],
+            [p[1] for p in pts],
+            color=colour,
+            marker="o",
+            markersize=3.5,
+            linewidth=1.2,
+            label=label,
+        )
         for b in report.boundaries.get(name, []):
             if b.probe == probe and tuple(b.at.get(n) for n in others) == key:
-                ax.axvspan(b.location - b.uncertainty / 2, b.location + b.uncertainty / 2, color=colour, alpha=0.12,
-                           linewidth=0)
+                ax.axvspan(
+                    b.location - b.uncertainty / 2,
+                    b.location + b.uncertainty / 2,
+                    color=colour,
+                    alpha=0.12,
+                    linewidth=0,
+                )
                 ax.axvline(b.location, color=colour, linestyle=(0, (4, 3)), linewidth=0.9)
     ax.set_xlabel(name, color=_INK)
     ax.set_ylabel(probe, color=_INK)
-    ax.set_title(f"{d.name}: {probe} against {name} (band: transition estimate +- spacing / 2)", fontsize=9,
-                 color=_INK, loc="left")
+    ax.set_title(
+        f"{d.name}: {probe} against {name} (band: transition estimate +- spacing / 2)",
+        fontsize=9,
+        color=_INK,
+        loc="left",
+    )
     if others:
         ax.legend(fontsize=7, frameon=False)
     _tidy(ax)
@@ -395,12 +513,30 @@ def _map_plot(report: StudyReport, probe: str, out: Path) -> Path | None:
     bar.ax.tick_params(labelsize=7)
     for b in report.boundaries.get(xa.name, []):
         if b.probe == probe:
-            ax.errorbar([b.location], [b.at[ya.name]], xerr=[[b.uncertainty / 2], [b.uncertainty / 2]], fmt="o",
-                        color="white", markeredgecolor=_INK, markersize=4, capsize=2, linewidth=0.8)
+            ax.errorbar(
+                [b.location],
+                [b.at[ya.name]],
+                xerr=[[b.uncertainty / 2], [b.uncertainty / 2]],
+                fmt="o",
+                color="white",
+                markeredgecolor=_INK,
+                markersize=4,
+                capsize=2,
+                linewidth=0.8,
+            )
     for b in report.boundaries.get(ya.name, []):
         if b.probe == probe:
-            ax.errorbar([b.at[xa.name]], [b.location], yerr=[[b.uncertainty / 2], [b.uncertainty / 2]], fmt="s",
-                        color="white", markeredgecolor=_INK, markersize=3.5, capsize=2, linewidth=0.8)
+            ax.errorbar(
+                [b.at[xa.name]],
+                [b.location],
+                yerr=[[b.uncertainty / 2], [b.uncertainty / 2]],
+                fmt="s",
+                color="white",
+                markeredgecolor=_INK,
+                markersize=3.5,
+                capsize=2,
+                linewidth=0.8,
+            )
     ax.set_xlabel(xa.name, color=_INK)
     ax.set_ylabel(ya.name, color=_INK)
     ax.set_title(f"{d.name}: {probe} (markers: steepest change)", fontsize=9, color=_INK, loc="left")
@@ -430,7 +566,9 @@ def _convergence_plot(report: StudyReport, out: Path) -> Path | None:
         is_energy = probe.split("@")[0] in ("energy", "energy_per_site")
         if not is_energy:
             ax.axhline(d.verdicts.change_threshold, color=_LINE[1], linestyle=(0, (4, 3)), linewidth=0.9)
-        ax.set_title(f"{probe}: |change| D={d.ladder[-2]} -> {d.ladder[-1]}", fontsize=8, color=_INK, loc="left")
+        ax.set_title(
+            f"{probe}: |change| D={d.ladder[-2]} -> {d.ladder[-1]}", fontsize=8, color=_INK, loc="left"
+        )
         ax.set_xlabel("point", fontsize=8, color=_INK)
         _tidy(ax)
     fig.suptitle(f"{d.name}: last-rung changes (dashed: flag threshold)", fontsize=9, color=_INK)
@@ -471,6 +609,7 @@ def write_report(report: StudyReport, out=None, *, plots: bool = True) -> list[P
     Returns
     -------
     list of Path
+
     """
     out = Path(out) if out is not None else report.folder / REPORT_FOLDER
     out.mkdir(parents=True, exist_ok=True)
@@ -490,12 +629,16 @@ def summary_lines(report: StudyReport) -> list[str]:
     """A short text summary: counts, one line per point, the transition estimates."""
     d = report.description
     c = report.counts
-    lines = [f"study {d.name}: model {d.model}, engine {d.engine}, {len(report.points)} points, "
-             f"{c['done']}/{c['total']} tasks done, {c['failed']} failed, {c['pending'] + c['running']} open"]
+    lines = [
+        f"study {d.name}: model {d.model}, engine {d.engine}, {len(report.points)} points, "
+        f"{c['done']}/{c['total']} tasks done, {c['failed']} failed, {c['pending'] + c['running']} open"
+    ]
     probes = [p.text for p in d.probes]
     width = max([len("point")] + [len(e["label"]) for e in report.points])
     cols = [max(10, len(p)) for p in probes]
-    lines.append("  ".join([f"{'point':<{width}}"] + [f"{p:>{w}}" for p, w in zip(probes, cols)] + ["verdict"]))
+    lines.append(
+        "  ".join([f"{'point':<{width}}"] + [f"{p:>{w}}" for p, w in zip(probes, cols)] + ["verdict"])
+    )
     for entry, verdict in zip(report.points, report.verdicts):
         cells = [f"{_fmt(entry['values'].get(p)):>{w}}" for p, w in zip(probes, cols)]
         status = verdict.status + (f" ({len(verdict.flags)} flag(s))" if verdict.flags else "")
@@ -504,7 +647,9 @@ def summary_lines(report: StudyReport) -> list[str]:
         for b in found:
             at = ", ".join(f"{k} = {v:g}" for k, v in b.at.items())
             edge = " (at the edge of the range)" if b.at_edge else ""
-            lines.append(f"transition in {name}{' at ' + at if at else ''}: {b.probe} changes fastest at "
-                         f"{b.location:.4g} +- {b.uncertainty:.3g} (between {b.bracket[0]:g} and {b.bracket[1]:g})"
-                         f"{edge}")
+            lines.append(
+                f"transition in {name}{' at ' + at if at else ''}: {b.probe} changes fastest at "
+                f"{b.location:.4g} +- {b.uncertainty:.3g} (between {b.bracket[0]:g} and {b.bracket[1]:g})"
+                f"{edge}"
+            )
     return lines

@@ -14,7 +14,6 @@ replace the file of a finished task.
 from __future__ import annotations
 
 import math
-import os
 import threading
 import time
 from dataclasses import dataclass, field
@@ -64,7 +63,9 @@ def _sites_of(layout, names=None) -> list[int]:
 def _real(value, what: str) -> float:
     value = complex(value)
     if abs(value.imag) > 1e-10 * max(1.0, abs(value.real)):
-        raise NetprobeError(f"probe {what}: the expectation value is complex ({value:.6g}); use a Hermitian operator")
+        raise NetprobeError(
+            f"probe {what}: the expectation value is complex ({value:.6g}); use a Hermitian operator"
+        )
     return float(value.real)
 
 
@@ -72,8 +73,10 @@ def _abc(layout, text: str):
     missing = [n for n in "ABC" if n not in layout.names]
     if missing:
         raise NetprobeError(
-            f"probe '{text}' needs parts A, B and C; the region '{layout.spec}' has {', '.join(layout.names)}; "
-            "use a three-part layout such as sectors:radius=R")
+            f"probe '{text}' needs parts A, B and C; the region '{layout.spec}' has "
+            f"{', '.join(layout.names)}; "
+            "use a three-part layout such as sectors:radius=R"
+        )
     return layout["A"], layout["B"], layout["C"]
 
 
@@ -92,6 +95,7 @@ def evaluate_probes(description: StudyDescription, model, engine: str, state, en
     -------
     dict of str to float
         Keyed by the probe text as written in the study file.
+
     """
     layouts = _region_layouts(description, model.lattice) if description.regions else {}
     out: dict[str, float] = {}
@@ -122,9 +126,11 @@ def evaluate_probes(description: StudyDescription, model, engine: str, state, en
             if probe.operator not in means:
                 if engine == "exact":
                     from netprobe.exact import local_expectations
+
                     means[probe.operator] = np.asarray(local_expectations(state, model, probe.operator))
                 else:
                     from netprobe.mps import local_expectations
+
                     means[probe.operator] = np.asarray(local_expectations(state, probe.operator))
             values = means[probe.operator]
             sites = range(model.num_sites) if probe.region is None else _sites_of(layouts[probe.region])
@@ -152,8 +158,10 @@ def _gaussian_probe(probe, state, layouts, energy, model) -> float:
     if probe.operator is not None:
         correlation = getattr(state, "correlation", None)
         if correlation is None or probe.operator != "n":
-            raise NetprobeError(f"probe '{probe.text}': the gaussian engine evaluates mean:n of number-conserving "
-                                "fermions only")
+            raise NetprobeError(
+                f"probe '{probe.text}': the gaussian engine evaluates mean:n of number-conserving "
+                "fermions only"
+            )
         occupations = np.real(np.diag(correlation))
         sites = range(model.num_sites) if probe.region is None else _sites_of(layouts[probe.region])
         return float(np.mean(occupations[list(sites)]))
@@ -191,8 +199,17 @@ def _start_state(needed: list[TaskRow], folder: Path, model):
     return state, f"state of point {row.point} at D={row.bond_dimension}"
 
 
-def compute_task(description: StudyDescription, point: StudyPoint, rung: int, bond_dimension: int, folder,
-                 lease: str, needed: list[TaskRow], *, blas_threads: int | None = 1) -> TaskOutcome:
+def compute_task(
+    description: StudyDescription,
+    point: StudyPoint,
+    rung: int,
+    bond_dimension: int,
+    folder,
+    lease: str,
+    needed: list[TaskRow],
+    *,
+    blas_threads: int | None = 1,
+) -> TaskOutcome:
     """Run one task and return its results (nothing is written to the ledger here).
 
     Parameters
@@ -218,6 +235,7 @@ def compute_task(description: StudyDescription, point: StudyPoint, rung: int, bo
     ------
     NetprobeError
         Whatever the engines raise for this point.
+
     """
     start = time.perf_counter()
     folder = Path(folder)
@@ -243,10 +261,14 @@ def compute_task(description: StudyDescription, point: StudyPoint, rung: int, bo
 
         initial, origin = _start_state(needed, folder, model)
         seed = point_seed(description.seed, point.index)
-        settings = SweepSettings(bond_dimension=bond_dimension, ramp=() if initial is not None else None,
-                                 **description.sweep_settings)
-        run = find_ground_state(model, settings, seed=seed, state=initial, progress=None, warn=False,
-                                blas_threads=blas_threads)
+        settings = SweepSettings(
+            bond_dimension=bond_dimension,
+            ramp=() if initial is not None else None,
+            **description.sweep_settings,
+        )
+        run = find_ground_state(
+            model, settings, seed=seed, state=initial, progress=None, warn=False, blas_threads=blas_threads
+        )
         state = run.state
         energy = float(run.energy)
         variance = None
@@ -257,17 +279,42 @@ def compute_task(description: StudyDescription, point: StudyPoint, rung: int, bo
             from netprobe.mps import BlockMPO, energy_variance
 
             with threadpool_limits(limits=blas_threads):
-                variance = float(energy_variance(state, BlockMPO.from_mpo(build_mpo(model.hamiltonian), state.basis)))
+                variance = float(
+                    energy_variance(state, BlockMPO.from_mpo(build_mpo(model.hamiltonian), state.basis))
+                )
         name = state_file_name(point.index, bond_dimension, lease)
-        info = {"study": description.name, "point": point.index, "parameters": dict(point.values),
-                "bond_dimension": bond_dimension, "energy": energy, "discarded_weight": run.discarded_weight,
-                "variance": variance, "sweeps": run.sweeps, "converged": run.converged, "message": run.message}
-        save_state(folder / STATES_FOLDER / name, state, model_text=description.model_text,
-                   overrides=description.overrides(point), seed=seed, kind="state", info=info)
+        info = {
+            "study": description.name,
+            "point": point.index,
+            "parameters": dict(point.values),
+            "bond_dimension": bond_dimension,
+            "energy": energy,
+            "discarded_weight": run.discarded_weight,
+            "variance": variance,
+            "sweeps": run.sweeps,
+            "converged": run.converged,
+            "message": run.message,
+        }
+        save_state(
+            folder / STATES_FOLDER / name,
+            state,
+            model_text=description.model_text,
+            overrides=description.overrides(point),
+            seed=seed,
+            kind="state",
+            info=info,
+        )
         state_file = f"{STATES_FOLDER}/{name}"
-        result["dmrg"] = {"discarded_weight": float(run.discarded_weight), "variance": variance,
-                          "sweeps": int(run.sweeps), "converged": bool(run.converged), "message": run.message,
-                          "max_bond_dimension": int(state.max_bond_dimension), "start": origin, "seed": seed}
+        result["dmrg"] = {
+            "discarded_weight": float(run.discarded_weight),
+            "variance": variance,
+            "sweeps": int(run.sweeps),
+            "converged": bool(run.converged),
+            "message": run.message,
+            "max_bond_dimension": int(state.max_bond_dimension),
+            "start": origin,
+            "seed": seed,
+        }
     result["energy"] = energy
     result["probes"] = evaluate_probes(description, model, engine, state, energy)
     seconds = time.perf_counter() - start
@@ -322,6 +369,7 @@ def run_task(ledger_file, task: int, lease: str, *, blas_threads: int | None = 1
     str
         ``"done"``, ``"pending"`` (failed, will be retried), ``"failed"`` or ``"lost"`` (the lease was
         taken back; nothing was recorded).
+
     """
     from threadpoolctl import threadpool_limits
 
@@ -336,8 +384,16 @@ def run_task(ledger_file, task: int, lease: str, *, blas_threads: int | None = 1
         with _Heartbeat(ledger_file, lease, description.executor.heartbeat_seconds):
             try:
                 with threadpool_limits(limits=blas_threads):
-                    outcome = compute_task(description, point, row.rung, row.bond_dimension, ledger.folder, lease,
-                                           needed, blas_threads=blas_threads)
+                    outcome = compute_task(
+                        description,
+                        point,
+                        row.rung,
+                        row.bond_dimension,
+                        ledger.folder,
+                        lease,
+                        needed,
+                        blas_threads=blas_threads,
+                    )
             except NetprobeError as err:
                 return ledger.fail(task, lease, str(err)) or "lost"
             except Exception as err:  # a bug or a resource problem: record it, keep the worker alive

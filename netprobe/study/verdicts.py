@@ -40,6 +40,7 @@ class Fit:
         Coefficient of 1/D.
     method : str
         The fit in words, with the bond dimensions used.
+
     """
 
     value: float
@@ -59,7 +60,9 @@ def _line(x: np.ndarray, y: np.ndarray):
     return float(coef[0]), float(coef[1]), float(np.sqrt(max(cov[0, 0], 0.0)))
 
 
-def inverse_bond_fit(bond_dimensions: Sequence[int], values: Sequence[float], *, points: int = 3) -> Fit | None:
+def inverse_bond_fit(
+    bond_dimensions: Sequence[int], values: Sequence[float], *, points: int = 3
+) -> Fit | None:
     """Extrapolate ``v(D) = v_inf + a / D`` from the last rungs of a ladder.
 
     Parameters
@@ -83,6 +86,7 @@ def inverse_bond_fit(bond_dimensions: Sequence[int], values: Sequence[float], *,
     - two rungs: ``|v_inf - v(D_max)|``, the whole extrapolation distance;
     - three rungs: the larger of the fit's standard error of ``v_inf`` and ``|v_inf - v_inf'|``, where
       ``v_inf'`` comes from the line through the last two rungs alone.
+
     """
     d = np.asarray(bond_dimensions, float)[-points:]
     v = np.asarray(values, float)[-points:]
@@ -147,6 +151,7 @@ class PointVerdict:
     energy : EnergyVerdict
     probes : mapping of str to ProbeVerdict
     flags : tuple of str
+
     """
 
     point: int
@@ -158,9 +163,15 @@ class PointVerdict:
     flags: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
-        return {"point": self.point, "label": self.label, "status": self.status,
-                "bond_dimensions": list(self.bond_dimensions), "energy": self.energy.to_dict(),
-                "probes": {k: v.to_dict() for k, v in self.probes.items()}, "flags": list(self.flags)}
+        return {
+            "point": self.point,
+            "label": self.label,
+            "status": self.status,
+            "bond_dimensions": list(self.bond_dimensions),
+            "energy": self.energy.to_dict(),
+            "probes": {k: v.to_dict() for k, v in self.probes.items()},
+            "flags": list(self.flags),
+        }
 
     def __repr__(self) -> str:
         flags = f", flags={list(self.flags)}" if self.flags else ""
@@ -206,8 +217,14 @@ def point_verdict(description: StudyDescription, rows: Sequence[TaskRow]) -> Poi
             flagged = abs(change) > settings.energy_threshold * max(1.0, abs(energies[-1]))
             weights = [float(r.result["dmrg"]["discarded_weight"]) for r in done]
             ex = extrapolate_energy(weights, energies)
-            energy = EnergyVerdict(energies[-1], change, ex.energy, ex.error,
-                                   f"{ex.method} in the discarded weight over D={','.join(map(str, chis))}", flagged)
+            energy = EnergyVerdict(
+                energies[-1],
+                change,
+                ex.energy,
+                ex.error,
+                f"{ex.method} in the discarded weight over D={','.join(map(str, chis))}",
+                flagged,
+            )
             if flagged:
                 flags.append(f"energy changed by {change:.3g} between D={chis[-2]} and D={chis[-1]}")
     probes = {}
@@ -224,8 +241,9 @@ def point_verdict(description: StudyDescription, rows: Sequence[TaskRow]) -> Poi
         change = vs[-1] - vs[-2]
         # energies are judged by the energy verdict, relative to their size
         flagged = probe.name not in ("energy", "energy_per_site") and abs(change) > settings.change_threshold
-        probes[probe.text] = ProbeVerdict(probe.text, vs[-1], cs[-1], vs[-2], change, inverse_bond_fit(cs, vs),
-                                          flagged)
+        probes[probe.text] = ProbeVerdict(
+            probe.text, vs[-1], cs[-1], vs[-2], change, inverse_bond_fit(cs, vs), flagged
+        )
         if flagged:
             flags.append(f"{probe.text} changed by {change:.3g} between D={cs[-2]} and D={cs[-1]}")
     if status == "converged" and flags:
