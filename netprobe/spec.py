@@ -50,7 +50,7 @@ from netprobe.sites import SiteSpace, operator_charge_change, site_space
 from netprobe.terms import Hamiltonian, Term
 
 __all__ = ["ModelSpec", "Model", "load_spec", "parse_spec", "parse_overrides", "models_directory",
-           "find_model", "list_models", "build_model", "load_model", "LATTICE_KEYS"]
+           "find_model", "list_models", "find_toml", "bundled_files", "build_model", "load_model", "LATTICE_KEYS"]
 
 LATTICE_KEYS = {"lattice": str, "geometry": str, "orientation": str, "length": int, "circumference": int,
                 "flux": float, "twist": float}
@@ -65,28 +65,37 @@ def models_directory() -> Path:
     return Path(__file__).resolve().parent.parent / "models"
 
 
-def list_models() -> list[Path]:
-    """Bundled model files, sorted by name."""
-    folder = models_directory()
+def bundled_files(folder: Path) -> list[Path]:
+    """TOML files in a folder, sorted by name (empty if the folder is missing)."""
     return sorted(folder.glob("*.toml")) if folder.is_dir() else []
 
 
-def find_model(name_or_path: str) -> Path:
-    """Resolve a model argument: a path to a TOML file, or the name of a bundled model.
+def find_toml(name_or_path: str, folder: Path, what: str) -> Path:
+    """Resolve a path to a TOML file, or the name of a bundled ``what`` (model, study) in ``folder``.
 
     Raises
     ------
     SpecError
-        If neither exists; the message lists the bundled models.
+        If neither exists; the message lists the bundled names.
     """
     path = Path(name_or_path)
     if path.is_file():
         return path
-    bundled = models_directory() / f"{name_or_path}.toml"
+    bundled = folder / f"{name_or_path}.toml"
     if bundled.is_file():
         return bundled
-    names = ", ".join(p.stem for p in list_models()) or "none"
-    raise SpecError(f"model '{name_or_path}' not found: give a TOML file path or a bundled model ({names})")
+    names = ", ".join(p.stem for p in bundled_files(folder)) or "none"
+    raise SpecError(f"{what} '{name_or_path}' not found: give a {what} file path or a bundled {what} ({names})")
+
+
+def list_models() -> list[Path]:
+    """Bundled model files, sorted by name."""
+    return bundled_files(models_directory())
+
+
+def find_model(name_or_path: str) -> Path:
+    """Resolve a model argument: a path to a TOML file, or the name of a bundled model."""
+    return find_toml(name_or_path, models_directory(), "model")
 
 
 @dataclass(frozen=True)

@@ -63,7 +63,8 @@ from typing import Any, Mapping
 import numpy as np
 
 from netprobe.errors import NetprobeError, SpecError
-from netprobe.spec import LATTICE_KEYS, ModelSpec, find_model, models_directory, parse_spec
+from netprobe.spec import (LATTICE_KEYS, ModelSpec, bundled_files, find_model, find_toml, models_directory,
+                           parse_spec)
 
 __all__ = [
     "ENGINES",
@@ -164,27 +165,12 @@ def studies_directory() -> Path:
 
 def list_studies() -> list[Path]:
     """Bundled study files, sorted by name."""
-    folder = studies_directory()
-    return sorted(folder.glob("*.toml")) if folder.is_dir() else []
+    return bundled_files(studies_directory())
 
 
 def find_study(name_or_path: str) -> Path:
-    """Resolve a study argument: a path to a TOML file, or the name of a bundled study.
-
-    Raises
-    ------
-    SpecError
-        If neither exists; the message lists the bundled studies.
-
-    """
-    path = Path(name_or_path)
-    if path.is_file():
-        return path
-    bundled = studies_directory() / f"{name_or_path}.toml"
-    if bundled.is_file():
-        return bundled
-    names = ", ".join(p.stem for p in list_studies()) or "none"
-    raise SpecError(f"study '{name_or_path}' not found: give a study file path or a bundled study ({names})")
+    """Resolve a study argument: a path to a TOML file, or the name of a bundled study."""
+    return find_toml(name_or_path, studies_directory(), "study")
 
 
 @dataclass(frozen=True, kw_only=True)
