@@ -31,7 +31,22 @@ MPS, square-root zipper
     The same walk with the ket only: ``Y[(a, open legs), e]``; a traced site goes into ``e`` (with
     ``F_k`` where the ket parity of the open legs to its right is odd, which puts the factor on ket
     and bra together) and ``e`` is compressed by a block SVD; the open legs are fused into one leg
-    graded by charge, so every step stays block-sparse.
+    graded by charge, so every step stays block-sparse. At ``min S`` the left bond is folded into
+    ``e`` and each charge block is cut to its numerical rank by one more SVD.
+
+Memory of the square-root zipper
+    After a traced site ``k`` the width of ``e`` is the rank of the reduced state of (everything left
+    of ``k``) + (the open sites right of ``k``), which only the walk itself finds out: singular values
+    whose weight is below 1e-28 of the total (rounding) are dropped, so a state with little
+    entanglement (zero correlation length) keeps ``e`` narrow, while a generic state, or a loosely
+    converged one whose spurious Schmidt values sit far above that cutoff, fills it up to its
+    dimension bound. Hence two checks:
+    the up-front estimate (:func:`estimate_rdm_memory`) replays the walk on the charge sectors with
+    ``e`` limited by its dimension bound and by the largest bond dimension of the MPS over the span,
+    a realistic figure for a weakly entangled region and no bound; and every step of the walk
+    checks, right before its allocation and with the actual current dimensions (rows times the
+    current ``e``, the SVD's factors and workspace), that it stays within the budget, raising
+    :class:`~netprobe.errors.MemoryBudgetError` before the large allocation otherwise.
 
 References
 ----------
@@ -232,6 +247,9 @@ class GradedRoot:
     blocks : tuple of RootBlock
     route : str
         How it was built: ``"vector"``, ``"mps-root"`` or ``"mps-zipper"``.
+    peak_estimate : float
+        For ``"mps-root"``: the largest per-step memory estimate of the walk that built it, in bytes
+        (what the budget was checked against); 0 for the other routes.
     """
 
     sites: tuple[int, ...]
@@ -241,6 +259,7 @@ class GradedRoot:
     moduli: tuple[int, ...]
     blocks: tuple[RootBlock, ...] = field(repr=False)
     route: str = "vector"
+    peak_estimate: float = 0.0
 
     @property
     def num_sites(self) -> int:
@@ -584,53 +603,138 @@ def _add(a: tuple, b: tuple, rule: ChargeRule, sign: int = 1) -> tuple:
     return tuple(rule.reduce(np.array(a) + sign * np.array(b)).tolist())
 
 
-def _root_estimate(state, sites: tuple[int, ...]) -> float:
-    """Upper bound on the bytes of the square-root zipper, from the charge sectors of the bonds.
+def _fused_sizes(legs, rule) -> dict:
+    """Total dimension of every fused charge ``sum direction * charge`` of a group of legs."""
+    out = {tuple(rule.zero().tolist()): 1}
+    for leg in legs:
+        charges = leg.direction * np.asarray(leg.charges, np.int64)
+        dims = leg.dims.tolist()
+        new: dict = {}
+        for q, n in out.items():
+            for qq, d in zip(rule.reduce(np.asarray(q, np.int64) + charges).tolist(), dims):
+                key = tuple(qq)
+                new[key] = new.get(key, 0) + n * int(d)
+        out = new
+    return out
 
-    Mirrors the walk of :func:`_root_from_mps` on sector dimensions only: rows ``(a, O)`` grouped by
-    charge, ``e`` bounded by the rows (its rank) and by the columns it came from.
+
+def _fuse_tables(a: dict, b: dict, rule: ChargeRule) -> dict:
+    """Charge -> dimension of the product of two charge -> dimension tables."""
+    out: dict = {}
+    for qa, da in a.items():
+        for qb, db in b.items():
+            q = _add(qa, qb, rule)
+            out[q] = out.get(q, 0) + da * db
+    return out
+
+
+def _matrix_sectors(legs, charge, rule: ChargeRule, rows, cols) -> list:
+    """(rows, columns) of every charge sector of a tensor read as a matrix, all allowed blocks counted."""
+    r = _fused_sizes([legs[i] for i in rows], rule)
+    c = _fused_sizes([legs[i] for i in cols], rule)
+    q0 = tuple(rule.reduce(np.asarray(charge, np.int64)).tolist())
+    out = []
+    for q, m in r.items():
+        n = c.get(_add(q0, q, rule, -1), 0)
+        if n:
+            out.append((m, n))
+    return out
+
+
+def _svd_entries(sectors) -> float:
+    """Entries a block SVD allocates besides its input.
+
+    The fused matrices, U (and the scaled copy that becomes the new ``Y``), V, and for the largest
+    sector LAPACK's own copy of the matrix, the QR factor of its tall-matrix path, and the
+    divide-and-conquer workspace (about 4 k^2).
+    """
+    if not sectors:
+        return 0.0
+    mats = sum(m * n for m, n in sectors)
+    u = sum(m * min(m, n) for m, n in sectors)
+    v = sum(min(m, n) * n for m, n in sectors)
+    work = max(2 * m * n + 4 * min(m, n) ** 2 + 4 * min(m, n) + max(m, n) for m, n in sectors)
+    return float(mats + 2 * u + v + work)
+
+
+def _fold_entries(rows: Sequence[int], cols: Sequence[int], held: float) -> float:
+    """Entries of the final fold of the left bond into ``e`` (per open charge: rows, columns).
+
+    ``Y`` itself, its blocks regrouped by open charge, and the SVD that compresses each group to its
+    rank (:func:`_svd_entries`; the concatenated groups are its input matrices).
+    """
+    return float(2.0 * held + _svd_entries([(r, c) for r, c in zip(rows, cols) if r and c]))
+
+
+def _rank_columns(mat: np.ndarray):
+    """``U s`` and the squared singular values of ``mat``: same ``M M^dag``, columns still to be cut."""
+    try:
+        u, s, _ = scipy.linalg.svd(mat, full_matrices=False, check_finite=False, lapack_driver="gesdd")
+    except np.linalg.LinAlgError:
+        u, s, _ = scipy.linalg.svd(mat, full_matrices=False, check_finite=False, lapack_driver="gesvd")
+    return u * s, s**2
+
+
+class _WalkMeter:
+    """The budget check of every step of the square-root zipper, with the largest estimate seen."""
+
+    def __init__(self, budget: int | None, what: str, itemsize: int):
+        self.budget = default_memory_budget() if budget is None else int(budget)
+        self.what = what
+        self.itemsize = itemsize
+        self.peak = 0.0
+
+    def check(self, entries: float, site: int, width: int) -> None:
+        need = float(entries) * self.itemsize
+        self.peak = max(self.peak, need)
+        check_memory_budget(need, self.budget, f"{self.what}, at site {site} with e of width {width},")
+
+
+def _root_estimate(state, sites: tuple[int, ...]) -> float:
+    """Realistic peak bytes of the square-root zipper, estimated before the walk (not a bound).
+
+    Replays the walk of :func:`_root_from_mps` on the charge sectors with the same per-step
+    formulas that the walk checks, the rows ``(a, O)`` exact and ``e`` taken, after each traced
+    site, as its dimension bound ``min(rows, columns)`` per charge, scaled down so that its width
+    stays at most the largest bond dimension of the MPS over the span. That is about what a weakly
+    entangled region needs; regions with more entanglement need more, which the step checks of
+    the walk catch before the allocation.
     """
     rule = state.basis.rule
     phys = _bond_counts(state.basis.leg)
-    item = np.dtype(state.dtype).itemsize
     lo, hi = sites[0], sites[-1]
     t = state.tensors
+    cap = max([t[k].legs[0].dim for k in range(lo, hi + 1)] + [t[hi].legs[2].dim])
+    fermionic = state.basis.space.fermionic
     opens = dict(phys)
-    e = {q: d for q, d in _bond_counts(t[hi].legs[2]).items()}
-    peak = 0.0
-
-    def rows_of(bond, opens_):
-        out: dict = {}
-        for qa, da in bond.items():
-            for qo, do in opens_.items():
-                q = _add(qa, qo, rule)
-                out[q] = out.get(q, 0) + da * do
-        return out
-
-    rows = rows_of(_bond_counts(t[hi].legs[0]), opens)
-    peak = max(peak, sum(r * e.get(q, 0) for q, r in rows.items()))
+    e = _bond_counts(t[hi].legs[2])
+    y = sum(r * e.get(q, 0) for q, r in _fuse_tables(_bond_counts(t[hi].legs[0]), opens, rule).items())
+    peak = float(y)
     for k in range(hi - 1, lo - 1, -1):
         bond = _bond_counts(t[k].legs[0])
+        product = _fuse_tables(_fuse_tables(bond, phys, rule), opens, rule)
+        t_size = sum(r * e.get(q, 0) for q, r in product.items())
+        peak = max(peak, 2.0 * y + t_size)
         if k in sites:
-            new: dict = {}
-            for qs, ds in phys.items():
-                for qo, do in opens.items():
-                    q = _add(qs, qo, rule)
-                    new[q] = new.get(q, 0) + ds * do
-            opens = new
-            rows = rows_of(bond, opens)
-            # the contracted tensor and its fused copy
-            peak = max(peak, 2.0 * sum(r * e.get(q, 0) for q, r in rows.items()))
-        else:
-            rows = rows_of(bond, opens)
-            cols = {}
-            for q in rows:
-                cols[q] = sum(ds * e.get(_add(q, qs, rule), 0) for qs, ds in phys.items())
-            before = sum(r * cols[q] for q, r in rows.items())
-            e = {q: min(r, cols[q]) for q, r in rows.items() if min(r, cols[q]) > 0}
-            # input, U, V and the LAPACK workspace of the block SVD
-            peak = max(peak, 3.0 * before)
-    return peak * item
+            opens = _fuse_tables(phys, opens, rule)
+            peak = max(peak, 2.0 * t_size)
+            y = t_size
+            continue
+        if fermionic:
+            peak = max(peak, 2.0 * t_size)
+        rows = _fuse_tables(bond, opens, rule)
+        cols = {q: sum(ds * e.get(_add(q, qs, rule), 0) for qs, ds in phys.items()) for q in rows}
+        sectors = [(rows[q], cols[q]) for q in rows if cols[q]]
+        peak = max(peak, t_size + _svd_entries(sectors))
+        e = {q: min(rows[q], cols[q]) for q in rows if cols[q]}
+        width = sum(e.values())
+        if width > cap:
+            e = {q: max(1, math.ceil(v * cap / width)) for q, v in e.items()}
+        y = sum(rows[q] * v for q, v in e.items())
+    bond = _bond_counts(t[lo].legs[0])
+    fold_cols = [sum(da * e.get(_add(qa, qo, rule), 0) for qa, da in bond.items()) for qo in opens]
+    peak = max(peak, _fold_entries(list(opens.values()), fold_cols, y))
+    return peak * np.dtype(state.dtype).itemsize
 
 
 def _zipper_estimate(state, sites: tuple[int, ...]) -> float:
@@ -665,7 +769,14 @@ def estimate_rdm_memory(state, sites, space: SiteSpace, *, method: str = "auto",
     Returns
     -------
     float
-        Peak bytes; for the square-root route an upper bound (ranks are bounded by dimensions).
+        Peak bytes. Dense vector and density-matrix zipper: what the computation allocates (their
+        sizes are fixed by the dimensions). Square-root zipper: a realistic figure, not a bound; the
+        width of the compressed leg ``e`` is known only during the walk, so the estimate assumes it
+        stays within its dimension bound and within the largest bond dimension of the MPS over the
+        span (about what a weakly entangled region needs). The walk then checks every step, right
+        before its allocation, with the actual dimensions, so a region that outgrows the budget is
+        refused with :class:`~netprobe.errors.MemoryBudgetError` before the large allocation, and
+        :attr:`GradedRoot.peak_estimate` records the largest step estimate of a finished walk.
     """
     _check_method(method, "estimate_rdm_memory")
     state = as_pure_state(state)
@@ -768,11 +879,17 @@ class _OpenLeg:
     sites: int
 
 
-def _root_from_mps(state, sites: tuple[int, ...]) -> GradedRoot:
-    """The square-root zipper from ``max S`` down to ``min S`` (module notes)."""
+def _root_from_mps(state, sites: tuple[int, ...], budget: int | None = None,
+                   where: str = "reduced_root") -> GradedRoot:
+    """The square-root zipper from ``max S`` down to ``min S`` (module notes).
+
+    Every step checks its allocation against ``budget`` with the actual dimensions first and raises
+    :class:`~netprobe.errors.MemoryBudgetError` before allocating if it would not fit.
+    """
     basis = state.basis
     space = basis.space
     leg = basis.leg
+    rule = basis.rule
     d = basis.dim
     blocked_parity = np.asarray(space.parity)[basis.order]
     bounds = list(zip(leg.offsets[:-1], leg.offsets[1:]))
@@ -780,28 +897,52 @@ def _root_from_mps(state, sites: tuple[int, ...]) -> GradedRoot:
     phys_parity = _sector_parity(blocked_parity, leg.offsets)
     fvec = {s: 1.0 - 2.0 * blocked_parity[a:b] for s, (a, b) in enumerate(bounds)}
     lo, hi = sites[0], sites[-1]
+    meter = _WalkMeter(budget, f"{where}: the square-root zipper over {len(sites)} sites",
+                       np.dtype(state.dtype).itemsize)
     st = _centred_copy(state, lo, hi)
     y = st.tensors[hi]  # (a, O, e)
     opened = _OpenLeg(list(phys_codes), list(phys_parity), 1)
     for k in range(hi - 1, lo - 1, -1):
-        t = contract(st.tensors[k], y, ([2], [0]))  # (a', s, O, e)
+        a = st.tensors[k]
+        width = y.legs[2].dim
+        out_legs = (a.legs[0], a.legs[1], y.legs[1], y.legs[2])
+        out_charge = _add(tuple(a.charge.tolist()), tuple(y.charge.tolist()), rule)
+        t_size = sum(m * n for m, n in _matrix_sectors(out_legs, out_charge, rule, (0, 1), (2, 3)))
+        meter.check(2.0 * y.size + t_size, k, width)  # Y, its fused copy and the product
+        t = contract(a, y, ([2], [0]))  # (a', s, O, e)
+        y = None  # the old Y is no longer needed: free it before the next allocation
         if k in sites:
+            meter.check(float(t.size + t_size), k, width)
             y, opened = _fuse_open(t, opened, phys_codes, phys_parity, d)
             continue
         if space.fermionic:
+            meter.check(2.0 * t.size, k, width)
             t = _string_on_odd(t, opened, fvec)
+        meter.check(t.size + _svd_entries(_matrix_sectors(t.legs, t.charge, rule, (0, 2), (1, 3))), k, width)
         u, s, _, _ = svd(t, [0, 2], [1, 3], cutoff=_ROOT_CUTOFF)
         y = diag_multiply(u, 2, s)
     # the left bond at min S is summed (left part left-orthonormal): fold it into e
+    rows_of, cols_of = {}, {}
+    for (ka, ko, ke), blk in y.blocks.items():
+        rows_of[ko] = blk.shape[1]
+        cols_of[ko] = cols_of.get(ko, 0) + blk.shape[0] * blk.shape[2]
+    meter.check(_fold_entries([rows_of[ko] for ko in rows_of], [cols_of[ko] for ko in rows_of], y.size),
+                lo, y.legs[2].dim)
     by_open: dict = {}
     for (ka, ko, ke), blk in y.blocks.items():
         by_open.setdefault(ko, []).append(blk.transpose(1, 0, 2).reshape(blk.shape[1], -1))
     names, local, moduli = _grading_of(space, basis.conserve)
     powers = d ** np.arange(len(sites) - 1, -1, -1, dtype=np.int64)
+    # compress every group to its numerical rank with the walk's cutoff, relative to the total weight
+    factors = {ko: _rank_columns(np.concatenate(by_open.pop(ko), axis=1)) for ko in sorted(by_open)}
+    total = sum(float(w.sum()) for _, w in factors.values())
     blocks = []
     norm2 = 0.0
-    for ko in sorted(by_open):
-        mat = _compress_columns(np.concatenate(by_open[ko], axis=1))
+    for ko, (us, w) in factors.items():
+        keep = w >= _ROOT_CUTOFF * total
+        if not keep.any():
+            continue
+        mat = np.ascontiguousarray(us[:, keep])
         codes = np.asarray(opened.codes[ko], np.int64)
         first = (codes[0] // powers) % d
         label = _labels(local[first].sum(axis=0, keepdims=True), moduli)[0]
@@ -809,7 +950,7 @@ def _root_from_mps(state, sites: tuple[int, ...]) -> GradedRoot:
         blocks.append(RootBlock(tuple(int(x) for x in label), codes, mat))
     scale = 1.0 / math.sqrt(norm2) if norm2 > 0 else 1.0
     blocks = [RootBlock(b.label, b.codes, b.matrix * scale) for b in blocks]
-    return GradedRoot(sites, space, names, local, moduli, tuple(blocks), "mps-root")
+    return GradedRoot(sites, space, names, local, moduli, tuple(blocks), "mps-root", meter.peak)
 
 
 def _string_on_odd(t: BlockTensor, opened: _OpenLeg, fvec: dict) -> BlockTensor:
@@ -913,7 +1054,7 @@ def _mps_root(state, sites, method, budget, where) -> GradedRoot:
         check_memory_budget(_root_estimate(state, sites), budget,
                             f"{where}: the square-root zipper over {len(sites)} sites")
         try:
-            return _root_from_mps(state, sites)
+            return _root_from_mps(state, sites, budget, where)
         except _UngradedParity:
             raise NetprobeError(
                 f"{where}: the conserved charges do not fix the fermion parity of the open sites, so the "
@@ -967,7 +1108,8 @@ def reduced_root(state, sites, space: SiteSpace, *, method: str = "auto",
     SectorError
         For a fermionic vector of mixed parity.
     MemoryBudgetError
-        If the estimate exceeds the budget (raised before the large allocations).
+        If the up-front estimate exceeds the budget, or, on the square-root route, a step of the walk
+        would (checked with the actual dimensions before each step's allocation; module notes).
     """
     where = "reduced_root"
     _check_method(method, where)
@@ -1024,9 +1166,13 @@ def reduced_density_matrix(state, sites, space: SiteSpace, *, method: str = "aut
     check_memory_budget(_root_estimate(state, sites) + dense, memory_budget,
                         f"{where}: the square-root zipper over {m} sites")
     try:
-        return _root_from_mps(state, sites).density_matrix()
+        root = _root_from_mps(state, sites, memory_budget, where)
     except _UngradedParity:
+        check_memory_budget(_zipper_estimate(state, sites) + dense, memory_budget,
+                            f"{where}: the density-matrix zipper over {m} sites")
         return _rho_from_mps_zipper(state, sites)
+    check_memory_budget(root.nbytes + dense, memory_budget, f"{where}: the dense rho over {m} sites")
+    return root.density_matrix()
 
 
 # --------------------------------------------------------------------------------------------------

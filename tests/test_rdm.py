@@ -392,6 +392,45 @@ def test_memory_refusal_happens_before_any_contraction(monkeypatch):
         rdm.reduced_density_matrix(state.to_vector(), [0, 3, 5], model.space)
 
 
+def test_walk_refuses_a_step_before_allocating_it(monkeypatch):
+    # A random MPS fills e up to its dimension bound, beyond the up-front estimate (which assumes a
+    # weakly entangled region): a budget between the two passes the up-front check, and the walk
+    # itself must stop at the first step that would not fit, before that step's kernels run.
+    model = load_model("kagome_chiral", {})
+    state = random_state(model.hamiltonian, bond_dimension=12, rng=1)
+    sites = [0, 3, 5, 6, 10]
+    calls = []
+
+    def recording(name, kernel):
+        def run(*args, **kwargs):
+            out = kernel(*args, **kwargs)
+            first = out[0] if isinstance(out, tuple) else out
+            calls.append((name, sum(b.nbytes for b in first.blocks.values())))
+            return out
+        return run
+
+    for name in ("contract", "svd", "diag_multiply", "_fuse_open"):
+        monkeypatch.setattr(rdm, name, recording(name, getattr(rdm, name)))
+    full = rdm.reduced_root(state, sites, model.space, method="root", memory_budget=2**40)
+    done = list(calls)
+    upfront = rdm.estimate_rdm_memory(state, sites, model.space, method="root")
+    assert upfront < full.peak_estimate  # the case really needs the step checks
+    budget = int((upfront + full.peak_estimate) / 2)
+    calls.clear()
+    with pytest.raises(MemoryBudgetError, match=r"at site \d+ with e of width \d+, would need about .* GiB, "
+                                                r"over the memory budget .*fewer sites"):
+        rdm.reduced_root(state, sites, model.space, method="root", memory_budget=budget)
+    # the refused walk is the start of the full one, stopped before it finished; none of its
+    # allocations came near the budget
+    assert 0 < len(calls) < len(done) and calls == done[: len(calls)]
+    assert max(size for _, size in calls) < budget
+    # with the peak as budget the walk goes through and gives the same root
+    enough = int(full.peak_estimate) + 1
+    again = rdm.reduced_root(state, sites, model.space, method="root", memory_budget=enough)
+    assert again.peak_estimate == full.peak_estimate
+    assert np.allclose(again.density_matrix(), full.density_matrix(), atol=tol())
+
+
 def test_memory_estimate_bounds_what_the_root_route_holds():
     model = load_model("kagome_chiral", {})
     state = random_state(model.hamiltonian, bond_dimension=16, rng=4)
