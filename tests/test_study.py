@@ -299,6 +299,25 @@ def test_recover_takes_back_dead_leases_and_rejects_their_results(tmp_path):
     ledger.close()
 
 
+@pytest.mark.skipif(not os.path.isdir("/proc/self"), reason="zombie state is read from /proc (Linux)")
+def test_an_exited_but_unreaped_worker_counts_as_gone():
+    # common practice (POSIX): an exited child that its parent has not waited for stays in the
+    # process table as a zombie and still answers signal 0; containers whose first process does
+    # not reap orphans keep killed workers in that state, and their leases must still be freed
+    from netprobe.study.ledger import process_alive
+
+    proc = subprocess.Popen([sys.executable, "-c", "pass"])
+    deadline = time.monotonic() + 30
+    while open(f"/proc/{proc.pid}/stat", "rb").read().rsplit(b")", 1)[1][1:2] != b"Z":
+        assert time.monotonic() < deadline
+        time.sleep(0.01)
+    os.kill(proc.pid, 0)  # the zombie still answers signal 0 ...
+    assert not process_alive(proc.pid)  # ... but is not alive
+    assert process_alive(os.getpid())
+    proc.wait()
+    assert not process_alive(proc.pid)
+
+
 def test_attempt_budget_and_retry_on_the_next_run(tmp_path):
     d, ledger = _small_ledger(tmp_path, values="[0.5]")
     ledger.begin_run(2)

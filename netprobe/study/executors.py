@@ -547,7 +547,8 @@ def run_study(description: StudyDescription, out, *, executor=None, progress="st
         waiting_noted = False
         while True:
             # leases of our own workers are settled by executor.wait, which knows why a worker died
-            ledger.recover(settings.lease_seconds, exclude=executor.leases())
+            if ledger.recover(settings.lease_seconds, exclude=executor.leases()):
+                tidy_states(ledger.folder, ledger)  # files the lost holders wrote but never recorded
             while True:
                 owner = executor.free_owner()
                 if owner is None:
@@ -584,6 +585,7 @@ def run_study(description: StudyDescription, out, *, executor=None, progress="st
                 failures.append(text)
                 report.line(text)
             report.counts(ledger.counts())
+        tidy_states(ledger.folder, ledger)
         counts = ledger.counts()
     except BaseException:
         # stopped from outside (Ctrl-C) or by a bug: hand back what our workers held, then stop them

@@ -127,7 +127,12 @@ def host_name() -> str:
 
 
 def process_alive(pid: int) -> bool:
-    """True if a process with this id exists on this machine."""
+    """True if a process with this id exists on this machine and has not exited.
+
+    An exited process whose parent has not collected it (a zombie, common in containers whose
+    first process does not reap orphans) still answers signal 0, so on Linux its state in
+    /proc is read as well.
+    """
     if pid is None or pid <= 0:
         return False
     try:
@@ -136,7 +141,14 @@ def process_alive(pid: int) -> bool:
         return False
     except PermissionError:
         return True
-    return True
+    try:
+        with open(f"/proc/{int(pid)}/stat", "rb") as handle:
+            stat = handle.read()
+    except OSError:
+        return True  # no /proc (not Linux) or the process just vanished: signal 0 said it exists
+    # the state letter follows the command name, which is in parentheses and may contain spaces
+    state = stat[stat.rfind(b")") + 2 : stat.rfind(b")") + 3]
+    return state not in (b"Z", b"X")
 
 
 def ledger_path(folder) -> Path:
