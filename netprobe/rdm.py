@@ -89,7 +89,7 @@ __all__ = [
 ]
 
 #: Ways to build a reduced density matrix from an MPS ("auto" picks the cheaper that applies).
-RDM_METHODS = ("auto", "root", "zipper")
+RDM_METHODS = ("auto", "root", "zipper", "split")
 
 _PARITY_TOL = 1e-12  # largest weight of the minority fermion parity still treated as rounding
 _CHARGE_TOL = 1e-20  # weight outside one charge value below which a dense vector counts as definite
@@ -793,7 +793,11 @@ def estimate_rdm_memory(state, sites, space: SiteSpace, *, method: str = "auto",
         return out + _root_estimate(state, sites)
     if method == "zipper":
         return out + _zipper_estimate(state, sites)
-    return out + min(_root_estimate(state, sites), _zipper_estimate(state, sites))
+    if method == "split":
+        return out + _split_estimate(state, sites)
+    chosen = _choose_method(state, sites, "auto", "estimate_rdm_memory")
+    return out + {"root": _root_estimate, "zipper": _zipper_estimate, "split": _split_estimate}[chosen](
+        state, sites)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -953,6 +957,201 @@ def _root_from_mps(state, sites: tuple[int, ...], budget: int | None = None,
     return GradedRoot(sites, space, names, local, moduli, tuple(blocks), "mps-root", meter.peak)
 
 
+# --------------------------------------------------------------------------------------------------
+# MPS: double-layer walks from both ends that meet at one bond (spin and boson spaces)
+# --------------------------------------------------------------------------------------------------
+
+
+def _bond_identity(bond: Leg, rule: ChargeRule, dtype) -> BlockTensor:
+    """The start of a double-layer walk: ``G[O, b, O*, b*]``, identity on ``b``, one open state of charge 0.
+
+    ``b`` contracts with ``bond``, the left bond of the walk's first tensor.
+    """
+    zero = np.zeros((1, rule.k), np.int64)
+    blocks = {(0, sec, 0, sec): np.eye(int(n), dtype=dtype).reshape(1, int(n), 1, int(n))
+              for sec, n in enumerate(bond.dims.tolist())}
+    return BlockTensor((Leg(zero, [1], 1), bond.dual(), Leg(zero, [1], -1), bond), None, rule, blocks, dtype=dtype)
+
+
+def _fused_open_leg(o_leg: Leg, s_leg: Leg, o_codes, s_codes, code_of, rule: ChargeRule):
+    """Sectors, placements and codes of the open leg after one more site (see :func:`_double_layer_step`)."""
+    groups: dict = {}
+    for so in range(o_leg.n_sectors):
+        for ss in range(s_leg.n_sectors):
+            q = tuple(rule.reduce(o_leg.charges[so] + s_leg.charges[ss]).tolist())
+            groups.setdefault(q, []).append((so, ss))
+    charges = sorted(groups)
+    place, dims, codes = {}, [], []
+    for n, q in enumerate(charges):
+        off, parts = 0, []
+        for so, ss in groups[q]:
+            size = int(o_leg.dims[so] * s_leg.dims[ss])
+            place[(so, ss)] = (n, off, size)
+            off += size
+            parts.append(code_of(np.asarray(o_codes[so], np.int64)[:, None],
+                                 np.asarray(s_codes[ss], np.int64)[None, :]).ravel())
+        dims.append(off)
+        codes.append(np.concatenate(parts))
+    leg = Leg(np.array(charges, np.int64).reshape(len(charges), rule.k), np.array(dims, np.int64), o_leg.direction)
+    return leg, place, codes
+
+
+def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, o_codes, s_codes, code_of):
+    """``G'[O', c, O'*, c*] = sum A[b, s, c] G[O, b, O*, b*] conj(A[b*, s*, c*])``, one block pair at a time.
+
+    A traced site has ``s* = s`` summed and ``O' = O``; an open site fuses ``(O, s)`` into ``O'``
+    (``O`` major) with codes ``code_of(O codes, s codes)``. Working block by block keeps the memory
+    at the input and the output plus one product of blocks (no fused copies of the large tensor).
+    """
+    rule = g.rule
+    by_bond: dict = {}
+    for (b, ss, c), blk in a.blocks.items():
+        by_bond.setdefault(b, []).append((ss, c, blk))
+    if open_site:
+        o_leg, place, codes = _fused_open_leg(g.legs[0], a.legs[1], o_codes, s_codes, code_of, rule)
+    else:
+        o_leg, place, codes = g.legs[0], None, o_codes
+    legs = (o_leg, a.legs[2], o_leg.dual(), a.legs[2].dual())
+    out: dict = {}
+    for (o, b, ob, bb), blk in g.blocks.items():
+        kets = by_bond.get(b, ())
+        bras = by_bond.get(bb, ())
+        for ss, c, ka in kets:
+            half = np.tensordot(blk, ka, axes=([1], [0]))  # (x, y, z, s, c)
+            for sb, cb, kb in bras:
+                if not open_site and sb != ss:
+                    continue
+                if open_site:
+                    part = np.tensordot(half, kb.conj(), axes=([2], [0]))  # (x, y, s, c, s*, c*)
+                    n, off, size = place[(o, ss)]
+                    nb, offb, sizeb = place[(ob, sb)]
+                    key = (n, c, nb, cb)
+                    shape = (int(o_leg.dims[n]), part.shape[3], int(o_leg.dims[nb]), part.shape[5])
+                    target = out.get(key)
+                    if target is None:
+                        target = out[key] = np.zeros(shape, part.dtype)
+                    x, y, sd, cd, sbd, cbd = part.shape
+                    target[off:off + size, :, offb:offb + sizeb, :] += part.transpose(0, 2, 3, 1, 4, 5).reshape(
+                        x * sd, cd, y * sbd, cbd)
+                else:
+                    part = np.tensordot(half, kb.conj(), axes=([2, 3], [0, 1]))  # (x, y, c, c*)
+                    key = (o, c, ob, cb)
+                    target = out.get(key)
+                    if target is None:
+                        out[key] = part.transpose(0, 2, 1, 3).copy()
+                    else:
+                        target += part.transpose(0, 2, 1, 3)
+    return BlockTensor(legs, None, rule, out, dtype=np.result_type(g.dtype, a.dtype)), codes
+
+
+def _split_point(sites: tuple[int, ...]) -> int:
+    """MPS index of the last site of the left walk.
+
+    The left walk takes the first half of the open sites and the traced sites after them, up to the
+    first open site of the second half: it runs first, with nothing else held, so the full-size
+    traced steps cost least there.
+    """
+    return sites[(len(sites) + 1) // 2] - 1 if len(sites) > 1 else sites[0]
+
+
+def _split_estimate(state, sites: tuple[int, ...]) -> float:
+    """Peak bytes of the split route: the two double layers at the meeting bond, exactly counted.
+
+    A double layer ``G[(O, b), (O*, b*)]`` is block diagonal in the charge of ``(O, b)``; its entries are
+    ``sum_Q n_Q**2`` with ``n_Q`` the number of (open configuration, bond state) pairs of charge Q.
+    A step holds its input and its output (it works block by block), the right walk also holds
+    ``G_L``, and the join holds both layers and the dense reduced matrix of ``d**(2n)`` entries.
+    """
+    basis = state.basis
+    rule = basis.rule
+    d = basis.dim
+    item = np.dtype(state.dtype).itemsize
+    local = [tuple(q) for q in np.asarray(basis.charges).tolist()]
+    m = _split_point(sites)
+
+    def layer(open_count: int, bond: Leg, sign: int) -> float:
+        counts = {tuple([0] * rule.k): 1}
+        for _ in range(open_count):
+            nxt: dict = {}
+            for q, c in counts.items():
+                for lq in local:
+                    key = tuple(rule.reduce(np.add(q, lq)).tolist())
+                    nxt[key] = nxt.get(key, 0) + c
+            counts = nxt
+        sizes: dict = {}
+        for q, c in counts.items():
+            for bq, bd in zip(bond.charges.tolist(), bond.dims.tolist()):
+                key = tuple(rule.reduce(np.add(q, sign * np.asarray(bq))).tolist())
+                sizes[key] = sizes.get(key, 0) + c * bd
+        return float(sum(v * v for v in sizes.values()))
+
+    k_left = sum(1 for s in sites if s <= m)
+    bond = state.tensors[m].legs[2]
+    g_left, g_right = layer(k_left, bond, 1), layer(len(sites) - k_left, bond, -1)
+    # left walk: its input and output; right walk: the same with G_L held; the join: both and rho
+    peak = max(2.0 * g_left, g_left + 2.0 * g_right, g_left + g_right + float(d) ** (2 * len(sites)))
+    return peak * item
+
+
+def _rho_from_mps_split(state, sites: tuple[int, ...], budget: int | None = None,
+                        where: str = "reduced_density_matrix") -> np.ndarray:
+    """Dense reduced density matrix of a non-fermionic MPS by two double-layer walks (module notes).
+
+    The left walk carries ``G_L[O_L, b, O_L*, b*]`` from the first site of the set to the split
+    point; the right walk is the same walk on the mirrored chain (every tensor read as
+    ``A[c, s, b]``) from the last site back to the bond after the split point. Traced sites are
+    summed ket against bra, open sites are fused into the open legs. Outside the span the state is
+    orthonormal towards it, so both walks start from the identity, and
+    ``rho = sum_{b, b*} G_L[O_L, b, O_L*, b*] G_R[O_R, b, O_R*, b*]``. Every step checks its
+    allocation against the budget first.
+    """
+    basis = state.basis
+    rule = basis.rule
+    d = basis.dim
+    bounds = list(zip(basis.leg.offsets[:-1], basis.leg.offsets[1:]))
+    phys_codes = [np.asarray(basis.order[a:b], np.int64) for a, b in bounds]
+    lo, hi = sites[0], sites[-1]
+    m = _split_point(sites)
+    meter = _WalkMeter(budget, f"{where}: the split walk over {len(sites)} sites", np.dtype(state.dtype).itemsize)
+    st = _centred_copy(state, lo, hi)
+
+    def walk(start_bond, tensors, code_of, held: float):
+        g = _bond_identity(start_bond, rule, np.result_type(st.dtype, np.float64))
+        codes, opened = [np.zeros(1, np.int64)], 0
+        for k, a in tensors:
+            is_open = k in sites
+            grow = float(d * d) if is_open else 1.0
+            grow *= max(1.0, a.legs[2].dim / max(1, a.legs[0].dim)) ** 2
+            meter.check(held + g.size * (1.0 + grow), k, a.legs[2].dim)
+            g, codes = _double_layer_step(g, a, is_open, codes, phys_codes, lambda o, s_: code_of(o, s_, opened))
+            opened += is_open
+        return g, codes, opened
+
+    left = [(k, st.tensors[k]) for k in range(lo, m + 1)]
+    g_left, codes_left, _ = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, 0.0)
+    right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
+    g_right, codes_right, k_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o,
+                                         float(g_left.size))
+    n = len(sites)
+    meter.check(float(d) ** (2 * n) + g_right.size + g_left.size, m, st.tensors[m].legs[2].dim)
+    # rho = sum_{b, b*} G_L G_R one pair of blocks at a time, straight into the dense matrix
+    rho = np.zeros((d**n, d**n), np.result_type(g_left.dtype, g_right.dtype))
+    shift = d**k_right
+    right_by_bond: dict = {}
+    for (sr, bk, srb, bb), blk in g_right.blocks.items():
+        right_by_bond.setdefault((bk, bb), []).append((sr, srb, blk))
+    for (sl, bk, slb, bb), blk in g_left.blocks.items():
+        for sr, srb, other in right_by_bond.get((bk, bb), ()):
+            part = np.tensordot(blk, other, axes=([1, 3], [1, 3]))  # (O_L, O_L*, O_R, O_R*)
+            rows = (codes_left[sl][:, None] * shift + codes_right[sr][None, :]).ravel()
+            cols = (codes_left[slb][:, None] * shift + codes_right[srb][None, :]).ravel()
+            rho[np.ix_(rows, cols)] += part.transpose(0, 2, 1, 3).reshape(len(rows), len(cols))
+    trace = np.trace(rho).real
+    if trace > 0:
+        rho /= trace
+    return rho
+
+
 def _string_on_odd(t: BlockTensor, opened: _OpenLeg, fvec: dict) -> BlockTensor:
     """Multiply ``t[a', s, O, e]`` by ``F`` on ``s`` wherever the open sector ``O`` is odd."""
     blocks = {}
@@ -1043,9 +1242,19 @@ def _choose_method(state, sites, method: str, where: str) -> str:
             )
         _check_mps_parity(state, where)
         return "zipper"
+    if method == "split":
+        if state.basis.space.fermionic:
+            raise NetprobeError(
+                f"{where}: method='split' does not place fermion parity strings; use method='root' or 'zipper'")
+        return method
     if method != "auto":
         return method
-    return "root" if _root_estimate(state, sites) <= _zipper_estimate(state, sites) else "zipper"
+    estimates = {"root": _root_estimate(state, sites), "zipper": _zipper_estimate(state, sites)}
+    if not state.basis.space.fermionic:
+        # the root estimate assumes a narrow e (weak entanglement); the split one is exact, so it is
+        # taken unless the root route is expected to be far smaller
+        estimates["split"] = _split_estimate(state, sites) / 4.0
+    return min(estimates, key=estimates.get)
 
 
 def _mps_root(state, sites, method, budget, where) -> GradedRoot:
@@ -1060,6 +1269,11 @@ def _mps_root(state, sites, method, budget, where) -> GradedRoot:
                 f"{where}: the conserved charges do not fix the fermion parity of the open sites, so the "
                 "square-root route cannot place the parity strings; use method='zipper'"
             ) from None
+    if method == "split":
+        check_memory_budget(_split_estimate(state, sites), budget,
+                            f"{where}: the split walk over {len(sites)} sites")
+        rho = _rho_from_mps_split(state, sites, budget, where)
+        return _root_from_rho(rho, state.basis.space, sites, state.basis.conserve, "mps-split")
     check_memory_budget(_zipper_estimate(state, sites), budget,
                         f"{where}: the density-matrix zipper over {len(sites)} sites")
     rho = _rho_from_mps_zipper(state, sites)

@@ -73,6 +73,8 @@ __all__ = [
     "BlockLayout",
     "plan_cache_info",
     "clear_plan_cache",
+    "MatmulTally",
+    "matmul_tally",
 ]
 
 _REAL = np.dtype(np.float64)
@@ -622,6 +624,27 @@ def _contract_plan(legs_a, qa, legs_b, qb, rule, axes_a, axes_b) -> _ContractPla
     return _ContractPlan(legs, qkey, plan_a.perm, plan_b.perm, tuple(sectors))
 
 
+@dataclass
+class MatmulTally:
+    """Running count of the matrix products made by :func:`contract`.
+
+    ``flops`` counts real floating-point operations from the shapes of the fused sector matrices:
+    ``2 m k n`` for a real ``(m, k) @ (k, n)`` product, ``8 m k n`` for a complex one (a complex
+    multiply-add is four real multiplies and four real additions; common practice).
+    """
+
+    products: int = 0
+    flops: int = 0
+
+
+_TALLY = MatmulTally()
+
+
+def matmul_tally() -> MatmulTally:
+    """The running tally of matrix products (read it before and after a piece of work)."""
+    return _TALLY
+
+
 def plan_cache_info() -> dict:
     """Return hit and miss counts of the cached index plans (``functools`` cache statistics).
 
@@ -1096,6 +1119,8 @@ def contract(a: BlockTensor, b: BlockTensor, axes=2) -> BlockTensor:
         if mb is None:
             continue
         prod = ma @ mb
+        _TALLY.products += 1
+        _TALLY.flops += (8 if prod.dtype.kind == "c" else 2) * ma.shape[0] * ma.shape[1] * mb.shape[1]
         if len(out) == 1:
             blocks[out[0][0]] = prod.reshape(out[0][3])
         else:

@@ -302,8 +302,8 @@ def test_noninteracting_haldane_j_equals_free_fermion_value():
 
 # the dense zipper (chi^2 d^(2m) entries) runs on the smaller layouts only, to stay quick
 @pytest.mark.parametrize("name, overrides, parts, methods", [
-    ("kagome_chiral", {}, KAGOME_PARTS, ("root",)),
-    ("kagome_chiral", {}, {"A": [1, 7], "B": [3, 4], "C": [6, 10]}, ("root", "zipper")),
+    ("kagome_chiral", {}, KAGOME_PARTS, ("root", "split")),
+    ("kagome_chiral", {}, {"A": [1, 7], "B": [3, 4], "C": [6, 10]}, ("root", "zipper", "split")),
     ("haldane", {"length": "3", "circumference": "2", "V": "1.0"},
      {"A": [0, 4, 9], "B": [1, 5, 7], "C": [2, 3, 10]}, ("root",)),
     ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, {"A": [0, 9], "B": [2, 5], "C": [3, 7]},

@@ -293,13 +293,59 @@ def test_mps_routes_equal_the_dense_vector_route(name, overrides, sets):
     psi = state.to_vector()
     for sites in sets:
         ref = rdm.reduced_density_matrix(psi, sites, model.space)
-        for method in ("zipper", "root"):
+        methods = ("zipper", "root") if model.space.fermionic else ("zipper", "root", "split")
+        for method in methods:
             rho = rdm.reduced_density_matrix(state, sites, model.space, method=method)
             # gauge-invariant matrices, rounding only (common practice)
             assert np.allclose(rho, ref, atol=tol(factor=1e4)), (name, sites, method)
         w_root = rdm.reduced_root(state, sites, model.space, method="root").weights()
         w_ref = np.sort(np.linalg.eigvalsh(ref))[::-1][: len(w_root)]
         assert np.allclose(w_root, w_ref, atol=tol(factor=1e4))
+
+
+@pytest.mark.parametrize("name, overrides, sites", [
+    # gaps of traced sites on both walks, a set that starts and ends the chain, a single site
+    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, [1, 2, 5, 9, 10]),
+    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, [0, 11]),
+    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, [6]),
+    ("tfim", {"length": "10"}, [2, 3, 5, 8]),  # Z2 parity as the charge
+    ("kagome_chiral", {}, [0, 2, 3, 7, 8, 11]),  # complex couplings
+])
+def test_split_walks_equal_the_dense_vector_route(name, overrides, sites):
+    # reference: the partial trace of the dense state vector (common practice)
+    model = load_model(name, overrides)
+    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
+    ref = rdm.reduced_density_matrix(state.to_vector(), sites, model.space)
+    rho = rdm.reduced_density_matrix(state, sites, model.space, method="split")
+    assert np.allclose(rho, ref, atol=tol(factor=1e4))
+    assert rdm.reduced_root(state, sites, model.space, method="split").route == "mps-split"
+
+
+def test_split_walks_refuse_fermions_and_stay_within_their_estimate():
+    model = load_model("haldane", {"length": "3", "circumference": "2", "V": "1.0"})
+    state = random_state(model.hamiltonian, bond_dimension=8, rng=1)
+    with pytest.raises(NetprobeError, match="method='split' does not place fermion parity strings"):
+        rdm.reduced_root(state, [0, 3, 5], model.space, method="split")
+    spins = load_model("heisenberg", {"lattice": "square", "circumference": "4", "length": "6"})
+    state = random_state(spins.hamiltonian, bond_dimension=64, rng=2)
+    sites = (5, 6, 9, 10, 13, 14, 17)
+    estimate = rdm.estimate_rdm_memory(state, sites, spins.space, method="split")
+    seen = []
+    original = rdm._WalkMeter.check
+
+    def spy(meter, entries, site, width):
+        seen.append(entries * meter.itemsize)
+        return original(meter, entries, site, width)
+
+    rdm._WalkMeter.check = spy
+    try:
+        rdm.reduced_root(state, sites, spins.space, method="split", memory_budget=2**40)
+    finally:
+        rdm._WalkMeter.check = original
+    # every step's own check (actual sizes) stays within the up-front estimate (exact sector counts)
+    assert seen and max(seen) <= estimate * 1.0001
+    with pytest.raises(MemoryBudgetError, match="split walk over 7 sites"):
+        rdm.reduced_root(state, sites, spins.space, method="split", memory_budget=int(estimate / 2))
 
 
 def test_dmrg_ground_state_rdm_matches_exact_engine():

@@ -115,9 +115,13 @@ def test_dmrg_reaches_the_frustration_free_ground_state(toric):
 def test_kitaev_preskill_combination_gives_ln2(toric, stabilizer_entropy, spec):
     model, result, _ = toric
     layout = parse_region(spec, model.lattice)
+    # the square-root walk on purpose: its compressed leg stays as narrow as the stabilizer ranks
     report = measure_probes(result.state, layout, model.space, probes=("S", "TEE", "J"),
-                            memory_budget=BUDGET)
+                            memory_budget=BUDGET, method="root")
     assert report.route == "mps-root"
+    split = measure_probes(result.state, layout, model.space, probes=("S", "TEE"), memory_budget=BUDGET,
+                           method="split")
+    assert abs(split.gamma - report.gamma) < 1e-9  # the two walks agree to rounding (common practice)
     _check_entropies(report, layout, stabilizer_entropy)
     # S_A + S_B + S_C - S_AB - S_BC - S_CA + S_ABC = -gamma, gamma = ln 2 for the toric code
     # (A. Kitaev and J. Preskill, Phys. Rev. Lett. 96, 110404 (2006)); 1e-6 is the acceptance
