@@ -1,0 +1,390 @@
+"""The seven benchmarks of the suite. Each returns a list of :class:`Figure` (a ratio beside its target).
+
+Every ratio is taken from measurements made in the same run (see README.md in this folder): the
+matvec rate against the matrix-multiply rate measured minutes apart on the same cores, the
+charged sweep against the uncharged one, DMRG against the exact engine, and the time budgets of
+the issue as fractions (measured / allowed, target <= 1).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from benchmarks.machine import gemm_rate, usable_cores
+from benchmarks import workloads as wl
+
+__all__ = ["Figure", "Context", "BENCHMARKS"]
+
+GIB = 2**30
+
+
+@dataclass
+class Figure:
+    """One measured ratio and its target; ``sense`` is ">=" (at least) or "<=" (at most)."""
+
+    name: str
+    ratio: float | None
+    target: float
+    sense: str = ">="
+    details: dict = field(default_factory=dict)
+
+    @property
+    def met(self) -> bool:
+        if self.ratio is None or not math.isfinite(self.ratio):
+            return False
+        return self.ratio >= self.target if self.sense == ">=" else self.ratio <= self.target
+
+    def to_json(self) -> dict:
+        out = asdict(self)
+        out["met"] = self.met
+        return out
+
+
+@dataclass
+class Context:
+    """What the benchmarks of one run share: the mode, a scratch folder, the log and the ladder states."""
+
+    quick: bool
+    scratch: Path
+    log: callable = print
+    _ladder: wl.LadderRun | None = None
+
+    @property
+    def ladder_dims(self) -> tuple[int, ...]:
+        return (64, 128, 256, 512) if self.quick else (64, 128, 256, 512, 1024)
+
+    def ladder(self) -> wl.LadderRun:
+        """The width-6 Heisenberg cylinder ladder (length 6, 36 spins), built once per run."""
+        if self._ladder is None:
+            self.log("  building the width-6 Heisenberg ladder (two sweeps per rung, the second timed)")
+            self._ladder = wl.run_ladder_timed(wl.heisenberg_cylinder(6, 6), self.ladder_dims, log=self.log)
+        return self._ladder
+
+
+def _best_time(fn, repeats: int) -> float:
+    best = float("inf")
+    for _ in range(repeats):
+        start = time.perf_counter()
+        fn()
+        best = min(best, time.perf_counter() - start)
+    return best
+
+
+# ---- 1. effective-Hamiltonian application rate ------------------------------------------------
+
+
+def _matvec_rate(op, theta, repeats: int) -> tuple[float, float, int]:
+    from netprobe.tensor import matmul_tally
+
+    tally = matmul_tally()
+    with threadpool_limits(limits=1):
+        op.apply(theta)  # plans cached, buffers touched
+        before = tally.flops
+        op.apply(theta)
+        flops = tally.flops - before
+        seconds = _best_time(lambda: op.apply(theta), repeats)
+    return flops / seconds, seconds, flops
+
+
+def matvec_rate(ctx: Context) -> list[Figure]:
+    """Two-site matvec flop rate / complex GEMM rate, central bond, width-6 cylinder, D = 512."""
+    chi = 512
+    state = ctx.ladder().states[chi]
+    figures = []
+    charged = wl.central_operator(state, wl.heisenberg_cylinder(6, 6), np.complex128)
+    for charges, target in ((True, 0.5), (False, 0.7)):
+        op, theta = charged if charges else wl.dense_operator(*charged)
+        gemm_before = gemm_rate(np.complex128, 1024, threads=1)
+        rate, seconds, flops = _matvec_rate(op, theta, 3 if charges else 2)
+        gemm = max(gemm_before, gemm_rate(np.complex128, 1024, threads=1))
+        name = "matvec_rate_charges" if charges else "matvec_rate_no_charges"
+        ctx.log(f"    {name}: {flops / 1e9:.1f} GFlop in {seconds:.3f} s = {rate / 1e9:.1f} GFlop/s; "
+                f"complex GEMM 1024: {gemm / 1e9:.1f} GFlop/s")
+        figures.append(Figure(name, rate / gemm, target, details={
+            "bond_dimension": chi, "dtype": "complex128", "blas_threads": 1, "theta_blocks": len(theta.blocks),
+            "theta_size": op.size, "flops_per_matvec": flops, "seconds_per_matvec": seconds,
+            "matvec_gflops": rate / 1e9, "gemm_gflops": gemm / 1e9, "gemm_size": 1024}))
+    return figures
+
+
+# ---- 2. symmetry gain ---------------------------------------------------------------------------
+
+
+def symmetry_gain(ctx: Context) -> list[Figure]:
+    """Time of one sweep with U(1) charges vs without, from the same state, width-6 cylinder."""
+    from netprobe.dmrg.engine import DmrgEngine
+    from netprobe.mpo import build_mpo
+
+    chi = 128 if ctx.quick else 512
+    state = ctx.ladder().states[chi]
+    out = {}
+    for charges in (True, False):
+        ham = wl.heisenberg_cylinder(6, 6, charges=charges)
+        st = state if charges else wl.without_charges(state, ham)
+        engine = DmrgEngine(build_mpo(ham), st, wl.sweep_settings(chi), progress=None, blas_threads=1)
+        record = engine.sweep()
+        out[charges] = record
+        ctx.log(f"    sweep at D={chi} {'with' if charges else 'without'} charges: {record.seconds:.1f} s, "
+                f"{record.matvecs} matvecs, E = {record.energy:.8f}")
+    on, off = out[True], out[False]
+    return [Figure("symmetry_gain", off.seconds / on.seconds, 4.0, details={
+        "bond_dimension": chi, "seconds_with_charges": on.seconds, "seconds_without_charges": off.seconds,
+        "matvecs_with_charges": on.matvecs, "matvecs_without_charges": off.matvecs,
+        "per_matvec_gain": (off.seconds / off.matvecs) / (on.seconds / on.matvecs)})]
+
+
+# ---- 3. DMRG against exact diagonalisation ------------------------------------------------------
+
+
+def _exact_time(ham) -> tuple[float, float, str, int]:
+    from netprobe.exact import ground_state
+
+    start = time.perf_counter()
+    result = ground_state(ham, tol=1e-8)
+    seconds = time.perf_counter() - start
+    return seconds, float(result.energies[0]), str(result.method), int(result.basis.dim)
+
+
+def _dmrg_time_to(ham, exact_energy: float, relative: float) -> tuple[float, float, int, int]:
+    """Seconds until a sweep's energy is within ``relative`` of the exact one (default ramp to 512)."""
+    from netprobe.dmrg.engine import DmrgEngine, SweepSettings
+    from netprobe.mpo import build_mpo
+    from netprobe.mps import random_state
+
+    settings = SweepSettings(bond_dimension=512, max_sweeps=30, noise=1e-5, noise_sweeps=1,
+                             energy_tolerance=1e-12, discarded_tolerance=0.0 + 1e-12)
+    start = time.perf_counter()
+    engine = DmrgEngine(build_mpo(ham), random_state(ham, bond_dimension=16, rng=wl.SEED), settings,
+                        progress=None)
+    while True:
+        record = engine.sweep()
+        error = abs(record.energy - exact_energy) / abs(exact_energy)
+        if error <= relative or engine.finished:
+            return time.perf_counter() - start, error, len(engine.history), record.max_bond_dimension
+
+
+def exact_crossover(ctx: Context) -> list[Figure]:
+    """Time to 1e-6 relative energy error: exact engine vs DMRG, width-4 Heisenberg cylinders."""
+    from netprobe.errors import MemoryBudgetError
+    from netprobe.exact import ground_state
+
+    lengths = (4, 5, 6) if ctx.quick else (4, 5, 6, 7)
+    ground_state(wl.heisenberg_cylinder(4, 2))  # compile the numba kernels outside the timing
+    rows = []
+    for length in lengths:
+        ham = wl.heisenberg_cylinder(4, length)
+        n = 4 * length
+        try:
+            t_exact, e_exact, method, dim = _exact_time(ham)
+        except MemoryBudgetError as err:  # the exact engine's own estimate: it does not fit here
+            ctx.log(f"    {n} spins: the exact engine does not fit ({err}); stopped")
+            break
+        t_dmrg, error, sweeps, bond = _dmrg_time_to(ham, e_exact, 1e-6)
+        row = {"spins": n, "sector_dimension": dim, "exact_seconds": t_exact, "exact_method": method,
+               "exact_energy": e_exact, "dmrg_seconds": t_dmrg, "dmrg_relative_error": error,
+               "dmrg_sweeps": sweeps, "dmrg_bond_dimension": bond, "speedup": t_exact / t_dmrg}
+        rows.append(row)
+        ctx.log(f"    {n} spins (sector {dim}): exact {t_exact:.1f} s ({method}), DMRG {t_dmrg:.1f} s "
+                f"({sweeps} sweeps, D={bond}, error {error:.1e}): DMRG {t_exact / t_dmrg:.2f}x faster")
+    faster = [r["spins"] for r in rows if r["speedup"] > 1]
+    crossover = next((r["spins"] for r in rows if all(s["speedup"] > 1 for s in rows if s["spins"] >= r["spins"])),
+                     None)
+    figures = []
+    at24 = [r for r in rows if r["spins"] == 24]
+    if at24:
+        figures.append(Figure("exact_vs_dmrg_24_spins", at24[0]["speedup"], 1.0,
+                              details={"crossover_spins": crossover, "faster_at": faster, "rows": rows}))
+    if not ctx.quick:  # the quick set stops at 24 spins by choice, not where the exact engine stops
+        largest = rows[-1]
+        figures.append(Figure("exact_vs_dmrg_largest", largest["speedup"], 5.0,
+                              details={"spins": largest["spins"], "crossover_spins": crossover, "rows": rows}))
+    return figures
+
+
+# ---- 4. cost growth -----------------------------------------------------------------------------
+
+
+def cost_growth(ctx: Context) -> list[Figure]:
+    """Fitted exponent of time per sweep against bond dimension (the ladder's timed sweeps).
+
+    The sweeps of a ladder need fewer Lanczos steps as the state converges, which would flatter
+    the raw exponent; the figure is therefore the exponent of the time per sweep at equal Lanczos
+    work (time per matvec times the matvecs of the first sweep compared), the raw one beside it.
+    """
+    run = ctx.ladder()
+    dims = (128, 256, 512) if ctx.quick else (256, 512, 1024)
+    t = np.array([run.sweep_seconds[d] for d in dims])
+    equal_work = np.array([run.sweep_seconds[d] / run.matvecs[d] * run.matvecs[dims[0]] for d in dims])
+    raw = float(np.polyfit(np.log(dims), np.log(t), 1)[0])
+    slope = float(np.polyfit(np.log(dims), np.log(equal_work), 1)[0])
+    ctx.log(f"    time per sweep {dict(zip(dims, np.round(t, 2).tolist()))} s, matvecs "
+            f"{[run.matvecs[d] for d in dims]}: exponent {slope:.2f} at equal Lanczos work ({raw:.2f} raw)")
+    return [Figure("cost_exponent", slope, 3.2, "<=", details={
+        "bond_dimensions": list(dims), "sweep_seconds": t.tolist(), "equal_work_seconds": equal_work.tolist(),
+        "matvecs": [run.matvecs[d] for d in dims], "raw_exponent": raw})]
+
+
+# ---- 5. reduced density matrices and J ----------------------------------------------------------
+
+
+def _run_measured(args: list[str]) -> tuple[dict, float, int]:
+    """Run ``python -m benchmarks.rdm_probe ...`` and return its JSON, wall seconds and peak RSS bytes."""
+    env = dict(os.environ)
+    env["PYTHONPATH"] = os.pathsep.join([str(Path(__file__).resolve().parent.parent), env.get("PYTHONPATH", "")])
+    start = time.perf_counter()
+    proc = subprocess.Popen([sys.executable, "-m", "benchmarks.rdm_probe", *args], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, env=env, text=True)
+    out, err = proc.communicate()
+    seconds = time.perf_counter() - start
+    if proc.returncode != 0:
+        raise RuntimeError(f"rdm_probe {' '.join(args)} failed: {err.strip().splitlines()[-1:]}")
+    data = json.loads(out)
+    return data, seconds, int(data["peak_rss_bytes"])
+
+
+def rdm_and_j(ctx: Context) -> list[Figure]:
+    """Time and peak memory of the reduced state and J of 10, 12, 14 sites from a D=512 state."""
+    from netprobe.store import save_state
+
+    state = ctx.ladder().states[512]
+    path = ctx.scratch / "heisenberg_w6_L6_D512.h5"
+    save_state(path, state, info={"bond_dimension": 512})
+    sizes = (10, 12) if ctx.quick else (10, 12, 14)
+    figures = []
+    for n in sizes:
+        data, wall, peak = _run_measured([str(path), str(n)])
+        ctx.log(f"    {n} sites: {data['seconds']:.1f} s for the reduced state and J (J = {data['J']:.3e}), "
+                f"process {wall:.1f} s, peak memory {peak / GIB:.2f} GiB")
+        details = {"sites": n, "seconds": data["seconds"], "process_seconds": wall, "peak_rss_gib": peak / GIB,
+                   "J": data["J"], "route": data["route"], "parts": data["parts"], "bond_dimension": 512}
+        if n == 12:
+            figures.append(Figure("rdm_j_12_sites_time_vs_60s", data["seconds"] / 60.0, 1.0, "<=", details))
+            figures.append(Figure("rdm_j_12_sites_memory_vs_4GB", peak / 4e9, 1.0, "<=", details))
+        elif n == 14:
+            figures.append(Figure("rdm_j_14_sites_memory_vs_16GB", peak / 16e9, 1.0, "<=", details))
+        else:
+            figures.append(Figure(f"rdm_j_{n}_sites_time_vs_60s", data["seconds"] / 60.0, 1.0, "<=", details))
+    return figures
+
+
+# ---- 6. free fermions ---------------------------------------------------------------------------
+
+
+def _sectors_of_size(lattice, size: int):
+    """Three-sector disk about the default centre whose radius takes the ``size`` nearest sites."""
+    from netprobe.regions import _displacements, build_layout, default_center
+
+    d = np.sort(np.linalg.norm(_displacements(lattice, default_center(lattice)), axis=1))
+    radius = 0.5 * (d[size - 1] + d[size]) if d[size] > d[size - 1] + 1e-6 else d[size - 1] + 1e-6
+    return build_layout(lattice, "sectors", radius=float(radius))
+
+
+def free_fermions(ctx: Context) -> list[Figure]:
+    """J and the real-space Chern number of Haldane-model disks of about 100, 400 and 1600 sites."""
+    from netprobe.gaussian import gaussian_state
+    from netprobe.spec import load_model
+
+    # 44 x 36 zigzag cells (3168 sites) hold a 1600-site disk with margins of several bonds; the twist
+    # of 1 rad keeps the two edge modes of the cylinder away from zero energy (a unique ground state)
+    start = time.perf_counter()
+    model = load_model("haldane", {"length": "44", "circumference": "36", "twist": "1.0"})
+    state = gaussian_state(model)
+    prepare = time.perf_counter() - start
+    ctx.log(f"    ground state of {model.lattice.num_sites} sites: {prepare:.1f} s")
+    figures = []
+    for size in (100, 400, 1600):
+        layout = _sectors_of_size(model.lattice, size)
+        a, b, c = (list(layout[k]) for k in "ABC")
+        start = time.perf_counter()
+        j = state.modular_commutator(a, b, c)
+        nu = state.chern_number(a, b, c)
+        seconds = time.perf_counter() - start
+        n = len(a) + len(b) + len(c)
+        ctx.log(f"    {n} sites: J = {j:.6f} (c- = {3 * j / math.pi:.4f}), Chern number {nu:.6f}: {seconds:.2f} s")
+        figures.append(Figure(f"free_fermion_{size}_sites_time_vs_10s", seconds / 10.0, 1.0, "<=", {
+            "sites": n, "seconds": seconds, "J": j, "chern_number": nu, "ground_state_seconds": prepare,
+            "lattice_sites": model.lattice.num_sites}))
+    return figures
+
+
+# ---- 7. study throughput ------------------------------------------------------------------------
+
+_THROUGHPUT_STUDY = """
+[study]
+name = "throughput"
+description = "invented batch of independent points for the throughput benchmark"
+model = "heisenberg"
+engine = "dmrg"
+seed = 7
+
+[set]
+lattice = "square"
+circumference = 4
+length = {length}
+
+[grid]
+J2 = {{ values = {points} }}
+
+[ladder]
+bond_dimensions = [{chi}]
+variance = false
+noise_sweeps = 0
+max_sweeps = 4
+
+[measure]
+probes = ["energy"]
+
+[executor]
+attempts = 1
+"""
+
+
+def study_throughput(ctx: Context) -> list[Figure]:
+    """Points per second with 2 local workers against 1, on independent DMRG points."""
+    from netprobe.study.description import parse_study
+    from netprobe.study.executors import LocalExecutor, run_study
+
+    count = 6 if ctx.quick else 8
+    points = [round(0.05 * k, 2) for k in range(count)]
+    text = _THROUGHPUT_STUDY.format(length=6 if ctx.quick else 8, chi=48 if ctx.quick else 64, points=points)
+    seconds = {}
+    # warm-up (not timed): the first run of a process tree pays one-time costs (bytecode, numba and
+    # file-system caches) that would otherwise count against whichever worker count came first
+    warm = parse_study(_THROUGHPUT_STUDY.format(length=4, chi=8, points=[0.0, 0.1]))
+    run_study(warm, Path(tempfile.mkdtemp(prefix="warmup_", dir=ctx.scratch)),
+              executor=LocalExecutor(workers=2, blas_threads=1), progress=None)
+    for workers in (1, 2):
+        description = parse_study(text)
+        folder = Path(tempfile.mkdtemp(prefix=f"throughput{workers}_", dir=ctx.scratch))
+        start = time.perf_counter()
+        run = run_study(description, folder, executor=LocalExecutor(workers=workers, blas_threads=1),
+                        progress=None)
+        seconds[workers] = time.perf_counter() - start
+        ctx.log(f"    {count} points with {workers} worker(s): {seconds[workers]:.1f} s")
+        if run.counts["done"] != count:
+            raise RuntimeError(f"throughput study finished {run.counts} with {workers} worker(s)")
+    cores = usable_cores()
+    return [Figure("study_throughput_2_vs_1_workers", seconds[1] / seconds[2], 1.7, details={
+        "points": count, "seconds_1_worker": seconds[1], "seconds_2_workers": seconds[2], "cores": cores})]
+
+
+BENCHMARKS = {
+    "matvec": matvec_rate,
+    "symmetry": symmetry_gain,
+    "exact": exact_crossover,
+    "cost": cost_growth,
+    "rdm": rdm_and_j,
+    "free_fermions": free_fermions,
+    "study": study_throughput,
+}
