@@ -371,3 +371,39 @@ def test_bad_input_raises_our_errors(tmp_path):
     one = load_model("tfim", {"length": "1"})
     with pytest.raises(NetprobeError, match="at least 2 sites"):
         find_ground_state(one, **_quiet())
+
+
+def test_one_block_fast_path_equals_the_block_contractions_and_the_exact_energy():
+    # charges switched off: every tensor is one dense block and the matvec takes the fast path
+    from netprobe.dmrg.effective import TwoSiteHamiltonian
+    from netprobe.mps import BlockMPO
+    from netprobe.tensor import BlockLayout, contract
+    from netprobe.terms import Hamiltonian
+
+    charged = load_model("kagome_chiral", {}).hamiltonian  # complex couplings
+    ham = Hamiltonian(charged.lattice, charged.space, charged.products, conserve=(), sector={})
+    result = find_ground_state(ham, SweepSettings(bond_dimension=64, max_sweeps=12), seed=4, progress=None)
+    reference = exact.ground_state(charged).energies[0]
+    # two-site DMRG at a bond dimension that truncates nothing on 12 sites: energy to the solver tolerance
+    assert abs(result.energy - reference) < 1e-8 * abs(reference)
+    state = result.state
+    mpo = BlockMPO.from_mpo(build_mpo(ham), state.basis)
+    state.move_centre(5)
+    left = [None] * 7
+    from netprobe.mps import left_boundary, left_environment_step, right_boundary, right_environment_step
+    left[0] = left_boundary(state, mpo)
+    for i in range(5):
+        left[i + 1] = left_environment_step(left[i], state.tensors[i], mpo.tensors[i])
+    right = right_boundary(state, mpo)
+    for i in range(state.num_sites - 1, 6, -1):
+        right = right_environment_step(right, state.tensors[i], mpo.tensors[i])
+    theta = contract(state.tensors[5], state.tensors[6], ([2], [0]))
+    op = TwoSiteHamiltonian(left[5], mpo.tensors[5], mpo.tensors[6], right,
+                            BlockLayout(theta.legs, None, state.basis.rule, theta.dtype))
+    assert op._dense_factors() is not None
+    fast = op.apply(theta).to_dense()
+    op._dense = None  # the general route: one matrix product per contraction
+    slow = op.apply(theta).to_dense()
+    assert np.allclose(fast, slow, atol=1e-12)  # rounding only (common practice)
+    # <theta|H|theta> is the energy of the normalised state with its centre on the bond
+    assert abs(np.vdot(theta.to_dense(), slow).real - result.energy) < 1e-8

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from netprobe.tensor import BlockLayout, BlockTensor, contract
+from netprobe.tensor import BlockLayout, BlockTensor, contract, matmul_tally
 
 __all__ = ["TwoSiteHamiltonian", "OneSiteHamiltonian"]
 
@@ -47,8 +47,52 @@ class TwoSiteHamiltonian:
         self.size = layout.size
         self.dtype = np.result_type(layout.dtype, left.dtype, w1.dtype, w2.dtype, right.dtype)
 
+    def _dense_factors(self):
+        """Matrices of the one-block (no charge) fast path, built once per operator; None otherwise.
+
+        ``L`` as ``[(a*, w), a]``, the two MPO tensors joined into ``M^T[(s1', s2', v), (w, s1, s2)]``
+        (``D_w^2 d^4`` entries, tiny) and ``R`` as ``[(v, b), b*]``. Then ``L theta`` has the legs
+        ``(a*, w, s1, s2, b)`` with ``(w, s1, s2)`` contiguous, so the MPO step is one batched product
+        over ``a*`` and the last step contracts the trailing ``(v, b)``: no large transposes.
+        """
+        if not hasattr(self, "_dense"):
+            tensors = (self.left, self.w1, self.w2, self.right)
+            self._dense = None
+            if all(len(t.blocks) == 1 for t in tensors) and len(self.layout.legs) == 4 and all(
+                    leg.n_sectors == 1 for leg in self.layout.legs):
+                (left,), (w1,), (w2,), (right,) = (tuple(t.blocks.values()) for t in tensors)
+                if left.shape == tuple(leg.dim for leg in self.left.legs):
+                    dw, d1, d2 = left.shape[2], w1.shape[1], w2.shape[1]
+                    chi_l, chi_r = left.shape[0], right.shape[2]
+                    lmat = np.ascontiguousarray(left.transpose(0, 2, 1)).reshape(chi_l * dw, left.shape[1])
+                    w12 = np.einsum("wabu,ucdv->acvwbd", w1, w2)  # (s1', s2', v, w, s1, s2)
+                    mt = np.ascontiguousarray(w12.reshape(d1 * d2 * w2.shape[3], dw * w1.shape[2] * w2.shape[2]))
+                    rmat = np.ascontiguousarray(right.transpose(1, 0, 2)).reshape(-1, chi_r)
+                    self._dense = (lmat, mt, rmat, (chi_l, dw, d1, d2, w2.shape[3], chi_r))
+        return self._dense
+
+    def _apply_dense(self, theta: BlockTensor, factors) -> BlockTensor:
+        lmat, mt, rmat, (chi_l, dw, d1, d2, dv, chi_r) = factors
+        (key, blk), = theta.blocks.items()
+        a, s1, s2, b = blk.shape
+        x = lmat @ blk.reshape(a, s1 * s2 * b)  # (a*, w, s1, s2, b)
+        y = np.matmul(mt, x.reshape(chi_l, dw * s1 * s2, b))  # (a*, s1', s2', v, b)
+        out = y.reshape(chi_l * d1 * d2, dv * b) @ rmat  # (a*, s1', s2', b*)
+        tally = matmul_tally()
+        unit = 8 if out.dtype.kind == "c" else 2
+        tally.products += 3
+        tally.flops += unit * (lmat.shape[0] * lmat.shape[1] * s1 * s2 * b
+                               + chi_l * mt.shape[0] * mt.shape[1] * b
+                               + chi_l * d1 * d2 * rmat.shape[0] * chi_r)
+        legs = (self.left.legs[0], self.w1.legs[1], self.w2.legs[1], self.right.legs[2])
+        return BlockTensor._new(legs, theta._qkey, theta.rule, {key: out.reshape(chi_l, d1, d2, chi_r)},
+                                out.dtype)
+
     def apply(self, theta: BlockTensor) -> BlockTensor:
         """``H_eff theta`` with the legs of ``theta``."""
+        factors = self._dense_factors()
+        if factors is not None and len(theta.blocks) == 1:
+            return self._apply_dense(theta, factors)
         x = contract(self.left, theta, ([1], [0]))  # (a*, w, s1, s2, b)
         x = contract(x, self.w1, ([1, 2], [0, 2]))  # (a*, s2, b, s1', u)
         x = contract(x, self.w2, ([4, 1], [0, 2]))  # (a*, b, s1', s2', v)
