@@ -484,7 +484,7 @@ def measure_probes(state, layout_parts, space: SiteSpace, *, probes: Sequence[st
         Kernel floor of the modular Hamiltonians (J is also reported at ``100 eps``).
     memory_budget : int, optional
         Bytes; default :func:`netprobe.rdm.default_memory_budget`.
-    method : {"auto", "root", "zipper"}
+    method : {"auto", "root", "zipper", "split"}
         Route for an MPS (see :func:`netprobe.rdm.reduced_root`).
     renyi_orders : sequence of float
         Also report Renyi entropies of these orders for every region computed.
