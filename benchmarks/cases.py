@@ -64,11 +64,14 @@ class Context:
     def ladder_dims(self) -> tuple[int, ...]:
         return (64, 128, 256, 512) if self.quick else (64, 128, 256, 512, 1024)
 
-    def ladder(self) -> wl.LadderRun:
-        """The width-6 Heisenberg cylinder ladder (length 6, 36 spins), built once per run."""
-        if self._ladder is None:
-            self.log("  building the width-6 Heisenberg ladder (two sweeps per rung, the second timed)")
-            self._ladder = wl.run_ladder_timed(wl.heisenberg_cylinder(6, 6), self.ladder_dims, log=self.log)
+    def ladder(self, up_to: int | None = None) -> wl.LadderRun:
+        """The width-6 Heisenberg cylinder ladder (length 6, 36 spins) up to ``up_to``, built once per run."""
+        dims = tuple(d for d in self.ladder_dims if up_to is None or d <= up_to)
+        if self._ladder is None or any(d not in self._ladder.states for d in dims):
+            self.log(f"  building the width-6 Heisenberg ladder up to D={dims[-1]} (two sweeps per rung, "
+                     "the second timed)")
+            self._ladder = wl.run_ladder_timed(wl.heisenberg_cylinder(6, 6), dims, log=self.log,
+                                               previous=self._ladder)
         return self._ladder
 
 
@@ -100,7 +103,7 @@ def _matvec_rate(op, theta, repeats: int) -> tuple[float, float, int]:
 def matvec_rate(ctx: Context) -> list[Figure]:
     """Two-site matvec flop rate / complex GEMM rate, central bond, width-6 cylinder, D = 512."""
     chi = 512
-    state = ctx.ladder().states[chi]
+    state = ctx.ladder(chi).states[chi]
     figures = []
     charged = wl.central_operator(state, wl.heisenberg_cylinder(6, 6), np.complex128)
     for charges, target in ((True, 0.5), (False, 0.7)):
@@ -127,7 +130,7 @@ def symmetry_gain(ctx: Context) -> list[Figure]:
     from netprobe.mpo import build_mpo
 
     chi = 128 if ctx.quick else 512
-    state = ctx.ladder().states[chi]
+    state = ctx.ladder(chi).states[chi]
     out = {}
     for charges in (True, False):
         ham = wl.heisenberg_cylinder(6, 6, charges=charges)
@@ -257,7 +260,7 @@ def rdm_and_j(ctx: Context) -> list[Figure]:
     """Time and peak memory of the reduced state and J of 10, 12, 14 sites from a D=512 state."""
     from netprobe.store import save_state
 
-    state = ctx.ladder().states[512]
+    state = ctx.ladder(512).states[512]
     path = ctx.scratch / "heisenberg_w6_L6_D512.h5"
     save_state(path, state, info={"bond_dimension": 512})
     sizes = (10, 12) if ctx.quick else (10, 12, 14)
@@ -357,7 +360,8 @@ def study_throughput(ctx: Context) -> list[Figure]:
 
     count = 6 if ctx.quick else 8
     points = [round(0.05 * k, 2) for k in range(count)]
-    text = _THROUGHPUT_STUDY.format(length=6 if ctx.quick else 8, chi=48 if ctx.quick else 64, points=points)
+    # points of a few seconds each, so that starting the worker processes is a small part of the time
+    text = _THROUGHPUT_STUDY.format(length=8, chi=64, points=points)
     seconds = {}
     # warm-up (not timed): the first run of a process tree pays one-time costs (bytecode, numba and
     # file-system caches) that would otherwise count against whichever worker count came first
