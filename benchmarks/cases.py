@@ -358,7 +358,7 @@ def study_throughput(ctx: Context) -> list[Figure]:
     from netprobe.study.description import parse_study
     from netprobe.study.executors import LocalExecutor, run_study
 
-    count = 6 if ctx.quick else 8
+    count = 8  # four rounds of two: the start of the worker processes is shared over more points
     points = [round(0.05 * k, 2) for k in range(count)]
     # points of a few seconds each, so that starting the worker processes is a small part of the time
     text = _THROUGHPUT_STUDY.format(length=8, chi=64, points=points)
