@@ -9,7 +9,7 @@ import time
 import numpy as np
 from threadpoolctl import threadpool_info, threadpool_limits
 
-__all__ = ["describe", "gemm_rate", "usable_cores"]
+__all__ = ["describe", "gemm_rate", "usable_cores", "proc_kib"]
 
 
 def usable_cores() -> int:
@@ -31,15 +31,20 @@ def _cpu_model() -> str:
     return platform.processor() or platform.machine()
 
 
-def _memory_bytes() -> int | None:
+def proc_kib(path: str, key: str) -> int | None:
+    """The ``key:`` line of a /proc status file such as /proc/meminfo, in bytes (None if absent)."""
     try:
-        with open("/proc/meminfo", encoding="utf-8") as handle:
+        with open(path, encoding="utf-8") as handle:
             for line in handle:
-                if line.startswith("MemTotal:"):
+                if line.startswith(key + ":"):
                     return int(line.split()[1]) * 1024
     except OSError:
         pass
     return None
+
+
+def _memory_bytes() -> int | None:
+    return proc_kib("/proc/meminfo", "MemTotal")
 
 
 def describe() -> dict:

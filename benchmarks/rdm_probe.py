@@ -33,14 +33,10 @@ def disk_parts(lattice, n: int) -> dict[str, list[int]]:
 
 def _peak_rss() -> int:
     """Peak resident bytes of this process since exec (VmHWM; getrusage where /proc is missing)."""
-    try:
-        with open("/proc/self/status", encoding="ascii") as handle:
-            for line in handle:
-                if line.startswith("VmHWM:"):
-                    return int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    from benchmarks.machine import proc_kib
+
+    peak = proc_kib("/proc/self/status", "VmHWM")
+    return peak if peak is not None else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 
 
 def main(argv=None) -> int:

@@ -9,7 +9,6 @@ structure, which the ladder gives.
 
 from __future__ import annotations
 
-import time
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -92,8 +91,12 @@ class LadderRun:
 
 
 def run_ladder_timed(ham: Hamiltonian, bond_dimensions, *, log=print, start: MPS | None = None,
-                     seed: int = SEED, previous: LadderRun | None = None) -> LadderRun:
-    """Two sweeps per rung (the first grows the bonds, the second is timed), each rung from the last."""
+                     seed: int = SEED, previous: LadderRun | None = None, timed=None) -> LadderRun:
+    """Two sweeps per rung (the first grows the bonds, the second is timed), each rung from the last.
+
+    ``timed`` (default: every rung) lists the rungs that get the timed second sweep; the others
+    only grow.
+    """
     from netprobe.mps import random_state
 
     run = previous or LadderRun()
@@ -103,16 +106,18 @@ def run_ladder_timed(ham: Hamiltonian, bond_dimensions, *, log=print, start: MPS
         if chi in run.states:
             state = run.states[chi]
             continue
+        two = timed is None or chi in timed
         engine = DmrgEngine(mpo, state, sweep_settings(chi, max_sweeps=2, min_sweeps=2), progress=None,
                             blas_threads=1)
-        engine.sweep()
         record = engine.sweep()
+        if two:
+            record = engine.sweep()
         state = engine.state
         run.states[chi] = state
         run.sweep_seconds[chi] = record.seconds
         run.matvecs[chi] = record.matvecs
         run.energies[chi] = record.energy
-        log(f"    ladder D={chi}: timed sweep {record.seconds:.1f} s, {record.matvecs} matvecs, "
+        log(f"    ladder D={chi}: {'timed' if two else 'growing (untimed)'} sweep {record.seconds:.1f} s, {record.matvecs} matvecs, "
             f"E = {record.energy:.8f}, largest bond {record.max_bond_dimension}")
     return run
 

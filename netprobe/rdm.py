@@ -632,6 +632,16 @@ def _fused_sizes(legs, rule) -> dict:
     return out
 
 
+def _pairs_by_charge(first: Leg, second: Leg, rule: ChargeRule) -> dict:
+    """Sector pairs ``(i, j)`` of two legs (``first`` outer, ``second`` inner) grouped by summed charge."""
+    groups: dict = {}
+    for i in range(first.n_sectors):
+        for j in range(second.n_sectors):
+            q = tuple(rule.reduce(first.charges[i] + second.charges[j]).tolist())
+            groups.setdefault(q, []).append((i, j))
+    return groups
+
+
 def _fuse_tables(a: dict, b: dict, rule: ChargeRule) -> dict:
     """Charge -> dimension of the product of two charge -> dimension tables."""
     out: dict = {}
@@ -990,11 +1000,7 @@ def _bond_identity(bond: Leg, rule: ChargeRule, dtype) -> BlockTensor:
 
 def _fused_open_leg(o_leg: Leg, s_leg: Leg, o_codes, s_codes, code_of, rule: ChargeRule):
     """Sectors, placements and codes of the open leg after one more site (see :func:`_double_layer_step`)."""
-    groups: dict = {}
-    for so in range(o_leg.n_sectors):
-        for ss in range(s_leg.n_sectors):
-            q = tuple(rule.reduce(o_leg.charges[so] + s_leg.charges[ss]).tolist())
-            groups.setdefault(q, []).append((so, ss))
+    groups = _pairs_by_charge(o_leg, s_leg, rule)
     charges = sorted(groups)
     place, dims, codes = {}, [], []
     for n, q in enumerate(charges):
@@ -1081,24 +1087,16 @@ def _split_estimate(state, sites: tuple[int, ...]) -> float:
     rule = basis.rule
     d = basis.dim
     item = np.dtype(state.dtype).itemsize
-    local = [tuple(q) for q in np.asarray(basis.charges).tolist()]
+    phys = _bond_counts(basis.leg)
+    zero = tuple(rule.zero().tolist())
     m = _split_point(sites)
 
     def layer(open_count: int, bond: Leg, sign: int) -> float:
-        counts = {tuple([0] * rule.k): 1}
+        opens = {zero: 1}
         for _ in range(open_count):
-            nxt: dict = {}
-            for q, c in counts.items():
-                for lq in local:
-                    key = tuple(rule.reduce(np.add(q, lq)).tolist())
-                    nxt[key] = nxt.get(key, 0) + c
-            counts = nxt
-        sizes: dict = {}
-        for q, c in counts.items():
-            for bq, bd in zip(bond.charges.tolist(), bond.dims.tolist()):
-                key = tuple(rule.reduce(np.add(q, sign * np.asarray(bq))).tolist())
-                sizes[key] = sizes.get(key, 0) + c * bd
-        return float(sum(v * v for v in sizes.values()))
+            opens = _fuse_tables(phys, opens, rule)
+        bond_table = {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}
+        return float(sum(n * n for n in _fuse_tables(opens, bond_table, rule).values()))
 
     k_left = sum(1 for s in sites if s <= m)
     bond = state.tensors[m].legs[2]
@@ -1182,11 +1180,7 @@ def _fuse_open(t: BlockTensor, opened: _OpenLeg, phys_codes, phys_parity, d: int
     """Fuse the legs ``s`` (new leftmost open site) and ``O`` of ``t[a', s, O, e]`` into one open leg."""
     rule = t.rule
     s_leg, o_leg = t.legs[1], t.legs[2]
-    groups: dict = {}
-    for ss in range(s_leg.n_sectors):
-        for so in range(o_leg.n_sectors):
-            q = tuple(rule.reduce(s_leg.charges[ss] + o_leg.charges[so]).tolist())
-            groups.setdefault(q, []).append((ss, so))
+    groups = _pairs_by_charge(s_leg, o_leg, rule)
     charges = sorted(groups)
     place, dims, codes, parity = {}, [], [], []
     shift = d**opened.sites

@@ -636,6 +636,11 @@ class MatmulTally:
     products: int = 0
     flops: int = 0
 
+    def record(self, m: int, k: int, n: int, is_complex: bool, count: int = 1) -> None:
+        """Count ``count`` products of shape ``(m, k) @ (k, n)``."""
+        self.products += count
+        self.flops += (8 if is_complex else 2) * m * k * n * count
+
 
 _TALLY = MatmulTally()
 
@@ -1119,8 +1124,7 @@ def contract(a: BlockTensor, b: BlockTensor, axes=2) -> BlockTensor:
         if mb is None:
             continue
         prod = ma @ mb
-        _TALLY.products += 1
-        _TALLY.flops += (8 if prod.dtype.kind == "c" else 2) * ma.shape[0] * ma.shape[1] * mb.shape[1]
+        _TALLY.record(ma.shape[0], ma.shape[1], mb.shape[1], prod.dtype.kind == "c")
         if len(out) == 1:
             blocks[out[0][0]] = prod.reshape(out[0][3])
         else:

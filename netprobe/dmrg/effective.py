@@ -79,11 +79,10 @@ class TwoSiteHamiltonian:
         y = np.matmul(mt, x.reshape(chi_l, dw * s1 * s2, b))  # (a*, s1', s2', v, b)
         out = y.reshape(chi_l * d1 * d2, dv * b) @ rmat  # (a*, s1', s2', b*)
         tally = matmul_tally()
-        unit = 8 if out.dtype.kind == "c" else 2
-        tally.products += 3
-        tally.flops += unit * (lmat.shape[0] * lmat.shape[1] * s1 * s2 * b
-                               + chi_l * mt.shape[0] * mt.shape[1] * b
-                               + chi_l * d1 * d2 * rmat.shape[0] * chi_r)
+        is_complex = out.dtype.kind == "c"
+        tally.record(lmat.shape[0], lmat.shape[1], s1 * s2 * b, is_complex)
+        tally.record(mt.shape[0], mt.shape[1], b, is_complex, count=chi_l)  # the batched product, one per a*
+        tally.record(chi_l * d1 * d2, rmat.shape[0], chi_r, is_complex)
         legs = (self.left.legs[0], self.w1.legs[1], self.w2.legs[1], self.right.legs[2])
         return BlockTensor._new(legs, theta._qkey, theta.rule, {key: out.reshape(chi_l, d1, d2, chi_r)},
                                 out.dtype)

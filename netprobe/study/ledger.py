@@ -147,8 +147,8 @@ def process_alive(pid: int) -> bool:
     except OSError:
         return True  # no /proc (not Linux) or the process just vanished: signal 0 said it exists
     # the state letter follows the command name, which is in parentheses and may contain spaces
-    state = stat[stat.rfind(b")") + 2 : stat.rfind(b")") + 3]
-    return state not in (b"Z", b"X")
+    end = stat.rfind(b")")
+    return stat[end + 2 : end + 3] not in (b"Z", b"X")
 
 
 def ledger_path(folder) -> Path:
