@@ -355,7 +355,9 @@ def cmd_probe(args) -> int:
     """Bulk probes on a region of a saved state or of a model's ground state."""
     from pathlib import Path
 
-    from netprobe.bulk import probe_model, probe_saved_state
+    from netprobe.engines import SolveSettings
+    from netprobe.pipeline import probe_model, probe_saved_state
+    from netprobe.spec import parse_overrides
 
     probes = [p for p in args.probes.split(",") if p.strip()]
     budget = None
@@ -372,22 +374,28 @@ def cmd_probe(args) -> int:
         if args.overrides:
             raise NetprobeError("--set applies to model sources; a state file carries its own parameters")
         result = probe_saved_state(source, args.region, probes=probes, eps=args.eps, memory_budget=budget)
-        model = None
     else:
-        from netprobe.spec import parse_overrides
-
         model = _load(args)
-        chis = _bond_dimensions(args.bond_dimension)
-        result = probe_model(model, args.region, engine=args.engine, probes=probes, bond_dimensions=chis,
-                             sweeps=args.sweeps, seed=args.seed, overrides=parse_overrides(args.overrides),
-                             out=args.out, eps=args.eps, memory_budget=budget, progress=sys.stderr,
-                             cmi_region=args.cmi_region)
-    lines = _probe_lines(result)
+        settings = _solve_settings(args, parse_overrides(args.overrides))
+        result = probe_model(model, args.region, engine=args.engine, probes=probes, settings=settings,
+                             eps=args.eps, memory_budget=budget, cmi_region=args.cmi_region)
+    payload = result.to_json()
+    lines = _probe_lines(payload)
     if args.plot:
-        _plot_probe(result, args, model)
+        _plot_probe(result, args.plot)
         lines.append(f"plot written to {args.plot}")
-    _emit(args, result, lines)
+    _emit(args, payload, lines)
     return 0
+
+
+def _solve_settings(args, overrides):
+    from netprobe.dmrg import SweepSettings
+    from netprobe.engines import SolveSettings
+
+    return SolveSettings(bond_dimensions=_bond_dimensions(args.bond_dimension),
+                         sweeps=SweepSettings(max_sweeps=args.sweeps) if args.sweeps else None,
+                         seed=args.seed, out=getattr(args, "out", None), progress=sys.stderr,
+                         overrides=overrides)
 
 
 def _probe_lines(r: dict) -> list[str]:
@@ -418,39 +426,19 @@ def _probe_lines(r: dict) -> list[str]:
     return lines
 
 
-def _plot_probe(result: dict, args, model):
+def _plot_probe(result, path: str):
     from netprobe.plots import plot_layout, plot_profiles
-    from netprobe.regions import build_layout
-    from netprobe.store import load_state
 
-    lattice = model.lattice if model is not None else load_state(args.spec).model().lattice
-    main = result["regions"]["main"]
-    layout = build_layout(lattice, main["kind"], **_layout_params(main["spec"]))
-    title = f"{result['model']}: {main['spec']}"
-    if result.get("J") is not None:
-        title += f"\nJ = {result['J']:.5f}, c- = {result['c_minus']:.4f}"
-    plot_layout(layout, args.plot, title=title)
-    if result.get("ladder"):
-        stem = args.plot[:-4]
-        rungs = result["ladder"]
-        plot_profiles({"J": [r.get("J") or 0.0 for r in rungs]}, f"{stem}_ladder.png",
-                      title="J by ladder rung: D = " + ", ".join(str(r["bond_dimension"]) for r in rungs))
-
-
-def _layout_params(spec: str) -> dict:
-    kind, _, rest = spec.partition(":")
-    params: dict = {}
-    items = rest.split(",")
-    k = 0
-    while k < len(items):
-        key, _, value = items[k].partition("=")
-        if key == "center":
-            params[key] = (float(value), float(items[k + 1]))
-            k += 2
-            continue
-        params[key] = float(value)
-        k += 1
-    return params
+    layout = result.plan.main
+    title = f"{result.model.name}: {layout.spec}"
+    values = result.last.values
+    if values.J is not None:
+        title += f"\nJ = {values.J:.5f}, c- = {values.c_minus:.4f}"
+    plot_layout(layout, path, title=title)
+    if len(result.rungs) > 1:
+        rungs = result.rungs
+        plot_profiles({"J": [r.values.J or 0.0 for r in rungs]}, f"{path[:-4]}_ladder.png",
+                      title="J by ladder rung: D = " + ", ".join(str(r.ground.bond_dimension) for r in rungs))
 
 
 def cmd_flux(args) -> int:

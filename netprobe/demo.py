@@ -29,7 +29,11 @@ from pathlib import Path
 
 import numpy as np
 
+from netprobe.dmrg import SweepSettings
+from netprobe.engines import SolveSettings
 from netprobe.errors import NetprobeError
+from netprobe.pipeline import probe_model
+from netprobe.spec import load_model
 
 __all__ = ["main", "run_demo"]
 
@@ -47,13 +51,10 @@ def _log(stream, text):
 
 
 def _sweep(stream) -> list[dict]:
-    from netprobe.bulk import probe_model
-    from netprobe.spec import load_model
-
     rows = []
     for k, m_value in enumerate(M_SWEEP, 1):
         model = load_model("haldane", {"t2": str(T2), "M": str(m_value), "V": "0", **STRIP})
-        r = probe_model(model, "disk:radius=5", engine="gaussian", probes=("J", "TEE", "CMI"))
+        r = probe_model(model, "disk:radius=5", engine="gaussian", probes=("J", "TEE", "CMI", "chern_number")).to_json()
         rows.append({"M": m_value, "J": r["J"], "c_minus": r["c_minus"], "chern_number": r["chern_number"],
                      "gamma": r["gamma"], "cmi": r["cmi"]})
         _log(stream, f"sweep {k}/{len(M_SWEEP)}: M = {m_value:4.2f}  c- = 3J/pi = {r['c_minus']:+.4f}  "
@@ -70,9 +71,6 @@ def _boundary(rows, key) -> tuple[float, float]:
 
 
 def _ladders(stream) -> list[dict]:
-    from netprobe.bulk import probe_model
-    from netprobe.spec import load_model
-
     out = []
     for m_value in (0.0, 2.4):
         model = load_model("haldane", {"t2": str(T2), "M": str(m_value), "V": str(V_INTERACTING), **LADDER_CYLINDER})
@@ -82,8 +80,8 @@ def _ladders(stream) -> list[dict]:
         cmi_region = f"shielded:a=0.5,b=1.01,c=1.8,center={x:.6f},{y:.6f}"
         _log(stream, f"DMRG ladder D = {', '.join(map(str, LADDER))} at M = {m_value} (V = {V_INTERACTING}), "
                      f"{model.num_sites} sites")
-        r = probe_model(model, "disk:radius=1.8", engine="dmrg", bond_dimensions=LADDER, sweeps=4, seed=1,
-                        progress=None, cmi_region=cmi_region)
+        settings = SolveSettings(bond_dimensions=LADDER, sweeps=SweepSettings(max_sweeps=4), seed=1, progress=None)
+        r = probe_model(model, "disk:radius=1.8", engine="dmrg", settings=settings, cmi_region=cmi_region).to_json()
         for rung in r["ladder"]:
             _log(stream, f"  D = {rung['bond_dimension']:>3}: energy {rung['energy']:.8f}  J = {rung['J']:+.5f}  "
                          f"gamma = {rung['gamma']:+.5f}  CMI = {rung.get('cmi', float('nan')):.2e}")

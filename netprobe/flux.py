@@ -17,11 +17,16 @@ from __future__ import annotations
 
 import math
 import time
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from netprobe.dmrg import ConvergenceWarning, SweepSettings
+from netprobe.engines import SolveSettings, ground_state
 from netprobe.errors import NetprobeError, SpecError
+from netprobe.mps import entanglement_spectrum
+from netprobe.spec import build_model, load_spec
 
 __all__ = ["FluxResult", "thread_flux"]
 
@@ -63,8 +68,6 @@ class FluxResult:
 
 
 def _left_charge(state, bond: int, component: int, scale: float):
-    from netprobe.mps import entanglement_spectrum
-
     spec = entanglement_spectrum(state, bond)
     weights = spec.weights / spec.weights.sum()
     q = spec.charges[:, component].astype(float) * scale
@@ -87,9 +90,6 @@ def thread_flux(spec, overrides: dict | None = None, *, steps: int = 8, bond_dim
     steps : int
         Number of flux steps from 0 to 2 pi.
     """
-    from netprobe.dmrg import SweepSettings, find_ground_state
-    from netprobe.spec import build_model, load_spec
-
     if steps < 2:
         raise NetprobeError(f"flux threading needs at least 2 steps, got {steps}")
     spec = load_spec(spec) if isinstance(spec, str) else spec
@@ -103,14 +103,18 @@ def thread_flux(spec, overrides: dict | None = None, *, steps: int = 8, bond_dim
     thetas = np.linspace(0.0, 2 * math.pi, steps + 1)
     state = None
     charges, energies, spectra = [], [], []
-    settings = SweepSettings(bond_dimension=bond_dimension, max_sweeps=sweeps)
+    sweep_settings = SweepSettings(bond_dimension=bond_dimension, max_sweeps=sweeps)
     bond = None
     for k, theta in enumerate(thetas):
         model = build_model(spec, {**overrides, "twist": repr(float(theta))})
         if bond is None:
             bond = model.num_sites // 2
             scale = model.space.flux_charge_scale if model.space.flux_charge == charge else 1.0
-        result = find_ground_state(model, settings, seed=seed, state=state, progress=None, warn=False)
+        settings = SolveSettings(bond_dimensions=(bond_dimension,), sweeps=sweep_settings, seed=seed,
+                                 initial=state, progress=None)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)  # each step is a warm start; energies are shown
+            result = ground_state(model, "dmrg", settings)
         state = result.state
         q_left, levels = _left_charge(state, bond, 0, scale)
         charges.append(q_left)

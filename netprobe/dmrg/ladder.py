@@ -320,7 +320,8 @@ def _describe_mismatch(saved, model_text, overrides, settings, seed) -> list[str
 
 
 def run_ladder(model, settings: LadderSettings, *, overrides=None, seed: int | None = 0, out=None,
-               resume: bool = False, progress="stderr", blas_threads: int | None = 1) -> LadderResult:
+               resume: bool = False, progress="stderr", blas_threads: int | None = 1, initial=None,
+               on_stage=None) -> LadderResult:
     """Run DMRG over a ladder of bond dimensions (the engine behind ``netprobe run``).
 
     Parameters
@@ -341,6 +342,12 @@ def run_ladder(model, settings: LadderSettings, *, overrides=None, seed: int | N
     blas_threads : int or None
         Threads of the BLAS/LAPACK libraries during sweeps and variances (see
         :class:`netprobe.dmrg.DmrgEngine`); None leaves them as they are.
+    initial : MPS, optional
+        Start the first stage from this state instead of a random one (a warm start; the seed still
+        drives the noise).
+    on_stage : callable, optional
+        ``on_stage(stage, state)`` after every finished stage, with its :class:`StageResult` and the
+        state in memory (the measurement pipeline evaluates its probes there).
 
     Returns
     -------
@@ -406,7 +413,8 @@ def run_ladder(model, settings: LadderSettings, *, overrides=None, seed: int | N
         rng = np.random.default_rng(seed)
         stages, first, history, elapsed = [], 0, [], 0.0
         chi0 = settings.stage(0).bond_dimension_at(0)
-        state = random_state(ham, bond_dimension=min(chi0, _INITIAL_BOND_DIMENSION), rng=rng)
+        state = initial if initial is not None else random_state(
+            ham, bond_dimension=min(chi0, _INITIAL_BOND_DIMENSION), rng=rng)
 
     def write_checkpoint(stage_index, current_state, engine_info):
         info = {"ladder": settings.to_dict(), "stage": stage_index, "stages": [s.to_dict() for s in stages],
@@ -450,6 +458,8 @@ def run_ladder(model, settings: LadderSettings, *, overrides=None, seed: int | N
                             converged=result.converged, message=result.message)
         stages.append(stage)
         state, history, elapsed = result.state, [], 0.0
+        if on_stage is not None:
+            on_stage(stage, state)
         var_text = "" if variance is None else f", variance {variance:.3e}"
         writer.line(f"ladder | stage {k + 1} done: energy {stage.energy:.12f}, "
                     f"discarded {stage.discarded_weight:.2e}{var_text}, {stage.sweeps} sweeps, "

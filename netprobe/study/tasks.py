@@ -16,13 +16,19 @@ from __future__ import annotations
 import math
 import threading
 import time
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
 import numpy as np
 
+from netprobe.dmrg import ConvergenceWarning, SweepSettings
+from netprobe.engines import GroundState, SolveSettings, ground_state
 from netprobe.errors import NetprobeError
+from netprobe.pipeline.measure import local_means, measure
+from netprobe.regions import parse_region
+from netprobe.store import load_state, save_state
 from netprobe.study.description import StudyDescription, StudyPoint
 from netprobe.study.ledger import STATES_FOLDER, Ledger, TaskRow
 
@@ -50,8 +56,6 @@ def state_file_name(point: int, bond_dimension: int, lease: str) -> str:
 
 
 def _region_layouts(description: StudyDescription, lattice) -> dict:
-    from netprobe.regions import parse_region
-
     return {name: parse_region(text, lattice) for name, text in description.regions.items()}
 
 
@@ -80,16 +84,19 @@ def _abc(layout, text: str):
     return layout["A"], layout["B"], layout["C"]
 
 
-def evaluate_probes(description: StudyDescription, model, engine: str, state, energy: float) -> dict:
+_REGISTRY_NAME = {"J": "J", "c_minus": "J", "cmi": "CMI", "gamma": "TEE", "entropy": "S",
+                  "chern_number": "chern_number"}
+"""Study probe name (as written in study files) -> the pipeline's probe (:data:`netprobe.pipeline.PROBES`)."""
+
+
+def evaluate_probes(description: StudyDescription, ground: GroundState) -> dict:
     """Values of the study's probes on one ground state.
 
     Parameters
     ----------
     description : StudyDescription
-    model : netprobe.spec.Model
-    engine : {"dmrg", "exact", "gaussian"}
-    state : MPS, ExactResult, FreeFermionState or MajoranaState
-    energy : float
+    ground : GroundState
+        From any engine (:mod:`netprobe.engines`).
 
     Returns
     -------
@@ -97,89 +104,36 @@ def evaluate_probes(description: StudyDescription, model, engine: str, state, en
         Keyed by the probe text as written in the study file.
 
     """
+    model = ground.model
     layouts = _region_layouts(description, model.lattice) if description.regions else {}
-    out: dict[str, float] = {}
-    if engine == "gaussian":
-        for probe in description.probes:
-            out[probe.text] = _gaussian_probe(probe, state, layouts, energy, model)
-        return out
-    from netprobe.probes import c_minus_from_j, measure_probes
-
     wanted: dict[str, set] = {}
     for probe in description.probes:
-        need = {"J": "J", "c_minus": "J", "cmi": "CMI", "gamma": "TEE", "entropy": "S"}.get(probe.name)
+        need = _REGISTRY_NAME.get(probe.name)
         if need is not None:
+            if need != "S":
+                _abc(layouts[probe.region], probe.text)
             wanted.setdefault(probe.region, set()).add(need)
-    reports = {}
-    for region, names in wanted.items():
-        order = tuple(n for n in ("S", "CMI", "J", "TEE") if n in names)
-        if order != ("S",):
-            _abc(layouts[region], next(p.text for p in description.probes if p.region == region))
-        reports[region] = measure_probes(state, layouts[region], model.space, probes=order)
+    values = {region: measure(ground, layouts[region], probes=sorted(names)) for region, names in wanted.items()}
     means: dict[str, np.ndarray] = {}
+    out: dict[str, float] = {}
     for probe in description.probes:
         if probe.name == "energy":
-            out[probe.text] = float(energy)
+            out[probe.text] = float(ground.energy)
         elif probe.name == "energy_per_site":
-            out[probe.text] = float(energy) / model.num_sites
+            out[probe.text] = float(ground.energy) / model.num_sites
         elif probe.operator is not None:
             if probe.operator not in means:
-                if engine == "exact":
-                    from netprobe.exact import local_expectations
-
-                    means[probe.operator] = np.asarray(local_expectations(state, model, probe.operator))
-                else:
-                    from netprobe.mps import local_expectations
-
-                    means[probe.operator] = np.asarray(local_expectations(state, probe.operator))
-            values = means[probe.operator]
+                means[probe.operator] = local_means(ground, probe.operator)
             sites = range(model.num_sites) if probe.region is None else _sites_of(layouts[probe.region])
-            out[probe.text] = _real(np.mean(values[list(sites)]), probe.text)
+            out[probe.text] = _real(np.mean(means[probe.operator][list(sites)]), probe.text)
         else:
-            report = reports[probe.region]
-            if probe.name == "entropy":
-                out[probe.text] = float(report.entropies["A"])
-            elif probe.name == "J":
-                out[probe.text] = float(report.modular_commutator.value)
-            elif probe.name == "c_minus":
-                out[probe.text] = float(c_minus_from_j(report.modular_commutator.value))
-            elif probe.name == "cmi":
-                out[probe.text] = float(report.cmi)
-            elif probe.name == "gamma":
-                out[probe.text] = float(report.gamma)
+            m = values[probe.region]
+            value = {"entropy": (m.entropies or {}).get("A"), "J": m.J, "c_minus": m.c_minus, "cmi": m.cmi,
+                     "gamma": m.gamma, "chern_number": m.chern_number}[probe.name]
+            if value is None:
+                raise NetprobeError(f"probe '{probe.text}' is not available with the {ground.engine} engine")
+            out[probe.text] = float(value)
     return out
-
-
-def _gaussian_probe(probe, state, layouts, energy, model) -> float:
-    if probe.name == "energy":
-        return float(energy)
-    if probe.name == "energy_per_site":
-        return float(energy) / model.num_sites
-    if probe.operator is not None:
-        correlation = getattr(state, "correlation", None)
-        if correlation is None or probe.operator != "n":
-            raise NetprobeError(
-                f"probe '{probe.text}': the gaussian engine evaluates mean:n of number-conserving "
-                "fermions only"
-            )
-        occupations = np.real(np.diag(correlation))
-        sites = range(model.num_sites) if probe.region is None else _sites_of(layouts[probe.region])
-        return float(np.mean(occupations[list(sites)]))
-    layout = layouts[probe.region]
-    if probe.name == "entropy":
-        return float(state.entropy(layout["A"]))
-    a, b, c = _abc(layout, probe.text)
-    if probe.name == "J":
-        return float(state.modular_commutator(a, b, c))
-    if probe.name == "c_minus":
-        return float(3.0 * state.modular_commutator(a, b, c) / math.pi)
-    if probe.name == "cmi":
-        return float(state.cmi(a, b, c))
-    if probe.name == "gamma":
-        return float(-state.kitaev_preskill(a, b, c))
-    if probe.name == "chern_number":
-        return float(state.chern_number(a, b, c))
-    raise NetprobeError(f"probe '{probe.text}' is not available with the gaussian engine")
 
 
 def _start_state(needed: list[TaskRow], folder: Path, model):
@@ -189,7 +143,6 @@ def _start_state(needed: list[TaskRow], folder: Path, model):
     done = [r for r in needed if r.status == "done" and r.state_file]
     if not done:
         return None, f"random initial state (task {needed[0].id}, its intended start, failed)"
-    from netprobe.store import load_state
 
     row = done[0]
     saved = load_state(folder / row.state_file)
@@ -243,45 +196,25 @@ def compute_task(
     engine = description.engine
     result: dict[str, Any] = {"sites": model.num_sites, "engine": engine}
     state_file = None
-    if engine == "exact":
-        from netprobe.exact import ground_state
-
-        state = ground_state(model.hamiltonian)
-        energy = float(state.energy)
-        result["exact"] = {"dimension": int(state.basis.dim), "method": state.method}
-    elif engine == "gaussian":
-        from netprobe.gaussian import gaussian_state
-
-        state = gaussian_state(model)
-        energy = float(state.energy)
-        result["gaussian"] = {"kind": type(state).__name__, "gap": float(getattr(state, "gap", math.nan))}
-    else:
-        from netprobe.dmrg import SweepSettings, find_ground_state
-        from netprobe.store import save_state
-
+    initial, origin, seed = None, None, None
+    if engine == "dmrg":
         initial, origin = _start_state(needed, folder, model)
         seed = point_seed(description.seed, point.index)
-        settings = SweepSettings(
-            bond_dimension=bond_dimension,
-            ramp=() if initial is not None else None,
-            **description.sweep_settings,
-        )
-        run = find_ground_state(
-            model, settings, seed=seed, state=initial, progress=None, warn=False, blas_threads=blas_threads
-        )
-        state = run.state
-        energy = float(run.energy)
-        variance = None
-        if description.variance:
-            from threadpoolctl import threadpool_limits
-
-            from netprobe.mpo import build_mpo
-            from netprobe.mps import BlockMPO, energy_variance
-
-            with threadpool_limits(limits=blas_threads):
-                variance = float(
-                    energy_variance(state, BlockMPO.from_mpo(build_mpo(model.hamiltonian), state.basis))
-                )
+    sweeps = SweepSettings(bond_dimension=bond_dimension, **description.sweep_settings) if engine == "dmrg" else None
+    settings = SolveSettings(bond_dimensions=(bond_dimension,), sweeps=sweeps, seed=seed, initial=initial,
+                             variance=description.variance, progress=None, blas_threads=blas_threads)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)  # recorded below as "converged"
+        ground = ground_state(model, engine, settings)
+    energy = float(ground.energy)
+    if engine == "exact":
+        result["exact"] = {"dimension": int(ground.info["dimension"]), "method": ground.info["method"]}
+    elif engine == "gaussian":
+        result["gaussian"] = {"kind": type(ground.state).__name__,
+                              "gap": float(getattr(ground.state, "gap", math.nan))}
+    else:
+        stage = ground.info
+        variance = stage.get("variance")
         name = state_file_name(point.index, bond_dimension, lease)
         info = {
             "study": description.name,
@@ -289,15 +222,15 @@ def compute_task(
             "parameters": dict(point.values),
             "bond_dimension": bond_dimension,
             "energy": energy,
-            "discarded_weight": run.discarded_weight,
+            "discarded_weight": ground.discarded_weight,
             "variance": variance,
-            "sweeps": run.sweeps,
-            "converged": run.converged,
-            "message": run.message,
+            "sweeps": stage["sweeps"],
+            "converged": stage["converged"],
+            "message": stage["message"],
         }
         save_state(
             folder / STATES_FOLDER / name,
-            state,
+            ground.state,
             model_text=description.model_text,
             overrides=description.overrides(point),
             seed=seed,
@@ -306,17 +239,17 @@ def compute_task(
         )
         state_file = f"{STATES_FOLDER}/{name}"
         result["dmrg"] = {
-            "discarded_weight": float(run.discarded_weight),
+            "discarded_weight": float(ground.discarded_weight),
             "variance": variance,
-            "sweeps": int(run.sweeps),
-            "converged": bool(run.converged),
-            "message": run.message,
-            "max_bond_dimension": int(state.max_bond_dimension),
+            "sweeps": int(stage["sweeps"]),
+            "converged": bool(stage["converged"]),
+            "message": stage["message"],
+            "max_bond_dimension": int(ground.state.max_bond_dimension),
             "start": origin,
             "seed": seed,
         }
     result["energy"] = energy
-    result["probes"] = evaluate_probes(description, model, engine, state, energy)
+    result["probes"] = evaluate_probes(description, ground)
     seconds = time.perf_counter() - start
     result["seconds"] = seconds
     return TaskOutcome(result, state_file, seconds)
