@@ -103,6 +103,29 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_probe)
 
+    p = sub.add_parser("assess", help="c- and gamma with error bars and a verdict: region-size and bond-dimension "
+                                      "ladders, Markov-length certificate")
+    p.add_argument("spec", metavar="SOURCE", help="a model file / bundled model, or state files of 'netprobe run' "
+                                                   "(a folder, or comma-separated files, in increasing D)")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="NAME=VALUE",
+                   help="override a model parameter (model sources only; repeatable)")
+    p.add_argument("--engine", default="dmrg", choices=("dmrg", "exact", "gaussian"),
+                   help="ground-state engine for a model source (default dmrg)")
+    p.add_argument("--bond-dimension", default="32,64", metavar="D[,D...]",
+                   help="DMRG ladder; every region is measured on every rung (default 32,64)")
+    p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum DMRG sweeps per rung")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="DMRG seed (default 0)")
+    p.add_argument("--max-sites", type=int, default=15, metavar="N",
+                   help="largest region (sites) of the size ladder and the Markov series (default 15)")
+    p.add_argument("--placements", type=int, default=3, metavar="K", help="regions per size (default 3)")
+    p.add_argument("--eps", type=float, default=1e-12, metavar="EPS",
+                   help="relative eigenvalue floor of the modular Hamiltonians (default 1e-12)")
+    p.add_argument("--memory-budget", type=float, default=None, metavar="GB",
+                   help="leave out regions whose reduced state would exceed this (default a quarter of the memory)")
+    p.add_argument("--plot", metavar="FILE.png", help="J, gamma, CMI against size with the fits; J against 1/D")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_assess)
+
     p = sub.add_parser("flux", help="thread one flux quantum through the cylinder; charge pumped across the cut")
     _add_model_arguments(p)
     p.add_argument("--steps", type=int, default=8, metavar="N", help="flux steps from 0 to 2 pi (default 8)")
@@ -439,6 +462,103 @@ def _plot_probe(result, path: str):
         rungs = result.rungs
         plot_profiles({"J": [r.values.J or 0.0 for r in rungs]}, f"{path[:-4]}_ladder.png",
                       title="J by ladder rung: D = " + ", ".join(str(r.ground.bond_dimension) for r in rungs))
+
+
+def _state_sources(text: str) -> list:
+    from pathlib import Path
+
+    from netprobe.dmrg.ladder import CHECKPOINT_NAME
+
+    source = Path(text)
+    if source.is_dir():
+        files = sorted((p for p in source.glob("*.h5") if p.name != CHECKPOINT_NAME),
+                       key=lambda p: (len(p.name), p.name))
+        if not files:
+            raise NetprobeError(f"{text}: no state files (*.h5) in this folder; give the --out folder of 'netprobe run'")
+        return files
+    parts = [Path(t) for t in text.split(",") if t]
+    if all(p.suffix in (".h5", ".hdf5") for p in parts):
+        return parts
+    return []
+
+
+def _saved_grounds(files) -> list:
+    from netprobe.engines import GroundState
+    from netprobe.store import load_state
+
+    grounds = []
+    for path in files:
+        saved = load_state(path)
+        model = saved.model()
+        grounds.append(GroundState("dmrg", "many-body", saved.state, float(saved.info.get("energy", float("nan"))),
+                                   model, bond_dimension=int(saved.state.max_bond_dimension),
+                                   discarded_weight=saved.info.get("discarded_weight"),
+                                   info={"state_file": str(path)}))
+    grounds.sort(key=lambda g: g.bond_dimension)
+    if len({(g.model.spec.text, repr(sorted(g.model.parameters.items()))) for g in grounds}) > 1:
+        raise NetprobeError("the state files belong to different models or parameters; give one ladder")
+    return grounds
+
+
+def cmd_assess(args) -> int:
+    """c- and gamma with error bars, a certificate and a verdict."""
+    from netprobe.engines import solve
+    from netprobe.pipeline.assess import assess_states
+    from netprobe.spec import parse_overrides
+
+    if args.max_sites < 3:
+        raise NetprobeError(f"--max-sites {args.max_sites}: a three-sector region needs at least 3 sites")
+    if args.placements < 1:
+        raise NetprobeError(f"--placements {args.placements}: give at least 1")
+    if not 0 < args.eps < 1e-3:
+        raise NetprobeError(f"--eps {args.eps}: choose a small positive floor such as 1e-12 (large floors bias J)")
+    budget = None
+    if args.memory_budget is not None:
+        if not args.memory_budget > 0 or args.memory_budget == float("inf"):
+            raise NetprobeError(f"--memory-budget must be a positive number of GB, got {args.memory_budget}")
+        budget = int(args.memory_budget * 2**30)
+    if args.plot:
+        _check_png(args.plot)
+    files = _state_sources(args.spec)
+    if files:
+        if args.overrides:
+            raise NetprobeError("--set applies to model sources; state files carry their own parameters")
+        grounds = _saved_grounds(files)
+    else:
+        model = _load(args)
+        grounds, _ = solve(model, args.engine, _solve_settings(args, parse_overrides(args.overrides)))
+    result = assess_states(grounds, max_sites=args.max_sites, placements=args.placements, eps=args.eps,
+                           memory_budget=budget, progress=sys.stderr)
+    payload = result.to_json()
+    lines = _assess_lines(result)
+    if args.plot:
+        from netprobe.plots import plot_assessment
+
+        plot_assessment(result, args.plot, title=f"{result.model.name} ({result.engine})")
+        lines.append(f"plot written to {args.plot}")
+    _emit(args, payload, lines)
+    return 0
+
+
+def _assess_lines(a) -> list[str]:
+    def pm(v, e, spec="+.4f"):
+        return "n/a" if v is None else f"{v:{spec}} +- {e:.4f}"
+
+    lines = [f"{a.model.name} ({a.engine}): {a.model.num_sites} sites, {len(a.sizes)} region sizes"]
+    lines.append(f"{'sites':>6} {'R':>6} {'J':>12} {'+-':>8} {'c-':>8} {'gamma':>9} {'+-':>8}  certified")
+    for e in a.sizes:
+        lines.append(f"{e.sites:>6} {e.linear_size:>6.2f} {e.J:>12.6f} {e.J_error:>8.1e} {3 * e.J / 3.141592653589793:>8.4f} "
+                     f"{e.gamma:>9.5f} {e.gamma_error:>8.1e}  {'yes' if e.certified else 'no'}")
+    xi = a.markov_length
+    lines.append(f"Markov length: {'n/a' if xi is None else f'{xi:.3f}'} ({a.markov.get('method', '')})")
+    near = a.nearest
+    lines.append(f"c- = {pm(a.c_minus, a.c_minus_error)}" + (f"   (nearest multiple of 1/2: {near['c_minus']:+g})"
+                                                               if "c_minus" in near else ""))
+    lines.append(f"gamma = {pm(a.gamma, a.gamma_error)}" + (f"   (nearest: {near['gamma']['name']})"
+                                                             if "gamma" in near else ""))
+    lines.append(f"verdict: {a.verdict} ({'certified' if a.certified else 'uncertified'}): {a.reason}")
+    lines += [f"note: {n}" for n in a.notes]
+    return lines
 
 
 def cmd_flux(args) -> int:

@@ -20,7 +20,7 @@ from matplotlib.figure import Figure
 from netprobe.errors import LatticeError
 from netprobe.regions import Layout
 
-__all__ = ["PART_COLOURS", "plot_layout", "plot_profiles", "plot_flux"]
+__all__ = ["PART_COLOURS", "plot_layout", "plot_profiles", "plot_flux", "plot_assessment"]
 
 PART_COLOURS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#000000")
 """Colours of parts A, B, C, ... in order: the colour-blind-safe set of M. Okabe and K. Ito,
@@ -198,3 +198,71 @@ def plot_flux(result, path, *, title=None) -> Path:
     fig.tight_layout()
     fig.savefig(path)
     return path
+
+
+def plot_assessment(assessment, path, *, title=None) -> Path:
+    """J, gamma and the CMI against region size with the size fits; J against 1/D per size.
+
+    Parameters
+    ----------
+    assessment : netprobe.pipeline.assess.Assessment
+    path : str or Path
+    title : str, optional
+    """
+    from netprobe.fitting import SIZE_FORMS
+
+    sizes = assessment.sizes
+    fig = Figure(figsize=(11, 7.5))
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(2, 2)
+    r = np.array([e.linear_size for e in sizes])
+    r_fine = np.linspace(max(r.min() * 0.9, 1e-3), r.max() * 1.6, 200) if len(r) else np.zeros(0)
+    for ax, key, label in ((axes[0, 0], "J", "J(A,B,C)"), (axes[0, 1], "gamma", "gamma (Kitaev-Preskill)")):
+        for flag, marker, name in ((True, "o", "certified"), (False, "s", "uncertified")):
+            pick = [e for e in sizes if e.certified == flag]
+            if pick:
+                ax.errorbar([e.linear_size for e in pick], [getattr(e, key) for e in pick],
+                            yerr=[getattr(e, f"{key}_error") for e in pick], fmt=marker, ms=4, capsize=2,
+                            color=_INK if flag else _SITE_GREY, label=name)
+        for (form, fit), colour in zip((assessment.fits.get(key) or {}).items(), PART_COLOURS):
+            if not fit or form not in SIZE_FORMS:
+                continue
+            shape = SIZE_FORMS[form][0]
+            theta = next(iter(fit["params"].values()))
+            ax.plot(r_fine, fit["value"] + fit["slope"] * shape(r_fine, theta), color=colour, lw=1.2,
+                    label=f"{form}: {fit['value']:.4f} +- {fit['error']:.2g}")
+            ax.axhline(fit["value"], color=colour, lw=0.6, ls=":")
+        ax.set_xlabel("linear size R (nearest-neighbour lengths)")
+        ax.set_ylabel(label)
+        ax.legend(fontsize=7, frameon=False)
+    ax = axes[1, 0]
+    markov = assessment.markov
+    if markov.get("widths"):
+        ax.semilogy(markov["widths"], np.maximum(markov["cmi"], 1e-16), "o-", color=PART_COLOURS[0])
+    xi = assessment.markov_length
+    ax.set_title("Markov length: " + ("n/a" if xi is None else f"{xi:.3f}"), fontsize=9)
+    ax.set_xlabel("shield width w (nearest-neighbour lengths)")
+    ax.set_ylabel("I(A:C|B)")
+    ax = axes[1, 1]
+    drawn = False
+    for e, colour in zip(sizes[-len(PART_COLOURS):], PART_COLOURS):
+        rungs = (e.placements[0] or {}).get("by_bond_dimension") if e.placements else None
+        if rungs:
+            ax.plot([1.0 / p["bond_dimension"] for p in rungs], [p["J"] for p in rungs], "o-", color=colour,
+                    ms=3, label=f"{e.sites} sites")
+            drawn = True
+    if drawn:
+        ax.legend(fontsize=7, frameon=False)
+    else:
+        ax.text(0.5, 0.5, f"{assessment.engine}: exact in the bond dimension", ha="center", va="center",
+                transform=ax.transAxes, fontsize=9, color=_INK)
+    ax.set_xlabel("1/D")
+    ax.set_ylabel("J (first placement)")
+    c = assessment.c_minus
+    head = title or ""
+    verdict = (f"{assessment.verdict}" + ("" if c is None else f": c- = {c:+.3f} +- {assessment.c_minus_error:.3f}")
+               + (", certified" if assessment.certified else ", uncertified"))
+    fig.suptitle(f"{head}\n{verdict}" if head else verdict, fontsize=10)
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    return Path(path)
