@@ -1,4 +1,4 @@
-"""The seven benchmarks of the suite. Each returns a list of :class:`Figure` (a ratio beside its target).
+"""The eight benchmarks of the suite. Each returns a list of :class:`Figure` (a ratio beside its target).
 
 Every ratio is taken from measurements made in the same run (see README.md in this folder): the
 matvec rate against the matrix-multiply rate measured minutes apart on the same cores, the
