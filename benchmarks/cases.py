@@ -1,4 +1,4 @@
-"""The seven benchmarks of the suite. Each returns a list of :class:`Figure` (a ratio beside its target).
+"""The eight benchmarks of the suite. Each returns a list of :class:`Figure` (a ratio beside its target).
 
 Every ratio is taken from measurements made in the same run (see README.md in this folder): the
 matvec rate against the matrix-multiply rate measured minutes apart on the same cores, the
@@ -137,19 +137,71 @@ def symmetry_gain(ctx: Context) -> list[Figure]:
     chi = 128 if ctx.quick else 512
     state = ctx.ladder(chi).states[chi]
     out = {}
+    efficiency = []
     for charges in (True, False):
         ham = wl.heisenberg_cylinder(6, 6, charges=charges)
         st = state if charges else wl.without_charges(state, ham)
         engine = DmrgEngine(build_mpo(ham), st, wl.sweep_settings(chi), progress=None, blas_threads=1)
-        record = engine.sweep()
+        record, figure = _efficiency_sweep(ctx, engine, f"sweep_efficiency_square_{'charges' if charges else 'no_charges'}")
         out[charges] = record
-        ctx.log(f"    sweep at D={chi} {'with' if charges else 'without'} charges: {record.seconds:.1f} s, "
-                f"{record.matvecs} matvecs, E = {record.energy:.8f}")
+        efficiency.append(figure)
     on, off = out[True], out[False]
     return [Figure("symmetry_gain", off.seconds / on.seconds, 4.0, details={
         "bond_dimension": chi, "seconds_with_charges": on.seconds, "seconds_without_charges": off.seconds,
         "matvecs_with_charges": on.matvecs, "matvecs_without_charges": off.matvecs,
-        "per_matvec_gain": (off.seconds / off.matvecs) / (on.seconds / on.matvecs)})]
+        "per_matvec_gain": (off.seconds / off.matvecs) / (on.seconds / on.matvecs)})] + efficiency
+
+
+SWEEP_EFFICIENCY_TARGET = 0.6  # issue 11: matvec flops at the GEMM rate / sweep wall time
+
+
+def _efficiency_sweep(ctx: Context, engine, name: str):
+    """One timed sweep and its efficiency: matvec flops / GEMM rate (sweep dtype, one thread) / wall time.
+
+    The GEMM rate is the better of two measurements just before and after the sweep.
+    """
+    dtype = engine.dtype
+    gemm_before = gemm_rate(dtype, 1024, threads=1)
+    record = engine.sweep()
+    gemm = max(gemm_before, gemm_rate(dtype, 1024, threads=1))
+    ratio = record.matvec_flops / gemm / record.seconds
+    ctx.log(f"    {name}: D={record.bond_dimension}, {record.seconds:.1f} s, {record.matvecs} matvecs, "
+            f"{record.matvec_flops / 1e9:.0f} GFlop of matvecs, {dtype.name} GEMM {gemm / 1e9:.1f} GFlop/s: "
+            f"efficiency {ratio:.3f}; E = {record.energy:.8f}")
+    return record, Figure(name, ratio, SWEEP_EFFICIENCY_TARGET, details={
+        "bond_dimension": record.bond_dimension, "largest_bond": record.max_bond_dimension,
+        "dtype": dtype.name, "seconds": record.seconds, "matvecs": record.matvecs,
+        "matvec_flops": record.matvec_flops, "gemm_gflops": gemm / 1e9, "blas_threads": 1,
+        "local_update": engine.settings.local_update})
+
+
+def kagome_efficiency(ctx: Context) -> list[Figure]:
+    """Sweep efficiency (matvec flops at the GEMM rate / wall time) on the width-6 kagome chiral cylinder."""
+    from netprobe.dmrg.engine import DmrgEngine
+    from netprobe.mpo import build_mpo
+    from netprobe.mps import random_state
+
+    ham = wl.kagome_cylinder()
+    mpo = build_mpo(ham)
+    ladder = (32, 64) if ctx.quick else (32, 64, 128, 256)
+    uncharged_at = None if ctx.quick else 64
+    state = random_state(ham, bond_dimension=16, rng=wl.SEED)
+    figures = []
+    for chi in ladder:
+        engine = DmrgEngine(mpo, state, wl.sweep_settings(chi), progress=None, blas_threads=1)
+        if chi == ladder[-1]:  # the last rung's sweep (it grows the bonds to D) is the timed one
+            figures.insert(0, _efficiency_sweep(ctx, engine, "sweep_efficiency_kagome_charges")[1])
+            break
+        record = engine.sweep()
+        ctx.log(f"    kagome ladder D={chi}: growing sweep {record.seconds:.1f} s, {record.matvecs} matvecs, "
+                f"E = {record.energy:.8f}, largest bond {record.max_bond_dimension}")
+        state = engine.state
+        if chi == uncharged_at:
+            plain = wl.without_charges_of(ham)
+            cold = DmrgEngine(build_mpo(plain), wl.without_charges(state, plain), wl.sweep_settings(chi),
+                              progress=None, blas_threads=1)
+            figures.append(_efficiency_sweep(ctx, cold, "sweep_efficiency_kagome_no_charges")[1])
+    return figures
 
 
 # ---- 3. DMRG against exact diagonalisation ------------------------------------------------------
@@ -394,6 +446,7 @@ def study_throughput(ctx: Context) -> list[Figure]:
 BENCHMARKS = {
     "matvec": matvec_rate,
     "symmetry": symmetry_gain,
+    "kagome": kagome_efficiency,
     "exact": exact_crossover,
     "cost": cost_growth,
     "rdm": rdm_and_j,

@@ -21,7 +21,7 @@ from netprobe.spec import load_model
 from netprobe.tensor import BlockLayout, BlockTensor, ChargeRule, Leg, contract
 from netprobe.terms import Hamiltonian
 
-__all__ = ["heisenberg_cylinder", "without_charges", "dense_copy", "dense_operator", "LadderRun", "run_ladder_timed",
+__all__ = ["heisenberg_cylinder", "kagome_cylinder", "without_charges_of", "without_charges", "dense_copy", "dense_operator", "LadderRun", "run_ladder_timed",
            "central_operator", "sweep_settings"]
 
 SEED = 20261202
@@ -35,6 +35,16 @@ def heisenberg_cylinder(circumference: int, length: int, *, charges: bool = True
     if not charges:
         ham = Hamiltonian(ham.lattice, ham.space, ham.products, conserve=(), sector={})
     return ham
+
+
+def kagome_cylinder(length: int = 6, circumference: int = 3) -> Hamiltonian:
+    """``models/kagome_chiral.toml`` (defaults: length 6, circumference 3: 54 spins, width-6 cylinder)."""
+    return load_model("kagome_chiral", {"length": str(length), "circumference": str(circumference)}).hamiltonian
+
+
+def without_charges_of(ham: Hamiltonian) -> Hamiltonian:
+    """The same Hamiltonian without conserved charges."""
+    return Hamiltonian(ham.lattice, ham.space, ham.products, conserve=(), sector={})
 
 
 def sweep_settings(bond_dimension: int, **extra) -> SweepSettings:

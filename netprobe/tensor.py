@@ -683,16 +683,21 @@ def _assemble(blocks: Mapping, sp: _SectorPlan, perm, dtype, fill_missing: bool 
             return np.zeros(shape, dtype) if fill_missing else None
         return (blk if perm is None else blk.transpose(perm)).reshape(shape)
     mat = None
+    missing = []
     for key, rs, cs, vshape in entries:
         blk = blocks.get(key)
         if blk is None:
+            missing.append((rs, cs))
             continue
         if mat is None:
-            mat = np.zeros(shape, dtype)
+            mat = np.empty(shape, dtype)
         # The slice of a C-ordered matrix reshapes to the block shape as a view: one copy per block.
         mat[rs, cs].reshape(vshape)[...] = blk if perm is None else blk.transpose(perm)
-    if mat is None and fill_missing:
-        mat = np.zeros(shape, dtype)
+    if mat is None:
+        return np.zeros(shape, dtype) if fill_missing else None
+    # The entries tile the sector matrix: only the places of blocks not stored need zeros.
+    for rs, cs in missing:
+        mat[rs, cs] = 0
     return mat
 
 

@@ -407,3 +407,24 @@ def test_one_block_fast_path_equals_the_block_contractions_and_the_exact_energy(
     assert np.allclose(fast, slow, atol=1e-12)  # rounding only (common practice)
     # <theta|H|theta> is the energy of the normalised state with its centre on the bond
     assert abs(np.vdot(theta.to_dense(), slow).real - result.energy) < 1e-8
+
+
+@pytest.mark.parametrize("case", ["heisenberg-cylinder-w3", "haldane-interacting", "kagome-chiral"])
+def test_expanding_single_site_sweeps_match_two_site_and_exact_energies(case):
+    name, overrides, chi, tags = EXACT_CASES[case]
+    model = load_model(name, overrides)
+    reference = exact.ground_state(model.hamiltonian).energy  # our exact engine (reference)
+    energies, bonds = {}, {}
+    for update in ("two-site", "single-site-expanding"):
+        settings = SweepSettings(bond_dimension=chi, local_update=update, **TIGHT)
+        result = find_ground_state(model, settings, seed=5, **_quiet())
+        assert result.converged, result.message
+        energies[update] = result.energy
+        bonds[update] = (result.history[0].max_bond_dimension, result.bond_dimensions[-1])
+    # the expanding sweeps grow the bonds from the random start (bond dimension 16) as far as two-site ones
+    assert bonds["single-site-expanding"][1] == bonds["two-site"][1]
+    if bonds["two-site"][1] > 16:
+        assert bonds["single-site-expanding"][0] < bonds["single-site-expanding"][1]
+    # both are converged to energy_tolerance 1e-12 with truncation weight 1e-12: 1e-8 relative is loose
+    assert abs(energies["single-site-expanding"] - reference) <= 1e-8 * abs(reference)
+    assert abs(energies["single-site-expanding"] - energies["two-site"]) <= 1e-8 * abs(reference)

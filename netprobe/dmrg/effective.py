@@ -144,3 +144,13 @@ class OneSiteHamiltonian:
     def matvec(self, x: np.ndarray) -> np.ndarray:
         """``H_eff`` on a flat vector of the layout."""
         return self.layout.pack(self.apply(self.layout.unpack(x)))
+
+    def left_expansion(self, a: BlockTensor) -> BlockTensor:
+        """``L W A`` with legs ``(a*, b, s', w')``: the site's image under the terms that cross its right bond."""
+        x = contract(self.left, a, ([1], [0]))  # (a*, w, s, b)
+        return contract(x, self.w, ([1, 2], [0, 2]))
+
+    def right_expansion(self, a: BlockTensor) -> BlockTensor:
+        """``A W R`` with legs ``(a, b*, w, s')``: the site's image under the terms that cross its left bond."""
+        x = contract(a, self.right, ([2], [0]))  # (a, s, w', b*)
+        return contract(x, self.w, ([1, 2], [2, 3]))

@@ -16,6 +16,16 @@ Single-site sweeps (``local_update="single-site"``) optimise one site at a time 
 QR: they keep the bonds of the state they start from (no truncation, no noise, no growth), cost
 about d times less per step, and are strictly variational, so the energy never rises from step to
 step. Use them to polish a state whose bonds already have the wanted dimension.
+
+Expanding single-site sweeps (``local_update="single-site-expanding"``) follow the bond-dimension
+schedule of two-site sweeps at the single-site cost. Before the centre moves on, the optimised site
+tensor ``A`` is enlarged by the image of the Hamiltonian terms that reach across the bond,
+``[A | sqrt(alpha) P]`` with ``P = L W A`` (subspace expansion: C. Hubig, I. P. McCulloch,
+U. Schollwoeck and F. A. Wolf, Phys. Rev. B 91, 155115 (2015)), and truncated to the bond
+dimension. The left singular vectors of that matrix are the eigenvectors of
+``A A^dag + alpha P P^dag``, the mixed density matrix of the two-site noise above, so both share
+one code path. ``alpha`` is ``expansion`` during the ramp and the first ``noise_sweeps`` sweeps at
+the final bond dimension; the final sweeps are plain single-site sweeps (strictly variational).
 """
 
 from __future__ import annotations
@@ -37,13 +47,13 @@ from netprobe.dmrg.progress import ProgressWriter
 from netprobe.dmrg.solvers import check_eigensolver, lowest_eigenpair
 from netprobe.errors import NetprobeError
 from netprobe.mps import MPS, BlockMPO, random_state
-from netprobe.tensor import BlockLayout, BlockTensor, Leg, contract, diag_multiply, eigh, lq, qr, svd
+from netprobe.tensor import BlockLayout, BlockTensor, Leg, contract, diag_multiply, eigh, lq, matmul_tally, qr, svd
 
 __all__ = ["SweepSettings", "SweepRecord", "DmrgResult", "DmrgEngine", "ConvergenceWarning",
            "find_ground_state", "default_ramp", "LOCAL_UPDATES"]
 
 _RAMP_START = 16  # first bond dimension of the default ramp
-LOCAL_UPDATES = ("two-site", "single-site")
+LOCAL_UPDATES = ("two-site", "single-site", "single-site-expanding")
 
 
 class ConvergenceWarning(UserWarning):
@@ -126,8 +136,13 @@ class SweepSettings:
     solver_restarts : int
         Restarts of the local eigensolver.
     local_update : str
-        ``"two-site"`` (bonds grow and are truncated) or ``"single-site"`` (bonds frozen, strictly
-        variational; ``ramp``, ``noise`` and the truncation settings are not used).
+        ``"two-site"`` (bonds grow and are truncated), ``"single-site"`` (bonds frozen, strictly
+        variational; ``ramp``, ``noise`` and the truncation settings are not used) or
+        ``"single-site-expanding"`` (single-site updates whose bonds grow by subspace expansion along
+        the ramp and are truncated; ``expansion`` takes the place of ``noise``).
+    expansion : float
+        Strength alpha of the subspace expansion of ``"single-site-expanding"`` sweeps (0 switches it
+        off, and the sweeps are plain single-site sweeps).
 
     Raises
     ------
@@ -150,6 +165,7 @@ class SweepSettings:
     krylov_dimension: int = 20
     solver_restarts: int = 4
     local_update: str = "two-site"
+    expansion: float = 1e-4
 
     def __post_init__(self):
         _positive_int("bond_dimension", self.bond_dimension)
@@ -173,6 +189,7 @@ class SweepSettings:
         _fraction("discarded_tolerance", self.discarded_tolerance, closed=True)
         _fraction("truncation_weight", self.truncation_weight)
         _fraction("noise", self.noise)
+        _fraction("expansion", self.expansion)
         _positive_int("noise_sweeps", self.noise_sweeps, least=0)
         check_eigensolver(self.eigensolver)
         _fraction("solver_tolerance", self.solver_tolerance)
@@ -187,7 +204,7 @@ class SweepSettings:
 
     @property
     def schedule(self) -> tuple[int, ...]:
-        """The ramp actually used (``ramp`` or :func:`default_ramp`; none for single-site sweeps)."""
+        """The ramp actually used (``ramp`` or :func:`default_ramp`; none for frozen single-site sweeps)."""
         if self.local_update == "single-site":
             return ()
         return default_ramp(self.bond_dimension) if self.ramp is None else self.ramp
@@ -195,7 +212,7 @@ class SweepSettings:
     @property
     def first_clean_sweep(self) -> int:
         """Index (from 0) of the first sweep at the final bond dimension without noise."""
-        noisy = self.noise > 0 and self.local_update == "two-site"
+        noisy = self.mixing > 0 and self.local_update != "single-site"
         return len(self.schedule) + (self.noise_sweeps if noisy else 0)
 
     def bond_dimension_at(self, sweep: int) -> int:
@@ -203,9 +220,14 @@ class SweepSettings:
         ramp = self.schedule
         return ramp[sweep] if sweep < len(ramp) else self.bond_dimension
 
+    @property
+    def mixing(self) -> float:
+        """Strength of the basis enlargement: ``expansion`` for expanding single-site sweeps, else ``noise``."""
+        return self.expansion if self.local_update == "single-site-expanding" else self.noise
+
     def noise_at(self, sweep: int) -> float:
-        """Noise strength of sweep ``sweep`` (counted from 0)."""
-        return self.noise if sweep < self.first_clean_sweep else 0.0
+        """Noise (or expansion) strength of sweep ``sweep`` (counted from 0)."""
+        return self.mixing if sweep < self.first_clean_sweep else 0.0
 
     def solver_tolerance_at(self, sweep: int) -> float:
         """Residual tolerance of the local eigensolver in sweep ``sweep`` (counted from 0)."""
@@ -263,9 +285,14 @@ class SweepRecord:
     seconds : float
         Wall time of the sweep.
     noise : float
-        Noise strength used.
+        Noise strength used (the expansion strength for expanding single-site sweeps).
     matvecs : int
         Applications of the effective Hamiltonian.
+    matvec_flops : int
+        Floating-point operations of those applications, counted from the shapes of their matrix
+        products (:func:`netprobe.tensor.matmul_tally`). Divided by a GEMM rate and by ``seconds``
+        it gives the sweep's efficiency: the fraction of the wall time the machine would need for
+        the matvecs alone at its matrix-multiply rate.
     """
 
     sweep: int
@@ -278,6 +305,7 @@ class SweepRecord:
     seconds: float
     noise: float = 0.0
     matvecs: int = 0
+    matvec_flops: int = 0
 
     def to_dict(self) -> dict:
         """Plain values; a NaN energy change becomes None (JSON has no NaN)."""
@@ -534,8 +562,10 @@ class DmrgEngine:
             v0 = self.rng.standard_normal(layout.size)
             if self.dtype.kind == "c":
                 v0 = v0 + 1j * self.rng.standard_normal(layout.size)
+        flops = matmul_tally().flops
         pair = lowest_eigenpair(s.eigensolver, op, v0, tol=stats["tolerance"],
                                 krylov_dimension=s.krylov_dimension, restarts=s.solver_restarts)
+        stats["matvec_flops"] += matmul_tally().flops - flops
         stats["matvecs"] += pair.matvecs
         stats["energy"] = pair.value
         theta = layout.unpack(pair.vector)
@@ -557,21 +587,66 @@ class DmrgEngine:
                 values = svd(centre, *axes)[1].values
             stats["entropy"] = _entropy(values)
 
-    def _update_site(self, i, direction, stats):
+    def _expand_site(self, a, op, direction, chi, alpha):
+        """Subspace expansion of the optimised site tensor ``a``: the kept isometry and the centre factor.
+
+        Right-moving: returns ``(u, c)`` with ``u`` (legs ``(a, s, k)``) and ``c = u^dag a`` (``(k, b)``);
+        left-moving: ``(c, u)`` with ``u`` (``(k, s, b)``) and ``c = a u^dag`` (``(a, k)``).
+        """
+        s = self.settings
+        norm2 = a.norm() ** 2
+        if direction > 0:
+            rho = contract(a, a.conj(), ([2], [2]))  # (a, s, a*, s*)
+            x = op.left_expansion(a)  # (a*, b, s', w')
+            pert = contract(x, x.conj(), ([1, 3], [1, 3]))
+        else:
+            rho = contract(a.conj(), a, ([0], [0]))  # (s*, b*, s, b)
+            x = op.right_expansion(a)  # (a, b*, w, s')
+            pert = contract(x.conj(), x, ([0, 2], [0, 2])).transpose((1, 0, 3, 2))
+        xnorm2 = x.norm() ** 2
+        mixed = rho * (1.0 / norm2)
+        if xnorm2 > 0:
+            mixed = mixed + pert * (alpha / xnorm2)
+        spec, u = eigh(mixed, [0, 1], [2, 3])
+        u = _keep_largest(spec, u, chi, s.truncation_weight)
+        if direction > 0:
+            centre = contract(u.conj(), a, ([0, 1], [0, 1]))  # (k, b)
+        else:
+            u = u.conj().transpose((2, 0, 1))  # (k, s, b)
+            centre = contract(a, u.conj(), ([1, 2], [1, 2]))  # (a, k)
+        kept = centre.norm() ** 2
+        discarded = max(0.0, 1.0 - kept / norm2)
+        centre = centre / math.sqrt(kept)
+        return u, centre, discarded
+
+    def _update_site(self, i, direction, stats, *, chi=None, noise=0.0):
         s = self.settings
         tensors = self.state.tensors
         a = tensors[i]
         layout = BlockLayout(a.legs, None, self.state.basis.rule, self.dtype)
         op = OneSiteHamiltonian(self._env.left[i], self.mpo.tensors[i], self._env.right[i + 1], layout)
         v0 = layout.pack(a)
+        flops = matmul_tally().flops
         pair = lowest_eigenpair(s.eigensolver, op, v0, tol=stats["tolerance"],
                                 krylov_dimension=s.krylov_dimension, restarts=s.solver_restarts)
+        stats["matvec_flops"] += matmul_tally().flops - flops
         stats["matvecs"] += pair.matvecs
         stats["energy"] = pair.value
         a = layout.unpack(pair.vector)
         if direction < 0 and i == self.state.num_sites // 2:
             stats["entropy"] = _entropy(svd(a, [0], [1, 2])[1].values)
-        if direction > 0 and i + 1 < self.state.num_sites:
+        if noise > 0 and ((direction > 0 and i + 1 < self.state.num_sites) or (direction < 0 and i > 0)):
+            u, centre, discarded = self._expand_site(a, op, direction, chi, noise)
+            stats["discarded"] = max(stats["discarded"], discarded)
+            if direction > 0:
+                tensors[i], tensors[i + 1] = u, contract(centre, tensors[i + 1], ([1], [0]))
+                self.state.centre = i + 1
+                self._env.update_left(i, u)
+            else:
+                tensors[i], tensors[i - 1] = u, contract(tensors[i - 1], centre, ([2], [0]))
+                self.state.centre = i - 1
+                self._env.update_right(i, u)
+        elif direction > 0 and i + 1 < self.state.num_sites:
             q, r = qr(a, [0, 1], [2])
             tensors[i], tensors[i + 1] = q, contract(r, tensors[i + 1], ([1], [0]))
             self.state.centre = i + 1
@@ -605,12 +680,12 @@ class DmrgEngine:
         noise = self.settings.noise_at(k)
         n = self.state.num_sites
         start = time.perf_counter()
-        stats = {"matvecs": 0, "energy": float("nan"), "discarded": 0.0, "entropy": float("nan"),
+        stats = {"matvecs": 0, "matvec_flops": 0, "energy": float("nan"), "discarded": 0.0, "entropy": float("nan"),
                  "tolerance": self.settings.solver_tolerance_at(k)}
-        if self.settings.local_update == "single-site":
-            noise = 0.0
+        if self.settings.local_update != "two-site":
+            noise = noise if self.settings.local_update == "single-site-expanding" else 0.0
             moves = [(i, 1) for i in range(n - 1)] + [(i, -1) for i in range(n - 1, -1, -1)]
-            update = self._update_site
+            update = functools.partial(self._update_site, chi=chi, noise=noise)
         else:
             moves = [(i, 1) for i in range(n - 1)] + [(i, -1) for i in range(n - 2, -1, -1)]
             update = functools.partial(self._update_bond, chi=chi, noise=noise)
@@ -624,7 +699,7 @@ class DmrgEngine:
             sweep=k + 1, bond_dimension=chi, max_bond_dimension=self.state.max_bond_dimension, energy=energy,
             energy_change=change, discarded_weight=float(stats["discarded"]),
             centre_entropy=float(stats["entropy"]), seconds=time.perf_counter() - start, noise=noise,
-            matvecs=int(stats["matvecs"]),
+            matvecs=int(stats["matvecs"]), matvec_flops=int(stats["matvec_flops"]),
         )
         self.history.append(record)
         self._outcome = self._judge()
