@@ -11,10 +11,15 @@ Rev. B 88, 195412 (2013)).
 Conventions
 -----------
 Translation
-    ``T_+`` maps site ``(ix, iy, s)`` to ``(ix, iy + 1, s)``: ``T_+ c_r^dag T_+^-1 = c_{r + a2}^dag``.
-    A state with wave function ``exp(i k y)`` then has ``T_+ = exp(-i k)``, so the operator with
-    eigenvalue ``exp(i k)`` on momentum ``k`` (a shift by one cell towards -y, ``exp(i P_y)``) is
-    ``T_y^L = T_+^dag`` and ``lambda = conj(<T_+>)``. Momenta are the physical momenta around +y.
+    ``T_+`` maps site ``(ix, iy, s)`` to ``(ix, iy + 1, s)``: ``T_+ c_r^dag T_+^-1 = c_{r + a2}^dag``,
+    the translation of the left part by one unit cell towards +y. The momentum polarization is
+    ``lambda = <T_+>``. Momenta are physical momenta around +y: a state with wave function
+    ``exp(i k y)`` has ``T_+ = exp(-i k)``, so ``k = -arg`` of the eigenvalue of ``T_+``. With these
+    signs a Schmidt spectrum whose levels rise towards +k belongs to an edge that runs towards +y
+    along the cut, i.e. counterclockwise around the left part (x right, y up), and
+    ``arg lambda = (2 pi / L_y)(h_a - c-/24) + ...`` gives c- > 0 for it: the orientation convention of
+    the modular commutator J (A, B, C counterclockwise). Checked on the Chern insulator, whose J,
+    momentum counting and polarization all give c- = +1 for 0 < m < 2.
 Fermion signs
     With ``|n_1 ... n_N> = (c_1^dag)^n_1 ... (c_N^dag)^n_N |0>`` (MPS order) the permutation of
     the modes of one column picks up ``(-1)`` for every pair of occupied modes whose order it
@@ -185,7 +190,7 @@ class CutSpectrum:
     moduli : ndarray of float, shape (n,)
         ``|eigenvalue|``: 1 up to truncation where the degenerate clusters are closed under ``T``.
     polarization : complex
-        ``lambda = <T_y^L>``.
+        ``lambda = <T_+>``, the translation of the left part by one unit cell towards +y.
     circumference : int
     names : tuple of str
         Charge names.
@@ -199,6 +204,25 @@ class CutSpectrum:
     polarization: complex
     circumference: int
     names: tuple[str, ...] = ()
+    sectors: dict | None = field(default=None, repr=False)
+
+    def sector_polarization(self) -> dict[tuple[int, ...], tuple[float, complex]]:
+        """Per charge of the left part: its weight ``p_Q`` and ``lambda_Q = <T_+>`` within it (normalised).
+
+        From the eigenvalues of ``T_+`` in the Schmidt basis, or exactly from the free-fermion
+        generating function where the spectrum itself is cut off at a window.
+        """
+        if self.sectors is not None:
+            return dict(self.sectors)
+        eig = self.moduli * np.exp(-1j * self.phases)
+        w = self.values**2
+        out = {}
+        for q in sorted(set(map(tuple, self.charges.tolist()))):
+            mask = np.all(self.charges == np.array(q, dtype=np.int64).reshape(1, -1), axis=1) if q else \
+                np.ones(w.size, bool)
+            pq = float(np.sum(w[mask]))
+            out[q] = (pq, complex(np.sum(w[mask] * eig[mask]) / pq))
+        return out
 
     @property
     def levels(self) -> np.ndarray:
@@ -253,8 +277,7 @@ def cut_from_schmidt(blocks, circumference: int, names=(), tol: float = DEGENERA
                 stop += 1
             eig = np.linalg.eigvals(t[start:stop, start:stop])
             for e in eig:
-                # T_y^L = T_+^dag: its eigenvalue on momentum k is exp(i k) = conj(eigenvalue of T_+)
-                phases.append(-cmath.phase(e))
+                phases.append(-cmath.phase(e))  # T_+ = exp(-i k) on momentum k
                 moduli.append(abs(e))
             values.extend(s[start:stop])
             charges.extend([charge] * (stop - start))
@@ -266,7 +289,7 @@ def cut_from_schmidt(blocks, circumference: int, names=(), tol: float = DEGENERA
     k = len(names)
     charges = np.array(charges, dtype=np.int64).reshape(len(values), k)
     return CutSpectrum(values / np.sqrt(norm), charges, momenta, phases, np.array(moduli),
-                       complex(np.conj(total) / norm), circumference, tuple(names))
+                       complex(total / norm), circumference, tuple(names))
 
 
 # --------------------------------------------------------------------------------------------------
@@ -519,8 +542,31 @@ def gaussian_cut(state, cut: ColumnCut, *, window: float = 12.0, max_levels: int
     w = cut.circumference
     momenta = np.array([_reduce_momentum(2 * math.pi * m / w, w) for m in momenta], dtype=np.int64)
     phases = 2 * math.pi * momenta / w
+    sectors = _charge_resolved(g, unitary, int(round(float(np.real(np.trace(g))))))
     return CutSpectrum(values, charges.reshape(-1, 1), momenta, phases, np.ones(values.size),
-                       complex(np.conj(lam_plus)), w, ("N",))
+                       complex(lam_plus), w, ("N",), sectors)
+
+
+def _charge_resolved(g: np.ndarray, unitary: np.ndarray, centre: int, points: int = 64, floor: float = 1e-9):
+    """``p_Q`` and ``<T_+>`` within charge Q of the left part, from ``det(1 - G + G U e^(i theta))``.
+
+    The determinant is a polynomial in ``e^(i theta)`` whose coefficient of ``e^(i Q theta)`` is
+    ``p_Q lambda_Q`` (with U = 1: ``p_Q``); a discrete Fourier transform over ``points`` angles
+    recovers the coefficients with ``|Q - centre| < points / 2`` (the others are negligible).
+    """
+    n = g.shape[0]
+    thetas = 2 * math.pi * np.arange(points) / points
+    eye = np.eye(n)
+    f_t = np.array([np.linalg.det(eye - g + (g @ unitary) * np.exp(1j * t)) for t in thetas])
+    f_1 = np.array([np.linalg.det(eye - g + g * np.exp(1j * t)) for t in thetas])
+    out = {}
+    for r in range(-points // 2 + 1, points // 2):
+        q = centre + r
+        phase = np.exp(-1j * thetas * q)
+        pq = float(np.real(np.mean(phase * f_1)))
+        if pq > floor:
+            out[(q,)] = (pq, complex(np.mean(phase * f_t)) / pq)
+    return out
 
 
 def _enumerate_levels(nu: np.ndarray, mom: np.ndarray, window: float, max_levels: int):
