@@ -11,7 +11,9 @@ Counting (:func:`count_levels`)
     levels at relative momentum n are counted below ``xi_0 + (n + 1/2) delta``, ``delta`` the
     distance to the lowest level one momentum step away on the chiral side (a linear edge
     dispersion puts all levels of momentum n near ``xi_0 + n delta``); with ``window`` every level
-    below ``xi_0 + window`` counts.
+    below ``xi_0 + window`` counts. A sector shows a direction only when the chiral side holds
+    more counted levels than the other and its lowest level two steps away lies above
+    ``xi_0 + 3 delta / 2`` (a linear branch, not a flat band of high levels).
 Momentum polarization (:func:`fit_polarization`)
     ``lambda = <T_+> = exp[(2 pi i / L_y)(h_a - c-/24) - alpha L_y]`` (Tu, Zhang and Qi, Phys. Rev.
     B 88, 195412 (2013)). ``arg lambda`` is unwrapped along increasing ``L_y`` and fitted to
@@ -159,6 +161,12 @@ def count_levels(spectrum: CutSpectrum, *, steps: int = 4, window: float | None 
         opposite = counts_on(-side)
         if sum(counts[1:]) <= sum(opposite[1:]):
             direction = 0  # as many low levels against the first step as along it: no chirality visible
+        if direction and steps >= 2:
+            # a linear branch puts the lowest level two steps away near 2 delta; a flat band of high
+            # levels (a trivial phase's entanglement gap) puts it near delta
+            two = (rel == side * 2) & (xi > xi0 + _SAME)
+            if np.any(two) and float(xi[two][0]) < xi0 + 1.5 * spacing:
+                direction = 0
         matches = [name for name, ref in CHARACTERS.items()
                    if direction and len(counts) >= 3 and tuple(counts) == ref[:len(counts)]]
         out.append(SectorCount(q, xi0, m0, direction, counts, opposite, float(spacing), matches))
@@ -287,7 +295,8 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
 
     state, rungs, spectrum = None, [], None
     for d in bond_dimensions:
-        kwargs = {"bond_dimension": int(d)}
+        # the cut needs the state itself, not only its energy: tighter than the engine's defaults
+        kwargs = {"bond_dimension": int(d), "energy_tolerance": 1e-12, "solver_tolerance": 1e-10}
         if sweeps:
             kwargs["max_sweeps"] = int(sweeps)
         if state is not None:
