@@ -97,7 +97,8 @@ class ColumnCut:
 
 def translation_permutation(lattice) -> np.ndarray:
     """Site map of ``T_+``: ``(ix, iy, s) -> (ix, iy + 1 mod L_y, s)`` in MPS indices, shape (N,)."""
-    index = {(int(c[0]), int(c[1]), int(s)): k for k, (c, s) in enumerate(zip(lattice.cells, lattice.sublattice))}
+    cells, sub = lattice.cells, lattice.sublattice
+    index = {(int(c[0]), int(c[1]), int(s)): k for k, (c, s) in enumerate(zip(cells, sub))}
     w = lattice.circumference
     return np.array([index[(int(c[0]), (int(c[1]) + 1) % w, int(s))]
                      for c, s in zip(lattice.cells, lattice.sublattice)], dtype=np.int64)
@@ -122,14 +123,14 @@ def column_cut(lattice, column: int | None = None) -> ColumnCut:
         raise LatticeError(f"the cut diagnostics need a cylinder (open x, periodic y), got geometry "
                            f"'{lattice.geometry}'; use --set geometry=cylinder")
     if lattice.circumference < 2:
-        raise LatticeError(f"circumference {lattice.circumference}: momentum around the cylinder needs at least "
-                           "2 unit cells; use --set circumference=N with N >= 2")
+        raise LatticeError(f"circumference {lattice.circumference}: momentum around the cylinder needs at "
+                           "least 2 unit cells; use --set circumference=N with N >= 2")
     length = lattice.length
     if column is None:
         column = length // 2
     if isinstance(column, bool) or not isinstance(column, (int, np.integer)) or not 1 <= column <= length - 1:
-        raise LatticeError(f"cut column {column!r} is outside 1..{length - 1}: the left part holds that many of the "
-                           f"{length} columns; use --cut C with 1 <= C <= {length - 1}")
+        raise LatticeError(f"cut column {column!r} is outside 1..{length - 1}: the left part holds that many "
+                           f"of the {length} columns; use --cut C with 1 <= C <= {length - 1}")
     column = int(column)
     per_column = lattice.num_sites // length
     per_cell = per_column // lattice.circumference
@@ -140,8 +141,9 @@ def column_cut(lattice, column: int | None = None) -> ColumnCut:
         expected = (np.arange(per_column) + per_cell) % per_column
         if not np.array_equal(block, expected):
             raise LatticeError(
-                f"column {ix} of the {lattice.name} lattice is not mapped onto itself by a cyclic shift of one unit "
-                "cell in MPS order; the cut diagnostics need columns invariant under the translation around y")
+                f"column {ix} of the {lattice.name} lattice is not mapped onto itself by a cyclic shift of one "
+                "unit cell in MPS order; the cut diagnostics need columns invariant under the translation "
+                "around y")
     bond = column * per_column
     perm = perm[:bond].copy()
     perm.setflags(write=False)
@@ -241,7 +243,8 @@ class CutSpectrum:
 
     def __repr__(self) -> str:
         return (f"CutSpectrum({len(self.values)} Schmidt values, L_y = {self.circumference}, "
-                f"|lambda| = {abs(self.polarization):.6g}, arg lambda = {cmath.phase(self.polarization):+.6f})")
+                f"|lambda| = {abs(self.polarization):.6g}, "
+                f"arg lambda = {cmath.phase(self.polarization):+.6f})")
 
 
 def _reduce_momentum(phase: float, circumference: int) -> int:
@@ -297,7 +300,8 @@ def cut_from_schmidt(blocks, circumference: int, names=(), tol: float = DEGENERA
 # --------------------------------------------------------------------------------------------------
 
 
-def exact_cut(vector: np.ndarray, basis, space, cut: ColumnCut, *, tol: float = DEGENERACY_TOL) -> CutSpectrum:
+def exact_cut(vector: np.ndarray, basis, space, cut: ColumnCut, *,
+              tol: float = DEGENERACY_TOL) -> CutSpectrum:
     """Charge- and momentum-resolved Schmidt spectrum of an exact state (a vector on a sector basis).
 
     Parameters
@@ -356,7 +360,8 @@ def _dense_site(tensor, order) -> np.ndarray:
     return a
 
 
-def _column_transfer(env: np.ndarray, sites: list[np.ndarray], shift: int, parity: np.ndarray | None) -> np.ndarray:
+def _column_transfer(env: np.ndarray, sites: list[np.ndarray], shift: int,
+                     parity: np.ndarray | None) -> np.ndarray:
     """``E'[a', b'] = sum conj(A..)[a, s.., a'] <s..|T_+|s'..> A..[b, s'.., b']`` through one column.
 
     The bra leg of position k meets the ket leg of position ``k - shift`` (cyclically); the legs
@@ -473,13 +478,16 @@ def _mode_permutation(cut: ColumnCut, modes_per_site: int) -> np.ndarray:
 
 
 def translation_expectation_gaussian(g_left: np.ndarray, unitary: np.ndarray) -> complex:
-    """``<Gamma(U)> = det(1 - G + G U)`` for ``G_ij = <c_j^dag c_i>`` and ``Gamma(U) c_j^dag Gamma(U)^-1 = sum_i U_ij c_i^dag``."""
+    """``<Gamma(U)> = det(1 - G + G U)``.
+
+    ``G_ij = <c_j^dag c_i>`` and ``Gamma(U) c_j^dag Gamma(U)^-1 = sum_i U_ij c_i^dag``.
+    """
     n = g_left.shape[0]
     return complex(np.linalg.det(np.eye(n) - g_left + g_left @ unitary))
 
 
 def _momentum_modes(unitary: np.ndarray, circumference: int):
-    """Orthonormal eigenvectors of a permutation matrix with ``U^L = 1``, by momentum m (U = exp(-2 pi i m / L))."""
+    """Orthonormal eigenvectors of a permutation with ``U^L = 1`` by momentum m (``U = exp(-2 pi i m / L)``)."""
     w = circumference
     out = {}
     power = [np.eye(unitary.shape[0])]
@@ -516,8 +524,9 @@ def gaussian_cut(state, cut: ColumnCut, *, window: float = 12.0, max_levels: int
     most probable configuration in order of cost.
     """
     if getattr(state, "spin_like", False):
-        raise NetprobeError("the free-fermion cut needs fermion sites; for spin or boson sites the translation of "
-                            "the left part is not Gaussian in Jordan-Wigner fermions (use --engine exact or dmrg)")
+        raise NetprobeError("the free-fermion cut needs fermion sites; for spin or boson sites the translation "
+                            "of the left part is not Gaussian in Jordan-Wigner fermions (use --engine exact "
+                            "or dmrg)")
     if not hasattr(state, "correlation"):
         raise NetprobeError("the free-fermion cut needs a number-conserving state (no pairing terms); use "
                             "--engine exact or dmrg for this model")

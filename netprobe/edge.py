@@ -32,7 +32,6 @@ from __future__ import annotations
 
 import cmath
 import math
-import sys
 import time
 from dataclasses import dataclass, field
 from typing import Sequence
@@ -101,7 +100,8 @@ class SectorCount:
         """Plain values for JSON."""
         return {"charge": charge_label(self.charge), "lowest_level": self.lowest_level,
                 "base_momentum": self.base_momentum, "direction": self.direction, "counts": list(self.counts),
-                "counts_opposite": list(self.counts_opposite), "spacing": self.spacing, "matches": self.matches}
+                "counts_opposite": list(self.counts_opposite), "spacing": self.spacing,
+                "matches": self.matches}
 
 
 def _relative(m, m0, w):
@@ -237,7 +237,8 @@ def _mod1(s: float) -> float:
     return 0.5 if r <= -0.5 else r
 
 
-def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex], note: str = "") -> PolarizationFit:
+def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex],
+                     note: str = "") -> PolarizationFit:
     """Fit ``arg lambda`` over circumferences (see the module notes).
 
     Raises
@@ -252,7 +253,8 @@ def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex], 
                             f"{sorted(set(int(x) for x in lys))}; e.g. --circumferences 7,9,11,13")
     lam = np.array([p[1] for p in pairs], complex)
     if np.any(np.abs(lam) < 1e-300):
-        raise NetprobeError("the momentum polarization vanishes at some circumference; its phase is undefined")
+        raise NetprobeError("the momentum polarization vanishes at some circumference; its phase is "
+                            "undefined")
     phases = np.unwrap(np.angle(lam))
     coef_all, _ = _lsq(lys, phases)
     tail = min(lys.size, 4)
@@ -265,11 +267,13 @@ def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex], 
         coef_less, _ = _lsq(lys[1:], phases[1:])
         error = math.hypot(stat or 0.0, float(coef_less[0] - coef[0]))
     used = [int(x) for x in lys[-tail:]]
-    text = (f"s from the {tail} largest circumferences {used} (finite-size corrections fall off quickly with L_y; "
-            f"error: least squares and the change when the next smaller circumference joins); fit over all "
-            f"{lys.size}: s = {_mod1(float(coef_all[0])):+.5f}")
-    return PolarizationFit([int(x) for x in lys], phases.tolist(), np.abs(lam).tolist(), _mod1(float(coef[0])),
-                           error, float(coef[1]), text + ("; " + note if note else ""), used, _mod1(float(coef_all[0])))
+    s_all = _mod1(float(coef_all[0]))
+    text = (f"s from the {tail} largest circumferences {used} (finite-size corrections fall off quickly "
+            f"with L_y; error: least squares and the change when the next smaller circumference joins); "
+            f"fit over all {lys.size}: s = {s_all:+.5f}")
+    return PolarizationFit([int(x) for x in lys], phases.tolist(), np.abs(lam).tolist(),
+                           _mod1(float(coef[0])), error, float(coef[1]), text + ("; " + note if note else ""),
+                           used, s_all)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -313,14 +317,14 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
     info["ladder"] = rungs
     if len(rungs) > 1:
         prev = rungs[-2]
-        info["lambda_change_last_rungs"] = abs(rungs[-1]["lambda_abs"] * cmath.exp(1j * rungs[-1]["lambda_arg"])
-                                               - prev["lambda_abs"] * cmath.exp(1j * prev["lambda_arg"]))
+        last = rungs[-1]["lambda_abs"] * cmath.exp(1j * rungs[-1]["lambda_arg"])
+        info["lambda_change_last_rungs"] = abs(last - prev["lambda_abs"] * cmath.exp(1j * prev["lambda_arg"]))
     return spectrum, info
 
 
-def edge_state(model, *, engine: str = "dmrg", column: int | None = None, bond_dimensions: Sequence[int] = (64,),
-               sweeps: int | None = None, seed: int = 0, window: float = 12.0, steps: int = 4,
-               count_window: float | None = None, progress=None) -> dict:
+def edge_state(model, *, engine: str = "dmrg", column: int | None = None,
+               bond_dimensions: Sequence[int] = (64,), sweeps: int | None = None, seed: int = 0,
+               window: float = 12.0, steps: int = 4, count_window: float | None = None, progress=None) -> dict:
     """Ground state of ``model`` by ``engine``, its cut spectrum, counting and polarization.
 
     Returns a JSON-friendly dictionary with ``spectrum``, ``counting``, ``counting_details``,
@@ -359,11 +363,12 @@ def _why(circumferences, spec_params) -> str:
     parity = {c % 2 for c in circumferences}
     twist = float(spec_params.get("twist", 0.0) or 0.0)
     text = ("odd circumferences only" if parity == {1} else "even circumferences only" if parity == {0}
-            else "mixed even and odd circumferences: the left edge's filling phase 2 pi K/L_y may differ between "
-                 "them; fit odd and even separately if the fit is poor")
+            else "mixed even and odd circumferences: the left edge's filling phase 2 pi K/L_y may differ "
+                 "between them; fit odd and even separately if the fit is poor")
     text += f"; twist {twist:g} rad"
     if twist:
-        text += " (a twist adds a charge-dependent phase, so h_a shifts by about (twist/2 pi)^2/2 in U(1) sectors)"
+        text += (" (a twist adds a charge-dependent phase, so h_a shifts by about (twist/2 pi)^2/2 in "
+                 "U(1) sectors)")
     return text + "; s = h_a - c-/24 is defined mod 1"
 
 
@@ -382,16 +387,19 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
 
     circumferences = [int(c) for c in circumferences]
     if len(circumferences) < 3:
-        raise NetprobeError(f"--circumferences needs at least three values, got {circumferences}; e.g. 7,9,11,13")
+        raise NetprobeError(f"--circumferences needs at least three values, got {circumferences}; "
+                            "e.g. 7,9,11,13")
     runs = []
     for ly in sorted(circumferences):
         model = build_model(spec, {**overrides, "circumference": str(ly)})
         if progress is not None:
             print(f"edge | circumference {ly} | {model.lattice.describe()}", file=progress, flush=True)
-        runs.append(edge_state(model, engine=engine, column=column, bond_dimensions=bond_dimensions, sweeps=sweeps,
-                               seed=seed, window=window, steps=steps, count_window=count_window, progress=None))
+        runs.append(edge_state(model, engine=engine, column=column, bond_dimensions=bond_dimensions,
+                               sweeps=sweeps, seed=seed, window=window, steps=steps,
+                               count_window=count_window, progress=None))
     lys = [r["circumference"] for r in runs]
-    lambdas = [r["polarization"]["lambda_abs"] * cmath.exp(1j * r["polarization"]["lambda_arg"]) for r in runs]
+    lambdas = [r["polarization"]["lambda_abs"] * cmath.exp(1j * r["polarization"]["lambda_arg"])
+               for r in runs]
     note = _why(lys, runs[-1]["parameters"])
     fit = fit_polarization(lys, lambdas, note)
     sector_fits = []
