@@ -503,6 +503,9 @@ def _add_edge_parser(sub):
     p.add_argument("--window", type=float, default=None, metavar="XI",
                    help="count every level within XI of the lowest of its sector (default: a window that "
                         "grows with the momentum step)")
+    p.add_argument("--flux-quanta", type=int, default=0, metavar="N",
+                   help="dmrg: thread N flux quanta through the cylinder (warm-started steps) before the cut, "
+                        "to reach another anyon sector")
     p.add_argument("--levels-window", type=float, default=12.0, metavar="XI",
                    help="free fermions: many-body levels enumerated up to XI above the lowest (default 12)")
     p.add_argument("--plot", metavar="FILE.png", help="levels -ln(lambda^2) against momentum, one panel per charge")
@@ -538,7 +541,8 @@ def cmd_edge(args) -> int:
     if args.plot:
         _check_png(args.plot)
     common = dict(engine=args.engine, column=args.cut, bond_dimensions=chis, sweeps=args.sweeps, seed=args.seed,
-                  window=args.levels_window, steps=args.steps, count_window=args.window)
+                  window=args.levels_window, steps=args.steps, count_window=args.window,
+                  flux_quanta=args.flux_quanta)
     if args.circumferences:
         overrides = parse_overrides(args.overrides)
         if "circumference" in overrides:

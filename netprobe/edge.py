@@ -281,8 +281,35 @@ def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex],
 # --------------------------------------------------------------------------------------------------
 
 
-def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, window, progress):
+def _thread_flux(model, state, settings, quanta: int, steps: int, seed, progress):
+    """Warm-started DMRG while the twist grows by ``2 pi quanta`` (the adiabatic branch of :mod:`netprobe.flux`)."""
+    from netprobe.dmrg import find_ground_state
+    from netprobe.spec import build_model
+
+    if "twist" not in model.spec.parameters or not model.spec.conserve:
+        raise NetprobeError(f"--flux-quanta: model '{model.name}' needs a 'twist' parameter and a conserved charge "
+                            "to thread flux; choose the sector by its boundary or charge instead")
+    overrides = {k: repr(v) if isinstance(v, float) else str(v) for k, v in model.parameters.items()
+                 if k in model.spec.parameters and not isinstance(v, complex)}
+    twist0 = float(model.parameters.get("twist", 0.0))
+    result = None
+    for k in range(1, abs(quanta) * steps + 1):
+        theta = twist0 + math.copysign(2 * math.pi * k / steps, quanta)
+        step_model = build_model(model.spec, {**overrides, "twist": repr(theta)})
+        result = find_ground_state(step_model, settings, seed=seed, state=state, progress=None, warn=False)
+        state = result.state
+        if progress is not None:
+            print(f"edge | flux step {k}/{abs(quanta) * steps} | twist {theta:.4f} | energy {result.energy:.10f}",
+                  file=progress, flush=True)
+    return state, result
+
+
+def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, window, progress, flux_quanta=0,
+                      flux_steps=8):
     info: dict = {}
+    if flux_quanta and engine != "dmrg":
+        raise NetprobeError("--flux-quanta needs --engine dmrg (the adiabatic branch follows a warm-started "
+                            "state); with free fermions use the charge sectors of the cut instead")
     if engine == "gaussian":
         from netprobe.gaussian import gaussian_state
 
@@ -313,6 +340,15 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
         rungs.append({"bond_dimension": int(d), "energy": float(result.energy),
                       "converged": bool(getattr(result, "converged", True)),
                       "lambda_abs": abs(lam), "lambda_arg": cmath.phase(lam)})
+    if flux_quanta:
+        settings = SweepSettings(**kwargs)
+        state, result = _thread_flux(model, state, settings, flux_quanta, flux_steps, seed, progress)
+        spectrum = mps_cut(state, cut)
+        lam = spectrum.polarization
+        info["flux_quanta"] = int(flux_quanta)
+        rungs.append({"bond_dimension": int(bond_dimensions[-1]), "energy": float(result.energy),
+                      "converged": bool(getattr(result, "converged", True)), "flux_quanta": int(flux_quanta),
+                      "lambda_abs": abs(lam), "lambda_arg": cmath.phase(lam)})
     info["energy"] = rungs[-1]["energy"]
     info["ladder"] = rungs
     if len(rungs) > 1:
@@ -324,8 +360,12 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
 
 def edge_state(model, *, engine: str = "dmrg", column: int | None = None,
                bond_dimensions: Sequence[int] = (64,), sweeps: int | None = None, seed: int = 0,
-               window: float = 12.0, steps: int = 4, count_window: float | None = None, progress=None) -> dict:
+               window: float = 12.0, steps: int = 4, count_window: float | None = None, progress=None,
+               flux_quanta: int = 0) -> dict:
     """Ground state of ``model`` by ``engine``, its cut spectrum, counting and polarization.
+
+    ``flux_quanta`` (DMRG) threads that many flux quanta through the cylinder after the ground state,
+    warm-starting every step, so that the state follows its adiabatic branch into the next anyon sector.
 
     Returns a JSON-friendly dictionary with ``spectrum``, ``counting``, ``counting_details``,
     ``polarization`` (``lambda_abs``, ``lambda_arg``) and ``sectors`` (per charge of the left part:
@@ -336,7 +376,7 @@ def edge_state(model, *, engine: str = "dmrg", column: int | None = None,
     cut = column_cut(model.lattice, column)
     start = time.perf_counter()
     spectrum, info = _ground_state_cut(model, engine, cut, bond_dimensions=bond_dimensions, sweeps=sweeps,
-                                       seed=seed, window=window, progress=progress)
+                                       seed=seed, window=window, progress=progress, flux_quanta=flux_quanta)
     counts = count_levels(spectrum, steps=steps, window=count_window)
     lowest = min(counts, key=lambda c: c.lowest_level)
     lam = spectrum.polarization
@@ -375,7 +415,7 @@ def _why(circumferences, spec_params) -> str:
 def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine: str = "dmrg",
                 column: int | None = None, bond_dimensions: Sequence[int] = (64,), sweeps: int | None = None,
                 seed: int = 0, window: float = 12.0, steps: int = 4, count_window: float | None = None,
-                progress=None) -> dict:
+                progress=None, flux_quanta: int = 0) -> dict:
     """:func:`edge_state` at every circumference, and the polarization fit (overall and per charge offset).
 
     The result of the largest circumference supplies ``spectrum`` and ``counting``; ``polarization``
@@ -396,7 +436,7 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
             print(f"edge | circumference {ly} | {model.lattice.describe()}", file=progress, flush=True)
         runs.append(edge_state(model, engine=engine, column=column, bond_dimensions=bond_dimensions,
                                sweeps=sweeps, seed=seed, window=window, steps=steps,
-                               count_window=count_window, progress=None))
+                               count_window=count_window, progress=None, flux_quanta=flux_quanta))
     lys = [r["circumference"] for r in runs]
     lambdas = [r["polarization"]["lambda_abs"] * cmath.exp(1j * r["polarization"]["lambda_arg"])
                for r in runs]
