@@ -6,6 +6,7 @@ returns its path. Functions share only the palette.
 
 Functions
     :func:`plot_layout`  the lattice with the parts of a region layout.
+    :func:`plot_cut_spectrum`  entanglement levels at a cylinder cut against momentum, by charge.
 """
 
 from __future__ import annotations
@@ -20,7 +21,7 @@ from matplotlib.figure import Figure
 from netprobe.errors import LatticeError
 from netprobe.regions import Layout
 
-__all__ = ["PART_COLOURS", "plot_layout", "plot_profiles", "plot_flux", "plot_assessment"]
+__all__ = ["PART_COLOURS", "plot_layout", "plot_profiles", "plot_flux", "plot_assessment", "plot_cut_spectrum"]
 
 PART_COLOURS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#000000")
 """Colours of parts A, B, C, ... in order: the colour-blind-safe set of M. Okabe and K. Ito,
@@ -266,3 +267,55 @@ def plot_assessment(assessment, path, *, title=None) -> Path:
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     return Path(path)
+
+
+def plot_cut_spectrum(result: dict, path, *, title=None, sectors: int = 5, height: float = 8.0) -> Path:
+    """Levels -ln(lambda^2) against momentum m (k = 2 pi m / L_y), one panel per charge of the left part.
+
+    Parameters
+    ----------
+    result : dict
+        The JSON result of ``netprobe edge`` (``spectrum``, ``counting_details``, ``circumference``).
+    sectors : int
+        At most this many charge sectors, those with the lowest levels.
+    height : float
+        Levels up to this far above the lowest of each panel are drawn.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    by_charge: dict = {}
+    for entry in result["spectrum"]:
+        key = "none" if entry["charge"] is None else (",".join(map(str, entry["charge"]))
+                                                      if isinstance(entry["charge"], list) else str(entry["charge"]))
+        by_charge.setdefault(key, []).append((entry["momentum"], entry["level"]))
+    details = {s["charge"]: s for s in result["counting_details"]["sectors"]}
+    keys = sorted(by_charge, key=lambda k: min(level for _, level in by_charge[k]))[:sectors]
+    keys = sorted(keys, key=lambda k: [int(x) for x in k.split(",")] if k != "none" else [0])
+    w = int(result["circumference"])
+    fig = Figure(figsize=(2.4 * len(keys) + 0.8, 3.6), dpi=120)
+    FigureCanvasAgg(fig)
+    axes = []
+    for n, key in enumerate(keys):
+        ax = fig.add_subplot(1, len(keys), n + 1, sharey=axes[0] if axes else None)
+        axes.append(ax)
+        points = np.array(by_charge[key], dtype=float)
+        low = points[:, 1].min()
+        keep = points[:, 1] <= low + height
+        ax.scatter(points[keep, 0], points[keep, 1], s=22, marker="_", linewidths=1.6,
+                   color=PART_COLOURS[n % len(PART_COLOURS)])
+        sector = details.get(key)
+        label = f"charge {key}" if key != "none" else "all states"
+        if sector is not None:
+            label += "\ncounts " + " ".join(map(str, sector["counts"]))
+        ax.set_title(label, fontsize=8)
+        ax.set_xlim(-(w // 2) - 0.5, w // 2 + 0.5)
+        ax.set_xlabel("momentum m (k = 2 pi m / L_y)", fontsize=7)
+        ax.grid(alpha=0.25)
+        ax.tick_params(labelsize=7)
+    if axes:
+        axes[0].set_ylabel("-ln(lambda^2)")
+    if title:
+        fig.suptitle(title, fontsize=9)
+    fig.tight_layout()
+    fig.savefig(path)
+    return path

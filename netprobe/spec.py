@@ -23,7 +23,8 @@ Layout
     [[term]]
     on = "nn"                         # a bond family of the lattice
     ops = "cdag c"                    # a sum of products, one operator per bond member, see below
-    coupling = "-t"                   # expression; on the `sites` family also x, y, sublattice, eps
+    coupling = "-t"                   # expression; on the `sites` family also x, y, sublattice, eps;
+                                      #   on every family `members` (members present on the bond)
     conjugate = true                  # also add the Hermitian conjugate (default false)
     peierls = true                    # apply flux/twist phases to charge-moving pairs (default true)
 
@@ -433,6 +434,7 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None) -> 
                 space.operator(name)  # unknown operators fail here, before any bond
         for bond_index, bond in enumerate(bonds):
             local_env = dict(env)
+            local_env["members"] = len(bond.sites)  # fewer than the family's arity where an open end cuts it
             if entry.on == "sites":
                 site = bond.sites[0]
                 local_env.update(x=float(lattice.positions[site, 0]), y=float(lattice.positions[site, 1]),

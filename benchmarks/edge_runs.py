@@ -1,0 +1,101 @@
+"""End-to-end cut diagnostics on two interacting chiral phases (not part of the default suite).
+
+Runs ``netprobe.edge.edge_ladder`` (DMRG at each circumference, the momentum-resolved Schmidt
+spectrum at the central cut, level counting and the momentum-polarization fit) for
+
+- the kagome Heisenberg model with scalar chirality (``models/kagome_chiral.toml``), expected in the
+  nu = 1/2 bosonic Laughlin phase: counting 1, 1, 2, 3 per Sz sector, s = -1/24 (vacuum) or +5/24
+  (semion) mod 1 (shared/references.md);
+- the Kitaev honeycomb model with the three-spin term kappa (``models/kitaev.toml``), expected
+  c- = 1/2: Ising counting and s = -1/48, +1/24 or 23/48 by sector (shared/references.md).
+
+These are invented benchmark settings of our own at modest sizes (a few minutes on 2 cores); at
+such circumferences the fits are far from their asymptotic regime, so the numbers record what the
+method gives there, not converged values. Usage::
+
+    python -m benchmarks.edge_runs            # both models, print a summary
+    python -m benchmarks.edge_runs --record   # also append a dated section to benchmarks/RESULTS.md
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime
+import json
+import sys
+import time
+from pathlib import Path
+
+from netprobe.edge import edge_ladder
+from netprobe.spec import load_spec
+
+__all__ = ["RUNS", "run", "main"]
+
+RUNS = {
+    "kagome_chiral": {"overrides": {"length": "4", "Jchi": "0.5"}, "circumferences": (2, 3, 4),
+                      "bond_dimensions": (64, 128)},
+    "kitaev": {"overrides": {"length": "4", "kappa": "0.1"}, "circumferences": (2, 3, 4, 5),
+               "bond_dimensions": (64, 128)},
+}
+
+
+def run(name: str, *, sweeps: int = 6, progress=sys.stderr) -> dict:
+    """One model's ladder; returns the JSON result with the wall time."""
+    cfg = RUNS[name]
+    start = time.perf_counter()
+    out = edge_ladder(load_spec(name), dict(cfg["overrides"]), cfg["circumferences"], engine="dmrg",
+                      bond_dimensions=cfg["bond_dimensions"], sweeps=sweeps, progress=progress)
+    out["wall_seconds"] = time.perf_counter() - start
+    return out
+
+
+def _summary(name: str, out: dict) -> list[str]:
+    pol = out["polarization"]
+    err = "n/a" if pol["error"] is None else f"{pol['error']:.4f}"
+    lines = [f"{name}: {out['lattice']} (largest), D = {', '.join(map(str, RUNS[name]['bond_dimensions']))}, "
+             f"{out['wall_seconds']:.0f} s"]
+    for r in out["runs"]:
+        lines.append(f"    L_y = {r['circumference']}: |lambda| = {r['lambda_abs']:.6g}, arg = {r['lambda_arg']:+.5f}, "
+                     f"counting {r['counting']}")
+    lines.append(f"    s = h_a - c-/24 = {pol['h_minus_c_over_24']:+.5f} +- {err}; c- (vacuum) = {pol['c_minus']:+.3f}; "
+                 f"{pol['note']}")
+    details = out["counting_details"]
+    low = next(s for s in details["sectors"] if s["charge"] == details["lowest_sector"])
+    lines.append(f"    lowest sector {low['charge']}: counts {low['counts']} direction {low['direction']} "
+                 f"matches {low['matches'] or 'none'}")
+    return lines
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description="End-to-end cut diagnostics on interacting chiral phases.")
+    parser.add_argument("--only", default=",".join(RUNS), help="comma-separated subset of " + ",".join(RUNS))
+    parser.add_argument("--sweeps", type=int, default=6, help="maximum DMRG sweeps per rung")
+    parser.add_argument("--record", action="store_true", help="append a dated section to benchmarks/RESULTS.md")
+    args = parser.parse_args(argv)
+    names = [n for n in args.only.split(",") if n]
+    unknown = [n for n in names if n not in RUNS]
+    if unknown:
+        parser.error(f"unknown run(s) {', '.join(unknown)}; valid: {', '.join(RUNS)}")
+    lines, results = [], {}
+    for name in names:
+        out = run(name, sweeps=args.sweeps)
+        results[name] = out
+        lines.extend(_summary(name, out))
+        print("\n".join(_summary(name, out)), flush=True)
+    folder = Path(__file__).parent / "results"
+    folder.mkdir(exist_ok=True)
+    target = folder / "edge_runs.json"
+    tmp = target.with_suffix(".json.tmp")
+    tmp.write_text(json.dumps(results, indent=1, default=str))
+    tmp.replace(target)
+    if args.record:
+        stamp = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+        command = "python -m benchmarks.edge_runs " + " ".join(argv if argv is not None else sys.argv[1:])
+        section = [f"\n## {stamp}: cut diagnostics end to end (`{command.strip()}`)\n", "```", *lines, "```", ""]
+        with open(Path(__file__).parent / "RESULTS.md", "a") as fh:
+            fh.write("\n".join(section))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
