@@ -181,6 +181,7 @@ def extrapolate_in_size(radii: Sequence[float], values: Sequence[float], errors:
     if len(np.unique(r)) < 3:
         return None
     sigma = np.ones_like(v)
+    measured = np.zeros(0)
     if errors is not None:
         # a size whose error is unknown (one placement) or rounding (placements that are images of each
         # other) gets the median error of the others, so that no point pins the fit by itself
@@ -198,7 +199,10 @@ def extrapolate_in_size(radii: Sequence[float], values: Sequence[float], errors:
         chi2 = float(np.sum((design @ coef - v / sigma) ** 2))
         rows.append((chi2, float(coef[0]), float(coef[1]), float(theta), design))
     chi2_min, v_inf, amp, theta, design = min(rows, key=lambda row: row[0])
-    scale = max(1.0, chi2_min / dof) if dof > 0 else 1.0
+    if measured.size:  # errors given: residuals beyond them widen the error, never narrow it
+        scale = max(1.0, chi2_min / dof) if dof > 0 else 1.0
+    else:  # no errors: the residuals alone set the scale
+        scale = chi2_min / dof if dof > 0 else 0.0
     cov = np.linalg.pinv(design.T @ design) * scale
     se = float(np.sqrt(max(cov[0, 0], 0.0)))
     accepted = [row[1] for row in rows if row[0] <= chi2_min + scale]

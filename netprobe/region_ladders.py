@@ -173,7 +173,7 @@ def region_ladder(lattice: Lattice, *, max_sites: int, min_sites: int = 6, place
 
 
 def markov_series(lattice: Lattice, *, max_sites: int, inner: float = 2.0, outer: float = 2.0,
-                  widths: Sequence[float] = (1, 2, 3, 4, 5), fits: Callable[[Layout], bool] | None = None
+                  widths: Sequence[float] = (0.5, 1, 1.5, 2, 3, 4, 5), fits: Callable[[Layout], bool] | None = None
                   ) -> list[tuple[float, Layout]]:
     """Shielded layouts A (d <= inner), B (a ring of width w), C (the next ring, width ``outer``).
 
