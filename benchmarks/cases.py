@@ -308,6 +308,7 @@ def free_fermions(ctx: Context) -> list[Figure]:
     # End to end: model file -> model -> quadratic form -> ground state (by momentum around the
     # cylinder) -> region -> J and Chern number, all timed together.
     params = {"length": "44", "circumference": "36", "twist": "1.0"}
+    cpu_start = time.process_time()  # beside the wall time: on a shared machine it shows the waiting
     start = time.perf_counter()
     model = load_model("haldane", params)
     loaded = time.perf_counter()
@@ -318,11 +319,14 @@ def free_fermions(ctx: Context) -> list[Figure]:
     j = state.modular_commutator(a, b, c)
     nu = state.chern_number(a, b, c)
     end_to_end = time.perf_counter() - start
+    cpu = time.process_time() - cpu_start
     prepare = prepared - loaded
     ctx.log(f"    end to end (load {loaded - start:.1f} s, ground state by {state.route} {prepare:.1f} s, "
-            f"region + J + Chern {end_to_end - (prepared - start):.1f} s): {end_to_end:.1f} s")
+            f"region + J + Chern {end_to_end - (prepared - start):.1f} s): {end_to_end:.1f} s "
+            f"({cpu:.1f} s of CPU time)")
     figures = [Figure("free_fermion_end_to_end_1600_sites_time_vs_3s", end_to_end / 3.0, 1.0, "<=", {
-        "seconds": end_to_end, "load_model_seconds": loaded - start, "ground_state_seconds": prepare,
+        "seconds": end_to_end, "cpu_seconds": cpu, "load_model_seconds": loaded - start,
+        "ground_state_seconds": prepare,
         "route": state.route, "J": j, "chern_number": nu, "sites": len(a) + len(b) + len(c),
         "lattice_sites": model.lattice.num_sites})]
     if not ctx.quick:  # the dense route for comparison (one eigendecomposition of 3168 modes)
