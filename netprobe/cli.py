@@ -215,6 +215,7 @@ def _model_summary(model) -> dict:
         "complex": bool(ham.is_complex),
         "exact_dimension": dim,
         "mpo_bond_dimensions": mpo.bond_dimensions,
+        "mpo_bond_dimensions_uncompressed": list(mpo.uncompressed_bond_dimensions),
         "parameters": model.numeric_parameters(),
     }
 
@@ -235,6 +236,8 @@ def cmd_check(args) -> int:
         f"exact dim  {info['exact_dimension']:,} basis states in the sector",
         f"MPO        max bond dimension {max(info['mpo_bond_dimensions'], default=1)} "
         f"(bonds: {' '.join(map(str, info['mpo_bond_dimensions']))})",
+        f"           before exact compression {max(info['mpo_bond_dimensions_uncompressed'], default=1)} "
+        f"(bonds: {' '.join(map(str, info['mpo_bond_dimensions_uncompressed']))})",
         "Hermitian  yes",
     ]
     _emit(args, info, lines)

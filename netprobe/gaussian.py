@@ -8,23 +8,12 @@ n of the region instead of exponential, and the real-space Chern number comes fo
 
 Stages
 ------
-Extraction (:func:`quadratic_form`)
-    Each local matrix of a :class:`~netprobe.terms.LocalProduct` is written in the qubit basis of its
-    modes (one mode per ``fermion`` site; ``up`` then ``dn`` for ``electron`` sites; one for
-    ``spin-1/2`` and ``hardcore-boson`` sites) and split into single-mode monomials I, F, a, a^dag
-    (``F = 1 - 2n``, ``a|1> = |0>``). A product of monomials with odd letters on modes
-    ``m_1 < ... < m_k`` and F letters on a set T equals, with ``c_m = F_0 ... F_{m-1} a_m``,
-    ``(-1)^(k(k-1)/2) F_R c_m1 ... c_mk`` (daggers kept), where R is the symmetric difference of
-    T and the set of modes lying below an odd number of odd letters (moving the strings of the
-    later odd letters to the left past the earlier ones). It is quadratic exactly when k = 0 and
-    |T| <= 1, or k = 2 and T is the open interval between the two odd modes; then R = {m_1} and
-    ``F_p c_p = c_p``, ``F_p c_p^dag = -c_p^dag`` give::
-
-        a_p (F..) a_q  = -c_p c_q          a^dag_p (F..) a_q     = +c_p^dag c_q
-        a_p (F..) a^dag_q = +c_q^dag c_p   a^dag_p (F..) a^dag_q = +c_p^dag c_q^dag
-
-    and ``F_l = 1 - 2 n_l``. With occupation along x for spins (``X = 1 - 2n``, ``Z = a + a^dag``)
-    this gives ``Z_i Z_(i+1) = (c_i^dag - c_i)(c_(i+1)^dag + c_(i+1))``.
+Extraction (:func:`quadratic_form`, in :mod:`netprobe.quadratic`)
+    The Hamiltonian as ``c^dag h c + (1/2)(c^dag Delta c^dag + h.c.) + constant`` in modes.
+Diagonalisation (route ``dense`` or ``momentum``, :class:`GaussianOptions`)
+    One eigendecomposition of the whole lattice, or, where the form is translation invariant around
+    the cylinder, one per momentum (:mod:`netprobe.gaussian_momentum`); then the states hold the
+    correlations as L_y real-space blocks and read each region's rows and columns from them.
 Number-conserving ground state (:class:`FreeFermionState`)
     ``G_ij = <c_j^dag c_i>``, the projector on the filled levels (the sector's N lowest levels).
 Pairing ground state (:class:`MajoranaState`)
@@ -54,7 +43,22 @@ import numpy as np
 import scipy.linalg
 from scipy.special import entr
 
-from netprobe.errors import HermiticityError, LatticeError, NetprobeError
+from netprobe.errors import LatticeError
+from netprobe.gaussian_momentum import (
+    CylinderMatrix,
+    cylinder_layout,
+    majorana_layout,
+    matrix_function_blocks,
+    momentum_eigh,
+    translation_blocks,
+)
+from netprobe.quadratic import (
+    GaussianOptions,
+    GaussianStateError,
+    NotQuadraticError,
+    QuadraticForm,
+    quadratic_form,
+)
 
 __all__ = [
     "NotQuadraticError",
@@ -73,402 +77,6 @@ __all__ = [
     "majorana_modular_commutator",
     "real_space_chern_number",
 ]
-
-
-class NotQuadraticError(NetprobeError):
-    """The Hamiltonian is not quadratic in fermion operators, so it has no Gaussian ground state."""
-
-
-class GaussianStateError(NetprobeError):
-    """A quadratic model whose ground state the Gaussian engine cannot build (degenerate, wrong path)."""
-
-
-_SPIN_AXES = ("z", "x", "y")
-
-
-@dataclass(frozen=True, kw_only=True)
-class GaussianOptions:
-    """Settings of the free-fermion engine.
-
-    Attributes
-    ----------
-    clip : float
-        Eigenvalues of G_X (and (1 + i Gamma_X)/2) are clipped to [clip, 1 - clip] before the
-        logarithms of a modular Hamiltonian; 1e-14 keeps ln within +-32.
-    degeneracy_tol : float
-        The ground state is refused as not unique when the last filled and the first empty level
-        (or the smallest Majorana level) are closer than this.
-    spin_axis : {'auto', 'z', 'x', 'y'}
-        For spin-1/2 sites: the Pauli axis whose -1 eigenstate counts as an occupied mode. ``auto``
-        tries z, x, y in turn and takes the first that makes the model quadratic.
-    quadratic_rtol : float
-        Left-over non-quadratic monomials below this fraction of the largest coupling are rounding.
-    """
-
-    clip: float = 1e-14
-    degeneracy_tol: float = 1e-10
-    spin_axis: str = "auto"
-    quadratic_rtol: float = 1e-12
-
-    def __post_init__(self):
-        if not 0.0 < self.clip < 0.5:
-            raise GaussianStateError(f"GaussianOptions: clip must lie in (0, 0.5), got {self.clip!r}")
-        if not self.degeneracy_tol >= 0.0:
-            raise GaussianStateError(
-                f"GaussianOptions: degeneracy_tol must be >= 0, got {self.degeneracy_tol!r}")
-        if self.spin_axis not in ("auto",) + _SPIN_AXES:
-            raise GaussianStateError(
-                f"GaussianOptions: unknown spin_axis '{self.spin_axis}'; "
-                f"valid: auto, {', '.join(_SPIN_AXES)}")
-        if not 0.0 <= self.quadratic_rtol < 1e-3:
-            raise GaussianStateError(
-                f"GaussianOptions: quadratic_rtol must lie in [0, 1e-3), got {self.quadratic_rtol!r}")
-
-
-# ----------------------------------------------------------------------------------------------
-# extraction of the quadratic form
-# ----------------------------------------------------------------------------------------------
-
-_I, _F, _A, _D = 0, 1, 2, 3  # single-mode monomials: identity, F = 1 - 2n, a, a^dag
-# coefficients (I, F, a, a^dag) of a 2x2 matrix from its entries (M00, M01, M10, M11)
-_TO_MONOMIALS = np.array([[0.5, 0, 0, 0.5], [0.5, 0, 0, -0.5], [0, 1, 0, 0], [0, 0, 1, 0]])
-_MONOMIAL_RTOL = 1e-13
-
-
-@dataclass(frozen=True)
-class _ModeMap:
-    """How a site space becomes modes: the unitary V with M_qubit = V M V^dag, modes per site."""
-
-    modes_per_site: int
-    to_qubits: np.ndarray
-    label: str
-    spin_like: bool
-
-
-def _pauli_axis_map(axis: str) -> _ModeMap:
-    s = 1 / math.sqrt(2)
-    columns = {"z": np.eye(2), "x": np.array([[s, s], [s, -s]]),
-               "y": np.array([[s, s], [1j * s, -1j * s]])}[axis]
-    # qubit |0> = +1 eigenstate of the axis (empty), |1> = -1 eigenstate (occupied)
-    return _ModeMap(1, columns.conj().T, f"spin-1/2 with occupation along {axis}", True)
-
-
-def _mode_maps(space, options: GaussianOptions) -> list[_ModeMap]:
-    if space.name == "fermion":
-        return [_ModeMap(1, np.eye(2), "fermion", False)]
-    if space.name == "electron":
-        perm = [0, 2, 1, 3]  # site basis (0, up, dn, updn) -> Kronecker basis (n_up, n_dn)
-        v = np.zeros((4, 4))
-        v[perm, np.arange(4)] = 1.0
-        return [_ModeMap(2, v, "electron (modes up, dn)", False)]
-    if space.name == "hardcore-boson":
-        return [_ModeMap(1, np.eye(2), "hard-core boson", True)]
-    if space.name == "spin-1/2":
-        axes = _SPIN_AXES if options.spin_axis == "auto" else (options.spin_axis,)
-        return [_pauli_axis_map(a) for a in axes]
-    raise NotQuadraticError(
-        f"site space '{space.name}' has no free-fermion form; the Gaussian engine takes fermion, electron, "
-        "spin-1/2 and hardcore-boson sites (use the exact or DMRG engine)"
-    )
-
-
-def _site_monomials(matrix: np.ndarray, mode_map: _ModeMap):
-    """Split a local matrix into ((coefficient, letters), ...) with one letter per mode of the site."""
-    k = mode_map.modes_per_site
-    v = mode_map.to_qubits
-    q = v @ matrix @ v.conj().T
-    t = q.reshape((2,) * (2 * k))
-    t = t.transpose([x for pair in zip(range(k), range(k, 2 * k)) for x in pair]).reshape((4,) * k)
-    for axis in range(k):
-        t = np.moveaxis(np.tensordot(_TO_MONOMIALS, t, axes=([1], [axis])), 0, axis)
-    scale = np.max(np.abs(t), initial=0.0)
-    out = []
-    for letters in zip(*np.nonzero(np.abs(t) > _MONOMIAL_RTOL * scale)):
-        coef = complex(t[letters])
-        out.append((coef, tuple(int(x) for x in letters)))
-    return tuple(out)
-
-
-@dataclass(frozen=True, eq=False)
-class QuadraticForm:
-    """``H = sum_ij c_i^dag h_ij c_j + (1/2) sum_ij (Delta_ij c_i^dag c_j^dag + h.c.) + constant``.
-
-    Attributes
-    ----------
-    hopping : ndarray, shape (n, n)
-        The Hermitian matrix h; modes in Jordan-Wigner order (site by site, ``up`` before ``dn``).
-    pairing : ndarray, shape (n, n)
-        The antisymmetric matrix Delta (zero for number-conserving models).
-    constant : float
-    num_sites, modes_per_site : int
-    mapping : str
-        How sites became modes (e.g. ``"spin-1/2 with occupation along x"``).
-    site_rotation : ndarray, shape (d, d)
-        The unitary V taking a site-basis matrix M to its qubit-basis form V M V^dag.
-    spin_like : bool
-        True for spin and boson sites: their reduced density matrices equal the fermionic ones only
-        for sets contiguous in MPS order.
-    name : str
-    """
-
-    hopping: np.ndarray = field(repr=False)
-    pairing: np.ndarray = field(repr=False)
-    constant: float
-    num_sites: int
-    modes_per_site: int
-    mapping: str
-    site_rotation: np.ndarray = field(repr=False)
-    spin_like: bool = False
-    name: str = ""
-
-    @property
-    def num_modes(self) -> int:
-        """Number of fermion modes n."""
-        return self.num_sites * self.modes_per_site
-
-    @property
-    def has_pairing(self) -> bool:
-        """True if some Delta_ij is nonzero."""
-        return bool(self.pairing.any())
-
-    @property
-    def is_complex(self) -> bool:
-        """True if h or Delta has a nonzero imaginary part."""
-        return bool(np.iscomplexobj(self.hopping) or np.iscomplexobj(self.pairing))
-
-    def majorana_matrix(self) -> tuple[np.ndarray, float]:
-        """``(W, shift)`` with ``H = (i/4) sum_pq W_pq g_p g_q + shift``, W real antisymmetric (2n x 2n).
-
-        Notes
-        -----
-        With Nambu spinor psi = (c, c^dag) = Omega g, H = (1/2) psi^dag H_BdG psi + constant + Tr h / 2,
-        H_BdG = [[h, Delta], [Delta^dag, -h^T]]; since Omega Omega^dag = 1/2, W = 2 Im(Omega^dag H_BdG
-        Omega) and shift = constant + Tr h / 2.
-        """
-        n = self.num_modes
-        h, d = self.hopping, self.pairing
-        bdg = np.block([[h, d], [d.conj().T, -h.T]])
-        omega = np.zeros((2 * n, 2 * n), dtype=complex)
-        j = np.arange(n)
-        omega[j, 2 * j] = 0.5
-        omega[j, 2 * j + 1] = 0.5j
-        omega[n + j, 2 * j] = 0.5
-        omega[n + j, 2 * j + 1] = -0.5j
-        w = 2 * (omega.conj().T @ bdg @ omega).imag
-        w = 0.5 * (w - w.T)
-        return w, float(self.constant + 0.5 * np.trace(h).real)
-
-    def __repr__(self) -> str:
-        kind = "pairing" if self.has_pairing else "number-conserving"
-        label = f"'{self.name}', " if self.name else ""
-        return f"QuadraticForm({label}{self.num_modes} modes, {kind}, {self.mapping})"
-
-
-class _Collector:
-    """Sums of the physical monomials found while expanding the products."""
-
-    def __init__(self):
-        self.constant = 0.0 + 0.0j
-        self.hop = ([], [], [])
-        self.cdcd = ([], [], [])  # c_p^dag c_q^dag, p < q
-        self.cc = ([], [], [])  # c_p c_q, p < q
-        self.other: dict[tuple, list] = {}
-        self.scale = 0.0
-
-    @staticmethod
-    def _push(target, p, q, value):
-        target[0].append(p)
-        target[1].append(q)
-        target[2].append(value)
-
-    def add(self, coef: complex, odd, fmodes, origin: str):
-        self.scale = max(self.scale, abs(coef))
-        if not odd:
-            if len(fmodes) == 0:
-                self.constant += coef
-                return
-            if len(fmodes) == 1:  # F_l = 1 - 2 n_l
-                self.constant += coef
-                self._push(self.hop, int(fmodes[0]), int(fmodes[0]), -2 * coef)
-                return
-        elif len(odd) == 2:
-            (p, lp), (q, lq) = odd
-            inner = q - p - 1
-            if len(fmodes) == inner and (inner == 0 or (fmodes[0] == p + 1 and fmodes[-1] == q - 1)):
-                if lp == _A and lq == _A:
-                    self._push(self.cc, p, q, -coef)
-                elif lp == _D and lq == _A:
-                    self._push(self.hop, p, q, coef)
-                elif lp == _A and lq == _D:
-                    self._push(self.hop, q, p, coef)
-                else:
-                    self._push(self.cdcd, p, q, coef)
-                return
-        key = (tuple(odd), tuple(int(m) for m in fmodes))
-        entry = self.other.get(key)
-        if entry is None:
-            self.other[key] = [coef, origin]
-        else:
-            entry[0] += coef
-
-    def culprit(self, rtol: float) -> str | None:
-        for coef, origin in self.other.values():
-            if abs(coef) > rtol * max(self.scale, 1e-300):
-                return origin or "(no origin recorded)"
-        return None
-
-
-def _collect(products, mode_map: _ModeMap) -> _Collector:
-    col = _Collector()
-    k = mode_map.modes_per_site
-    cache: dict = {}
-    empty = np.zeros(0, dtype=np.int64)
-    for prod in products:
-        # strings repeat one matrix over many sites: group the sites by matrix content first
-        # (the byte strings of float and complex d x d matrices differ in length, so bytes are a key)
-        keys = list(map(np.ndarray.tobytes, prod.matrices))
-        index = {key: i for i, key in enumerate(dict.fromkeys(keys))}
-        codes = np.fromiter(map(index.__getitem__, keys), dtype=np.int64, count=len(keys))
-        sites = np.asarray(prod.sites, dtype=np.int64)
-        coef = complex(prod.coefficient)
-        fparts, odd, varying = [], [], []
-        for key, i in index.items():
-            positions = np.flatnonzero(codes == i)
-            dec = cache.get(key)
-            if dec is None:
-                dec = cache[key] = _site_monomials(prod.matrices[positions[0]], mode_map)
-            if not dec:
-                break
-            where = sites[positions] * k
-            if len(dec) == 1:
-                c, letters = dec[0]
-                coef *= c ** where.size
-                for offset, letter in enumerate(letters):
-                    if letter == _F:
-                        fparts.append(where + offset)
-                    elif letter != _I:
-                        odd.extend((int(m), letter) for m in where + offset)
-            else:
-                varying.extend((int(base), dec) for base in where)
-        else:
-            for combo in itertools.product(*(dec for _, dec in varying)):
-                c_all = coef
-                f_all = list(fparts)
-                odd_all = list(odd)
-                for (base, _), (c, letters) in zip(varying, combo):
-                    c_all *= c
-                    for offset, letter in enumerate(letters):
-                        if letter == _F:
-                            f_all.append(np.array([base + offset]))
-                        elif letter != _I:
-                            odd_all.append((base + offset, letter))
-                fmodes = np.sort(np.concatenate(f_all)) if f_all else empty
-                odd_all.sort()
-                col.add(c_all, odd_all, fmodes, prod.origin)
-    return col
-
-
-def _dense(n: int, triples, dtype=complex) -> np.ndarray:
-    out = np.zeros((n, n), dtype=dtype)
-    if triples[0]:
-        np.add.at(out, (np.array(triples[0]), np.array(triples[1])), np.array(triples[2]))
-    return out
-
-
-def _maybe_real(mat: np.ndarray) -> np.ndarray:
-    return mat.real.copy() if not np.any(mat.imag) else mat
-
-
-def _model_hint(origin: str, model) -> str:
-    """Which parameter to set to zero for a non-quadratic term (from the model description)."""
-    spec = getattr(model, "spec", None)
-    for entry in getattr(spec, "terms", ()):
-        if origin.startswith(entry.label):
-            names = sorted(entry.coupling.names)
-            if len(names) == 1:
-                return f" (set {names[0]} = 0)"
-            return f" (make its coupling '{entry.coupling.text}' vanish)"
-    return " (remove it, or use the exact or DMRG engine)"
-
-
-def quadratic_form(hamiltonian, *, name: str = "", options: GaussianOptions | None = None,
-                   model=None) -> QuadraticForm:
-    """Extract the quadratic form of a Hamiltonian built from local products.
-
-    Parameters
-    ----------
-    hamiltonian : Hamiltonian
-        Terms in normal form (:mod:`netprobe.terms`), on fermion, electron, spin-1/2 or hard-core
-        boson sites.
-    name : str
-        Model name for messages.
-    options : GaussianOptions, optional
-    model : Model, optional
-        The model the Hamiltonian came from; used only to name the coupling in error messages.
-
-    Returns
-    -------
-    QuadraticForm
-
-    Raises
-    ------
-    NotQuadraticError
-        If a monomial of degree other than 0 or 2 survives (for spins: along every axis tried); the
-        message names the term.
-    HermiticityError
-        If the extracted h or Delta break Hermiticity.
-
-    Notes
-    -----
-    See the module notes for the monomial rules; the Jordan-Wigner order is the MPS order.
-    """
-    options = options or GaussianOptions()
-    name = name or getattr(model, "name", "")
-    label = f"model '{name}'" if name else "the Hamiltonian"
-    space = hamiltonian.space
-    maps = _mode_maps(space, options)
-    if space.name == "spin-1/2" and "2Sz" in getattr(hamiltonian, "conserve", ()):
-        maps = [m for m in maps if m.label.endswith("along z")]  # 2Sz must be the particle number
-        if not maps:
-            raise GaussianStateError(
-                f"{label} conserves 2Sz, which is a particle number only with occupation along z; "
-                "use spin_axis='z' or 'auto'")
-    failures = []
-    for mode_map in maps:
-        col = _collect(hamiltonian.products, mode_map)
-        culprit = col.culprit(options.quadratic_rtol)
-        if culprit is not None:
-            failures.append((mode_map, culprit))
-            continue
-        n = hamiltonian.num_sites * mode_map.modes_per_site
-        h = _dense(n, col.hop)
-        scale = max(col.scale, 1.0)
-        hermitian = np.max(np.abs(h - h.conj().T), initial=0.0) <= 1e-10 * scale
-        if col.cdcd[0] or col.cc[0]:
-            cdcd = _dense(n, col.cdcd)
-            cc = _dense(n, col.cc)
-            hermitian = hermitian and np.max(np.abs(cc + cdcd.conj()), initial=0.0) <= 1e-10 * scale
-            pairing = _maybe_real(0.5 * ((cdcd - cdcd.T) - (cc - cc.T).conj()))
-        else:
-            pairing = np.zeros((n, n))
-        if not hermitian:
-            raise HermiticityError(
-                f"{label}: the quadratic form is not Hermitian; add the conjugate of every hopping and "
-                "pairing term (conjugate = true)")
-        h = _maybe_real(0.5 * (h + h.conj().T))
-        for arr in (h, pairing):
-            arr.setflags(write=False)
-        return QuadraticForm(h, pairing, float(col.constant.real), hamiltonian.num_sites,
-                             mode_map.modes_per_site, mode_map.label, mode_map.to_qubits,
-                             mode_map.spin_like, name)
-    if len(failures) == 1:
-        origin = failures[0][1]
-        extra = "" if not failures[0][0].spin_like else " after Jordan-Wigner in MPS order"
-        raise NotQuadraticError(f"{label} is not quadratic{extra}: term {origin}{_model_hint(origin, model)}")
-    tried = "; ".join(f"along {m.label[-1]}: term {origin}" for m, origin in failures)
-    raise NotQuadraticError(
-        f"{label} is not quadratic after Jordan-Wigner in MPS order with occupation along any spin axis "
-        f"({tried}); use the exact or DMRG engine")
 
 
 # ----------------------------------------------------------------------------------------------
@@ -573,7 +181,11 @@ def real_space_chern_number(p: np.ndarray, a: np.ndarray, b: np.ndarray, c: np.n
     The first sum is ``t = Tr(P_AB P_BC P_CA)``, the second its complex conjugate (P is Hermitian),
     so ``nu = -24 pi Im t`` (Kitaev, Annals of Physics 321, 2 (2006), appendix).
     """
-    t = np.sum((p[np.ix_(a, b)] @ p[np.ix_(b, c)]) * p[np.ix_(c, a)].T)
+    return _chern_from_blocks(p[np.ix_(a, b)], p[np.ix_(b, c)], p[np.ix_(c, a)])
+
+
+def _chern_from_blocks(p_ab: np.ndarray, p_bc: np.ndarray, p_ca: np.ndarray) -> float:
+    t = np.sum((p_ab @ p_bc) * p_ca.T)
     return float(-24.0 * math.pi * np.imag(t))
 
 
@@ -607,7 +219,18 @@ class _Probes:
     num_sites: int
     clip: float
     spin_like: bool
+    source: np.ndarray | CylinderMatrix
     _units_per_site: int
+
+    def _block(self, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+        if isinstance(self.source, np.ndarray):
+            return self.source[np.ix_(rows, cols)]
+        return self.source.block(rows, cols)
+
+    @property
+    def route(self) -> str:
+        """``dense``, or ``momentum`` where the matrix is held by its blocks around the cylinder."""
+        return "dense" if isinstance(self.source, np.ndarray) else "momentum"
 
     def _units(self, sites: np.ndarray) -> np.ndarray:
         u = self._units_per_site
@@ -728,14 +351,75 @@ def _sector_blocks(form: QuadraticForm, hamiltonian, label: str):
     return [(np.arange(n), None)]
 
 
+_TRANSLATION_RTOL = 1e-10  # entries of M - T M T^-1 below this fraction of max|M| are rounding (phases)
+
+
+def _translation_plan(matrix: np.ndarray, lattice, units_per_site: int, options: GaussianOptions,
+                      label: str):
+    """``(layout, blocks)`` for the momentum route, or None for the dense one (see ``options.route``)."""
+    if options.route == "dense":
+        return None
+    layout = cylinder_layout(lattice, units_per_site) if lattice is not None else None
+    blocks = None
+    if layout is not None:
+        scale = max(float(np.max(np.abs(matrix), initial=0.0)), 1.0)
+        blocks = translation_blocks(matrix, layout, _TRANSLATION_RTOL * scale)
+    if blocks is not None:
+        return layout, blocks
+    if options.route == "momentum":
+        why = ("no lattice was given" if lattice is None else
+               "the lattice is not periodic in y with circumference >= 2" if layout is None else
+               "the quadratic form is not invariant under a translation around the cylinder")
+        raise GaussianStateError(
+            f"{label}: route 'momentum' needs translation invariance around y, but {why}; "
+            "use route 'auto' or 'dense'")
+    return None
+
+
+def _filling(e: np.ndarray, count: int | None, tol: float, label: str) -> tuple[int, float]:
+    """Particles placed in a block with ascending levels ``e`` and the gap at its Fermi level."""
+    if count is None:
+        if e.size and np.min(np.abs(e)) < tol:
+            raise GaussianStateError(
+                f"{label} has a single-particle level at zero energy ({np.min(np.abs(e)):.3g}); the "
+                "ground state is not unique: fix the particle number in conserve/[sector]")
+        count = int(np.sum(e < 0))
+    if not 0 <= count <= e.size:
+        raise GaussianStateError(f"{label}: cannot place {count} particles in {e.size} modes")
+    gap = math.inf
+    if 0 < count < e.size:
+        gap = float(e[count] - e[count - 1])
+        if gap < tol:
+            raise GaussianStateError(
+                f"{label}: levels {count} and {count + 1} are degenerate ({e[count - 1]:.12g}, "
+                f"{e[count]:.12g}), so the ground state with {count} particles is not unique; change "
+                "the filling or the lattice size")
+    return count, gap
+
+
+def _majorana_from_correlation(one_minus_g: np.ndarray, g_transposed: np.ndarray) -> np.ndarray:
+    """``Gamma = Re[i (R diag(1 - G, G^T) R^dag - 1)]`` entry by entry (last two axes: modes).
+
+    ``R[2 j + alpha, a n + j] = rho[alpha, a]`` maps psi = (c, c^dag) to the Majoranas, so
+    ``Gamma[2i + alpha, 2j + beta] = Re i (rho[alpha,0] rho*[beta,0] (1 - G)_ij + rho[alpha,1]
+    rho*[beta,1] G^T_ij - delta)``; works on one matrix or on a stack of momentum blocks.
+    """
+    rho = np.array([[1.0, 1.0], [-1j, 1j]])
+    m = (np.einsum("A,B,...ij->...iAjB", rho[:, 0], rho[:, 0].conj(), one_minus_g)
+         + np.einsum("A,B,...ij->...iAjB", rho[:, 1], rho[:, 1].conj(), g_transposed))
+    shape = m.shape[:-4] + (2 * m.shape[-4], 2 * m.shape[-2])
+    return (1j * m.reshape(shape)).real  # the -i delta term is imaginary: it drops out of Re
+
+
 @dataclass(frozen=True, eq=False)
 class FreeFermionState(_Probes):
     """Ground state of a number-conserving quadratic Hamiltonian: a filled Fermi sea.
 
     Attributes
     ----------
-    correlation : ndarray, shape (n, n)
-        ``G_ij = <c_j^dag c_i>``, the projector on the filled levels (modes in Jordan-Wigner order).
+    source : ndarray or CylinderMatrix, shape (n, n)
+        The correlation matrix itself (route ``dense``), or its blocks around the cylinder (route
+        ``momentum``), from which each probe reads only its region's rows and columns.
     levels : ndarray, shape (n,)
         Single-particle energies, ascending.
     particles : int
@@ -751,7 +435,7 @@ class FreeFermionState(_Probes):
     name : str
     """
 
-    correlation: np.ndarray = field(repr=False)
+    source: np.ndarray | CylinderMatrix = field(repr=False)
     levels: np.ndarray = field(repr=False)
     particles: int
     energy: float
@@ -765,6 +449,11 @@ class FreeFermionState(_Probes):
     @property
     def _units_per_site(self) -> int:
         return self.modes_per_site
+
+    @property
+    def correlation(self) -> np.ndarray:
+        """``G_ij = <c_j^dag c_i>``, modes in Jordan-Wigner order (by momentum: formed on first use)."""
+        return self.source if isinstance(self.source, np.ndarray) else self.source.dense()
 
     @classmethod
     def from_model(cls, model, *, options: GaussianOptions | None = None) -> "FreeFermionState":
@@ -791,11 +480,12 @@ class FreeFermionState(_Probes):
             raise GaussianStateError(
                 f"{label} has pairing terms; use MajoranaState.from_model or gaussian_state for it")
         blocks = _sector_blocks(form, hamiltonian, label)
-        return cls.from_form(form, blocks=blocks, options=options)
+        return cls.from_form(form, blocks=blocks, options=options,
+                             lattice=getattr(hamiltonian, "lattice", None))
 
     @classmethod
-    def from_form(cls, form: QuadraticForm, *, blocks=None, options: GaussianOptions | None = None
-                  ) -> "FreeFermionState":
+    def from_form(cls, form: QuadraticForm, *, blocks=None, options: GaussianOptions | None = None,
+                  lattice=None) -> "FreeFermionState":
         """Fill the lowest levels of a number-conserving form.
 
         Parameters
@@ -805,6 +495,8 @@ class FreeFermionState(_Probes):
             Mode sets diagonalised separately and the particles each holds; ``None`` fills every
             negative level. Default: one block of all modes, negative levels filled.
         options : GaussianOptions, optional
+        lattice : Lattice, optional
+            The lattice of the form's sites; needed for the momentum route (``options.route``).
         """
         options = options or GaussianOptions()
         label = f"model '{form.name}'" if form.name else "the Hamiltonian"
@@ -813,51 +505,63 @@ class FreeFermionState(_Probes):
         n = form.num_modes
         if blocks is None:
             blocks = [(np.arange(n), None)]
-        dtype = complex if np.iscomplexobj(form.hopping) else float
-        g = np.zeros((n, n), dtype=dtype)
+        plan = _translation_plan(form.hopping, lattice, form.modes_per_site, options, label)
+        if plan is not None and any(plan[0].orbitals_of(modes) is None for modes, _ in blocks):
+            if options.route == "momentum":
+                raise GaussianStateError(
+                    f"{label}: a charge block is not translation invariant; use route 'dense'")
+            plan = None
+        real = not np.iscomplexobj(form.hopping)
+        if plan is None:
+            g = np.zeros((n, n), dtype=float if real else complex)
+        else:
+            layout, hop_blocks = plan
+            g_blocks = np.zeros(hop_blocks.shape, dtype=complex)
         levels, total, energy, gap = [], 0, form.constant, math.inf
-        tol = options.degeneracy_tol
         for modes, count in blocks:
-            e, v = _eigh(form.hopping[np.ix_(modes, modes)])
-            if count is None:
-                if e.size and np.min(np.abs(e)) < tol:
-                    raise GaussianStateError(
-                        f"{label} has a single-particle level at zero energy ({np.min(np.abs(e)):.3g}); the "
-                        "ground state is not unique: fix the particle number in conserve/[sector]")
-                count = int(np.sum(e < 0))
-            if not 0 <= count <= e.size:
-                raise GaussianStateError(f"{label}: cannot place {count} particles in {e.size} modes")
-            if 0 < count < e.size:
-                gap = min(gap, float(e[count] - e[count - 1]))
-                if e[count] - e[count - 1] < tol:
-                    raise GaussianStateError(
-                        f"{label}: levels {count} and {count + 1} are degenerate ({e[count - 1]:.12g}, "
-                        f"{e[count]:.12g}), so the ground state with {count} particles is not unique; change "
-                        "the filling or the lattice size")
-            occ = v[:, :count]
-            g[np.ix_(modes, modes)] = occ @ occ.conj().T
+            if plan is None:
+                e, v = _eigh(form.hopping[np.ix_(modes, modes)])
+                count, block_gap = _filling(e, count, options.degeneracy_tol, label)
+                occ = v[:, :count]
+                g[np.ix_(modes, modes)] = occ @ occ.conj().T
+            else:
+                orbitals = layout.orbitals_of(modes)
+                vals, vecs = momentum_eigh(hop_blocks[:, orbitals][:, :, orbitals])
+                order = np.argsort(vals, axis=None, kind="stable")
+                e = vals.ravel()[order]
+                count, block_gap = _filling(e, count, options.degeneracy_tol, label)
+                filled = np.zeros(vals.size)
+                filled[order[:count]] = 1.0
+                g_blocks[:, orbitals[:, None], orbitals[None, :]] = matrix_function_blocks(
+                    vecs, filled.reshape(vals.shape))
+            gap = min(gap, block_gap)
             levels.append(e)
             total += count
             energy += float(np.sum(e[:count]))
-        g.setflags(write=False)
+        if plan is None:
+            g.setflags(write=False)
+            source = g
+        else:
+            g_blocks = g_blocks.real.copy() if real else g_blocks
+            g_blocks.setflags(write=False)
+            source = CylinderMatrix(g_blocks, layout)
         levels = np.sort(np.concatenate(levels))
         levels.setflags(write=False)
-        return cls(g, levels, total, float(energy), gap, form.num_sites, form.modes_per_site,
+        return cls(source, levels, total, float(energy), gap, form.num_sites, form.modes_per_site,
                    options.clip, form.spin_like, form.name)
 
     def correlation_matrix(self, sites: Iterable[int]) -> np.ndarray:
         """``G_X`` for a set of sites, modes in the order the sites are given (each site's modes in turn)."""
         arr = self._check(sites, "region")
         u = self._units(arr)
-        return self.correlation[np.ix_(u, u)].copy()
+        return np.array(self._block(u, u))
 
     def _spectrum_entropy(self, units, order) -> float:
-        return peschel_entropy(np.linalg.eigvalsh(self.correlation[np.ix_(units, units)]), order)
+        return peschel_entropy(np.linalg.eigvalsh(self._block(units, units)), order)
 
     def _commutator(self, ua, ub, uc) -> float:
         u = np.concatenate([ua, ub, uc])
-        g = self.correlation[np.ix_(u, u)]
-        return fermion_modular_commutator(g, (ua.size, ub.size, uc.size), self.clip)
+        return fermion_modular_commutator(self._block(u, u), (ua.size, ub.size, uc.size), self.clip)
 
     def chern_number(self, a: Iterable[int], b: Iterable[int], c: Iterable[int]) -> float:
         """Real-space Chern number of three sectors A, B, C (counterclockwise) meeting at a point.
@@ -871,12 +575,14 @@ class FreeFermionState(_Probes):
         ra, rb, rc = self._regions([("A", a), ("B", b), ("C", c)])
         if ra.size == 0 or rb.size == 0 or rc.size == 0:
             return 0.0
-        return real_space_chern_number(self.correlation, self._units(ra), self._units(rb), self._units(rc))
+        ua, ub, uc = self._units(ra), self._units(rb), self._units(rc)
+        return _chern_from_blocks(self._block(ua, ub), self._block(ub, uc), self._block(uc, ua))
 
     def __repr__(self) -> str:
         label = f"'{self.name}', " if self.name else ""
         return (f"FreeFermionState({label}{self.num_sites} sites x {self.modes_per_site} mode(s), "
-                f"N={self.particles}, E0={self.energy:.10g}, gap={self.gap:.4g}, clip={self.clip:g})")
+                f"N={self.particles}, E0={self.energy:.10g}, gap={self.gap:.4g}, clip={self.clip:g}, "
+                f"route={self.route})")
 
 
 @dataclass(frozen=True, eq=False)
@@ -885,8 +591,8 @@ class MajoranaState(_Probes):
 
     Attributes
     ----------
-    covariance : ndarray, shape (2n, 2n)
-        ``Gamma_pq = (i/2) <[g_p, g_q]>``, real antisymmetric; Majoranas ``2j, 2j+1`` belong to mode j.
+    source : ndarray or CylinderMatrix, shape (2n, 2n)
+        The covariance itself (route ``dense``) or its blocks around the cylinder (``momentum``).
     levels : ndarray, shape (n,)
         Quasiparticle energies (nonnegative eigenvalues of ``i W``), ascending; for a state made by
         :meth:`from_free_fermion`, the single-particle levels of that state.
@@ -898,7 +604,7 @@ class MajoranaState(_Probes):
     name : str
     """
 
-    covariance: np.ndarray = field(repr=False)
+    source: np.ndarray | CylinderMatrix = field(repr=False)
     levels: np.ndarray = field(repr=False)
     energy: float
     num_sites: int
@@ -910,6 +616,11 @@ class MajoranaState(_Probes):
     @property
     def _units_per_site(self) -> int:
         return 2 * self.modes_per_site
+
+    @property
+    def covariance(self) -> np.ndarray:
+        """``Gamma_pq = (i/2) <[g_p, g_q]>``, real antisymmetric; Majoranas ``2j, 2j+1`` belong to mode j."""
+        return self.source if isinstance(self.source, np.ndarray) else self.source.dense()
 
     @classmethod
     def from_model(cls, model, *, options: GaussianOptions | None = None) -> "MajoranaState":
@@ -931,34 +642,50 @@ class MajoranaState(_Probes):
         options = options or GaussianOptions()
         form = quadratic_form(hamiltonian, name=name, options=options, model=model)
         label = f"model '{form.name}'" if form.name else "the Hamiltonian"
+        lattice = getattr(hamiltonian, "lattice", None)
         if not form.has_pairing:
             blocks = _sector_blocks(form, hamiltonian, label)
-            return cls.from_free_fermion(FreeFermionState.from_form(form, blocks=blocks, options=options))
+            return cls.from_free_fermion(FreeFermionState.from_form(form, blocks=blocks, options=options,
+                                                                    lattice=lattice))
         if getattr(hamiltonian, "conserve", ()):
             raise GaussianStateError(
                 f"{label} has pairing terms but conserves {', '.join(hamiltonian.conserve)}; "
                 "set conserve = []")
-        return cls.from_form(form, options=options)
+        return cls.from_form(form, options=options, lattice=lattice)
 
     @classmethod
-    def from_form(cls, form: QuadraticForm, *, options: GaussianOptions | None = None) -> "MajoranaState":
-        """The ground state of ``H = (i/4) g^T W g + shift``: ``Gamma = i sign(i W)``."""
+    def from_form(cls, form: QuadraticForm, *, options: GaussianOptions | None = None,
+                  lattice=None) -> "MajoranaState":
+        """The ground state of ``H = (i/4) g^T W g + shift``: ``Gamma = i sign(i W)``.
+
+        ``lattice`` (optional) enables the momentum route (``options.route``).
+        """
         options = options or GaussianOptions()
         label = f"model '{form.name}'" if form.name else "the Hamiltonian"
         w, shift = form.majorana_matrix()
-        vals, vecs = _eigh(1j * w)
+        plan = _translation_plan(w, lattice, 2 * form.modes_per_site, options, label)
+        if plan is None:
+            vals, vecs = _eigh(1j * w)
+        else:
+            vals, vecs = momentum_eigh(1j * plan[1])
         smallest = float(np.min(np.abs(vals))) if vals.size else math.inf
         if smallest < options.degeneracy_tol:
             raise GaussianStateError(
                 f"{label} has a Majorana level at zero energy ({smallest:.3g}), so its ground state is not "
                 "unique (e.g. an ordered phase or edge zero modes); change the couplings or the lattice size")
-        gamma = (1j * ((vecs * np.sign(vals)) @ vecs.conj().T)).real
-        gamma = 0.5 * (gamma - gamma.T)
-        gamma.setflags(write=False)
-        levels = np.sort(np.abs(vals))[::2].copy()
+        if plan is None:
+            gamma = (1j * ((vecs * np.sign(vals)) @ vecs.conj().T)).real
+            source = 0.5 * (gamma - gamma.T)
+        else:
+            gamma = (1j * matrix_function_blocks(vecs, np.sign(vals))).real
+            source = CylinderMatrix(gamma, plan[0])
+            gamma.setflags(write=False)
+        if isinstance(source, np.ndarray):
+            source.setflags(write=False)
+        levels = np.sort(np.abs(vals), axis=None)[::2].copy()
         levels.setflags(write=False)
         energy = shift - 0.25 * float(np.sum(np.abs(vals)))
-        return cls(gamma, levels, energy, form.num_sites, form.modes_per_site, options.clip, form.spin_like,
+        return cls(source, levels, energy, form.num_sites, form.modes_per_site, options.clip, form.spin_like,
                    form.name)
 
     @classmethod
@@ -966,43 +693,44 @@ class MajoranaState(_Probes):
         """The Majorana covariance of a number-conserving state: ``Gamma = i (R <psi psi^dag> R^dag - 1)``.
 
         Here psi = (c, c^dag) and R maps it to the Majoranas; ``<psi psi^dag> = diag(1 - G, G^T)``.
+        A momentum-resolved state gives a momentum-resolved covariance.
         """
-        g = state.correlation
-        n = g.shape[0]
-        nambu = np.zeros((2 * n, 2 * n), dtype=complex)
-        nambu[:n, :n] = np.eye(n) - g
-        nambu[n:, n:] = g.T
-        r = np.zeros((2 * n, 2 * n), dtype=complex)
-        j = np.arange(n)
-        r[2 * j, j] = 1.0
-        r[2 * j, n + j] = 1.0
-        r[2 * j + 1, j] = -1j
-        r[2 * j + 1, n + j] = 1j
-        gamma = (1j * (r @ nambu @ r.conj().T - np.eye(2 * n))).real
-        gamma = 0.5 * (gamma - gamma.T)
-        gamma.setflags(write=False)
-        return cls(gamma, state.levels, state.energy, state.num_sites, state.modes_per_site, state.clip,
+        if isinstance(state.source, np.ndarray):
+            g = state.correlation
+            gamma = _majorana_from_correlation(np.eye(g.shape[0]) - g, g.T)
+            gamma = 0.5 * (gamma - gamma.T)
+            gamma.setflags(write=False)
+            source = gamma
+        else:
+            blocks, layout = state.source.blocks, state.source.layout
+            w, r = blocks.shape[:2]
+            one = np.zeros((w, r, r))
+            one[0] = np.eye(r)
+            reflected = np.swapaxes(blocks[(-np.arange(w)) % w], 1, 2)  # (G^T)_d = (G_-d)^T
+            gamma = _majorana_from_correlation(one - blocks, reflected)
+            gamma.setflags(write=False)
+            source = CylinderMatrix(gamma, majorana_layout(layout))
+        return cls(source, state.levels, state.energy, state.num_sites, state.modes_per_site, state.clip,
                    state.spin_like, state.name)
 
     def covariance_matrix(self, sites: Iterable[int]) -> np.ndarray:
         """``Gamma_X`` for a set of sites (Majoranas of each site in turn, in the given site order)."""
         arr = self._check(sites, "region")
         u = self._units(arr)
-        return self.covariance[np.ix_(u, u)].copy()
+        return np.array(self._block(u, u))
 
     def _spectrum_entropy(self, units, order) -> float:
-        return majorana_entropy(np.linalg.eigvalsh(1j * self.covariance[np.ix_(units, units)]), order)
+        return majorana_entropy(np.linalg.eigvalsh(1j * self._block(units, units)), order)
 
     def _commutator(self, ua, ub, uc) -> float:
         u = np.concatenate([ua, ub, uc])
-        gamma = self.covariance[np.ix_(u, u)]
-        return majorana_modular_commutator(gamma, (ua.size, ub.size, uc.size), self.clip)
+        return majorana_modular_commutator(self._block(u, u), (ua.size, ub.size, uc.size), self.clip)
 
     def __repr__(self) -> str:
         label = f"'{self.name}', " if self.name else ""
         low = f"{self.levels[0]:.4g}" if self.levels.size else "none"
         return (f"MajoranaState({label}{self.num_sites} sites x {self.modes_per_site} mode(s), "
-                f"E0={self.energy:.10g}, lowest level={low}, clip={self.clip:g})")
+                f"E0={self.energy:.10g}, lowest level={low}, clip={self.clip:g}, route={self.route})")
 
 
 def gaussian_state(model, *, options: GaussianOptions | None = None) -> FreeFermionState | MajoranaState:
@@ -1034,6 +762,6 @@ def gaussian_state(model, *, options: GaussianOptions | None = None) -> FreeFerm
             raise GaussianStateError(
                 f"{label} has pairing terms but conserves {', '.join(model.hamiltonian.conserve)}; "
                 "set conserve = []")
-        return MajoranaState.from_form(form, options=options)
+        return MajoranaState.from_form(form, options=options, lattice=model.lattice)
     blocks = _sector_blocks(form, model.hamiltonian, label)
-    return FreeFermionState.from_form(form, blocks=blocks, options=options)
+    return FreeFermionState.from_form(form, blocks=blocks, options=options, lattice=model.lattice)

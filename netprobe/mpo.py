@@ -1,6 +1,7 @@
 """Matrix product operators from Hamiltonians in normal form.
 
-The MPO is built as a finite-state machine over the operator strings (design notes, section 4).
+The MPO is built as a finite-state machine over the operator strings (design notes, section 4),
+then compressed exactly to the operator Schmidt rank of each bond (:mod:`netprobe.mpo_compression`).
 Every bond carries two fixed channels, *waiting* (nothing applied yet, identities to the left) and
 *done* (the term is complete, identities to the right), and one channel for each distinct
 *pending suffix*: the list of (site, matrix) factors that a started term still has to apply to the
@@ -25,6 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from netprobe.mpo_compression import compress_channels
 from netprobe.terms import Hamiltonian, LocalProduct
 
 __all__ = ["MPO", "build_mpo", "split_by_charge"]
@@ -44,12 +46,16 @@ class MPO:
     site_charges : ndarray of int, shape (d, k)
         Charges of the local basis states for the conserved quantities.
     conserve : tuple of str
+    uncompressed_bond_dimensions : tuple of int
+        Inner bond dimensions of the finite-state machine before the exact compression
+        (:mod:`netprobe.mpo_compression`); empty if it was not compressed.
     """
 
     tensors: tuple[np.ndarray, ...]
     bond_charges: tuple[np.ndarray, ...]
     site_charges: np.ndarray
     conserve: tuple[str, ...]
+    uncompressed_bond_dimensions: tuple[int, ...] = ()
 
     @property
     def num_sites(self) -> int:
@@ -117,7 +123,7 @@ def _expand_charge_definite(products, charges):
     return out
 
 
-def build_mpo(ham: Hamiltonian, *, dtype=None) -> MPO:
+def build_mpo(ham: Hamiltonian, *, dtype=None, compress: bool = True) -> MPO:
     """Build the MPO of a Hamiltonian (see the module notes).
 
     Parameters
@@ -125,6 +131,9 @@ def build_mpo(ham: Hamiltonian, *, dtype=None) -> MPO:
     ham : Hamiltonian
     dtype : numpy dtype, optional
         Defaults to ``ham.dtype`` (complex where any coupling or matrix is complex).
+    compress : bool
+        Reduce the pending channels of every bond to their operator Schmidt rank
+        (:func:`netprobe.mpo_compression.compress_channels`, exact to rounding); default True.
     """
     n, d = ham.num_sites, ham.space.dim
     dtype = np.dtype(dtype or ham.dtype)
@@ -218,4 +227,8 @@ def build_mpo(ham: Hamiltonian, *, dtype=None) -> MPO:
             for key, idx in channels[b].items():
                 arr[idx] = charge_of[b][key]
             bond_charges.append(arr)
-    return MPO(tuple(tensors), tuple(bond_charges), charges, tuple(ham.conserve))
+    if not compress:
+        return MPO(tuple(tensors), tuple(bond_charges), charges, tuple(ham.conserve))
+    before = tuple(w.shape[3] for w in tensors[:-1])
+    tensors, bond_charges = compress_channels(tensors, bond_charges)
+    return MPO(tuple(tensors), tuple(bond_charges), charges, tuple(ham.conserve), before)

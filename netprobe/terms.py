@@ -66,8 +66,11 @@ class LocalProduct:
 
     def adjoint(self) -> "LocalProduct":
         """The Hermitian conjugate (factor-wise, since the factors act on distinct sites)."""
+        # the shared string matrices are Hermitian: keep them by identity (cheap comparisons later)
+        shared = {id(m) for m in _STRINGS.values()}
         return LocalProduct(
-            np.conj(self.coefficient), self.sites, tuple(m.conj().T for m in self.matrices), self.origin
+            np.conj(self.coefficient), self.sites,
+            tuple(m if id(m) in shared else m.conj().T for m in self.matrices), self.origin
         )
 
 
@@ -82,6 +85,11 @@ def _proportional_to_identity(mat: np.ndarray):
 
 
 _STRINGS: dict[str, np.ndarray] = {}
+
+
+def _kron(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``np.kron`` of two matrices without its general-purpose overhead (called once per term factor)."""
+    return (a[:, None, :, None] * b[None, :, None, :]).reshape(a.shape[0] * b.shape[0], a.shape[1] * b.shape[1])
 
 
 def _string_operator(space: SiteSpace) -> np.ndarray:
@@ -213,12 +221,16 @@ class Hamiltonian:
         for p in self.products:
             groups.setdefault(p.sites, []).append(p)
         scale = max((abs(p.coefficient) for p in self.products), default=1.0) or 1.0
+        string = _STRINGS.get(getattr(self.space, "name", None))
         for support, prods in groups.items():
             varying = []
-            string = _STRINGS.get(getattr(self.space, "name", None))
+            # factors shared by identity (the string matrices) need no element-wise comparison
+            shared = [len(set(col)) == 1 for col in zip(*(map(id, q.matrices) for q in prods))]
             for k in range(len(support)):
                 first = prods[0].matrices[k]
-                common = all(q.matrices[k] is first or np.array_equal(q.matrices[k], first) for q in prods[1:])
+                if shared[k] and first is string:
+                    continue
+                common = shared[k] or all(np.array_equal(q.matrices[k], first) for q in prods[1:])
                 if not common:
                     varying.append(k)
                 elif first is not string and np.max(np.abs(first - first.conj().T)) > _ATOL:
@@ -228,7 +240,7 @@ class Hamiltonian:
             for q in prods:
                 mat = np.array([[q.coefficient]], dtype=complex)
                 for k in varying:
-                    mat = np.kron(mat, q.matrices[k])
+                    mat = _kron(mat, q.matrices[k])
                 dense = dense + mat
             dense = np.asarray(dense)
             if np.max(np.abs(dense - dense.conj().T), initial=0.0) > rtol * scale:
