@@ -393,7 +393,8 @@ def _filling(e: np.ndarray, count: int | None, tol: float, label: str) -> tuple[
             raise GaussianStateError(
                 f"{label}: levels {count} and {count + 1} are degenerate ({e[count - 1]:.12g}, "
                 f"{e[count]:.12g}), so the ground state with {count} particles is not unique; change "
-                "the filling or the lattice size")
+                "the filling or the lattice size, or on a cylinder lift edge zero modes with a small flux "
+                "through it (--set twist=0.3)")
     return count, gap
 
 
