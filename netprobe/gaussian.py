@@ -54,11 +54,9 @@ import numpy as np
 import scipy.linalg
 from scipy.special import entr
 
-from netprobe.errors import HermiticityError, LatticeError, NetprobeError
+from netprobe.errors import GaussianStateError, HermiticityError, LatticeError, NetprobeError, NotQuadraticError
 
 __all__ = [
-    "NotQuadraticError",
-    "GaussianStateError",
     "GaussianOptions",
     "QuadraticForm",
     "quadratic_form",
@@ -73,14 +71,6 @@ __all__ = [
     "majorana_modular_commutator",
     "real_space_chern_number",
 ]
-
-
-class NotQuadraticError(NetprobeError):
-    """The Hamiltonian is not quadratic in fermion operators, so it has no Gaussian ground state."""
-
-
-class GaussianStateError(NetprobeError):
-    """A quadratic model whose ground state the Gaussian engine cannot build (degenerate, wrong path)."""
 
 
 _SPIN_AXES = ("z", "x", "y")

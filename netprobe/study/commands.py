@@ -24,7 +24,9 @@ import signal
 import sys
 from pathlib import Path
 
-from netprobe.study.description import StudyDescription, StudyError, load_study
+from netprobe.errors import StudyError
+from netprobe.options import output_folder, scheduler_address
+from netprobe.study.description import StudyDescription, load_study
 
 __all__ = ["add_study_parser", "add_report_parser", "cmd_study", "cmd_report", "default_folder"]
 
@@ -53,6 +55,7 @@ def add_study_parser(subparsers) -> None:
     p.add_argument("spec", metavar="SPEC", help="study file (path) or the name of a bundled study")
     p.add_argument(
         "--out",
+        type=output_folder,
         metavar="DIR",
         help="study folder for the ledger, states and reports (default: ./<study name>-study)",
     )
@@ -64,6 +67,7 @@ def add_study_parser(subparsers) -> None:
     )
     p.add_argument(
         "--scheduler",
+        type=scheduler_address,
         metavar="ADDRESS",
         help="run on a dask.distributed scheduler, e.g. tcp://10.0.0.5:8786 (the workers must see DIR)",
     )

@@ -54,7 +54,6 @@ import hashlib
 import json
 import math
 import numbers
-import tomllib
 from dataclasses import asdict, dataclass, field, fields
 from pathlib import Path
 from types import MappingProxyType
@@ -62,9 +61,10 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from netprobe.errors import NetprobeError, SpecError
+from netprobe.errors import NetprobeError, SpecError, StudyError
 from netprobe.spec import (LATTICE_KEYS, ModelSpec, bundled_files, find_model, find_toml, models_directory,
                            parse_spec)
+from netprobe.tomlio import parse_toml, read_text
 
 __all__ = [
     "ENGINES",
@@ -77,7 +77,6 @@ __all__ = [
     "ExecutorSettings",
     "VerdictSettings",
     "StudyDescription",
-    "StudyError",
     "studies_directory",
     "find_study",
     "list_studies",
@@ -85,10 +84,6 @@ __all__ = [
     "load_study",
     "parse_probe",
 ]
-
-
-class StudyError(NetprobeError):
-    """A study cannot run as asked (no ledger, a ledger of another study, an unreachable scheduler)."""
 
 
 #: Engines by name, with what each does with the ladder.
@@ -747,10 +742,7 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
 
     """
     where = _where(path)
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise SpecError(f"{where}: not valid TOML ({err}); fix the syntax at the place named") from None
+    raw = parse_toml(text, where)
     _check_keys(raw, _TOP_KEYS, where, "the top level")
     study = raw.get("study")
     if not isinstance(study, dict):
@@ -774,9 +766,9 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
 
     model_path = _resolve_model(study["model"], path, where)
     try:
-        model_text = model_path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise SpecError(f"{where}: cannot read model file {model_path}: {err}") from None
+        model_text = read_text(model_path, "model")
+    except SpecError as err:
+        raise SpecError(f"{where}: {err}") from None
     spec = parse_spec(model_text, path=str(model_path))
     parameters = list(spec.parameters)
 
@@ -948,8 +940,5 @@ def _resolve_model(model: str, path: str, where: str) -> Path:
 def load_study(name_or_path: str) -> StudyDescription:
     """Read and parse a study file (a path, or the name of a bundled study)."""
     path = find_study(name_or_path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise SpecError(f"cannot read study file {path}: {err}") from None
+    text = read_text(path, "study")
     return parse_study(text, path=str(path))

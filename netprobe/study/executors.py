@@ -29,7 +29,8 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Callable, Mapping
 
-from netprobe.study.description import StudyDescription, StudyError
+from netprobe.errors import StudyError
+from netprobe.study.description import StudyDescription
 from netprobe.study.ledger import STATES_FOLDER, Claim, Ledger, process_alive
 
 __all__ = [
