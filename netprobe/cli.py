@@ -283,6 +283,7 @@ def cmd_run(args) -> int:
     if args.resume and not args.out:
         raise NetprobeError("--resume needs --out DIR: the folder that holds the checkpoint")
     model = _load(args)
+    _check_dmrg_memory(model, chis[-1])
     sweeps = SweepSettings(max_sweeps=args.sweeps) if args.sweeps else SweepSettings()
     settings = LadderSettings(bond_dimensions=chis, sweeps=sweeps)
     result = run_ladder(model, settings, overrides=parse_overrides(args.overrides), seed=args.seed,
@@ -302,6 +303,16 @@ def cmd_run(args) -> int:
         lines.append(f"state files in {payload['out']}")
     _emit(args, payload, lines)
     return 0
+
+
+def _check_dmrg_memory(model, bond_dimension: int, budget: int | None = None):
+    from netprobe.limits import charge_spans, check_dmrg_size
+    from netprobe.mpo import build_mpo
+
+    ham = model.hamiltonian
+    check_dmrg_size(model.num_sites, local_dim=model.space.dim, mpo_bond=max(build_mpo(ham).bond_dimensions, default=1),
+                    bond_dimension=bond_dimension, where=f"--bond-dimension {bond_dimension}",
+                    charge_spans=charge_spans(model.space.charge_values(ham.conserve)), budget=budget)
 
 
 def cmd_measure(args) -> int:
@@ -387,6 +398,8 @@ def cmd_probe(args) -> int:
 
         model = _load(args, budget)
         chis = _bond_dimensions(args.bond_dimension)
+        if args.engine == "dmrg":
+            _check_dmrg_memory(model, chis[-1], budget)
         result = probe_model(model, args.region, engine=args.engine, probes=probes, bond_dimensions=chis,
                              sweeps=args.sweeps, seed=args.seed, overrides=parse_overrides(args.overrides),
                              out=args.out, eps=args.eps, memory_budget=budget, progress=sys.stderr,

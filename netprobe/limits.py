@@ -20,6 +20,8 @@ import math
 from dataclasses import dataclass
 from typing import Mapping
 
+import numpy as np
+
 from netprobe.errors import MemoryBudgetError, NetprobeError
 from netprobe.lattice import build_lattice
 from netprobe.rdm import default_memory_budget
@@ -32,6 +34,7 @@ __all__ = [
     "estimate_exact_bytes",
     "check_exact_size",
     "estimate_dmrg_bytes",
+    "charge_spans",
     "check_dmrg_size",
     "check_grid_size",
 ]
@@ -231,6 +234,22 @@ def estimate_dmrg_bytes(num_sites: int, *, local_dim: int, mpo_bond: int, bond_d
         # interior bonds: sectors bounded by the charges of the shorter side (at most n/2 sites)
         total += inner * chi * chi * (d + w) / _bond_sectors(n_sites // 2, spans)
     return int(total * itemsize)
+
+
+def charge_spans(values) -> list[int]:
+    """Spread of each conserved charge over a local basis, in units of its step.
+
+    Parameters
+    ----------
+    values : array of shape (d, k)
+        Charges of the local basis states (``SiteSpace.charge_values``).
+    """
+    spans = []
+    for column in np.asarray(values).T:
+        steps = np.unique(column)
+        step = int(np.gcd.reduce(np.diff(steps))) if len(steps) > 1 else 1
+        spans.append(int((steps.max() - steps.min()) // max(step, 1)))
+    return spans
 
 
 def check_dmrg_size(num_sites: int, *, local_dim: int, mpo_bond: int, bond_dimension: int, where: str,

@@ -18,8 +18,9 @@ A block tensor is a group with attributes ``charge``, ``charge_moduli``, ``dtype
 (n_sectors,) per leg, ``keys`` (n_blocks, n_legs) with the sector indices of every stored block and
 ``data``: the blocks flattened in C order and concatenated in the order of ``keys``.
 
-Version 2 writes every dataset with HDF5's Fletcher-32 checksum filter, so a damaged byte in a
-tensor is detected when it is read; version 1 (no checksums, otherwise the same) is still read.
+Version 2 writes the tensor data (every ``data`` dataset) with HDF5's Fletcher-32 checksum filter,
+so a damaged byte in a tensor is detected when it is read; version 1 (no checksums, otherwise the
+same) is still read.
 Every read is validated against the layout (shapes, sector indices in range, finite data, a known
 random-generator state), and anything that does not fit is reported as a damaged file, in one line
 that names the file and what is wrong.
@@ -90,12 +91,13 @@ def write_block_tensor(group: h5py.Group, tensor: BlockTensor) -> None:
     _write_dataset(group, "keys", np.array(keys, np.int64).reshape(len(keys), tensor.ndim))
     data = [np.ascontiguousarray(tensor.blocks[k]).reshape(-1) for k in keys]
     flat = np.concatenate(data) if data else np.zeros(0, tensor.dtype)
-    _write_dataset(group, "data", flat.astype(tensor.dtype, copy=False))
+    _write_dataset(group, "data", flat.astype(tensor.dtype, copy=False), checksum=True)
 
 
-def _write_dataset(group: h5py.Group, name: str, data: np.ndarray) -> None:
-    # Fletcher-32 needs chunked storage; h5py chooses the chunks (empty arrays stay contiguous)
-    group.create_dataset(name, data=data, fletcher32=data.size > 0)
+def _write_dataset(group: h5py.Group, name: str, data: np.ndarray, checksum: bool = False) -> None:
+    # Fletcher-32 needs chunked storage, which costs a chunk index per dataset: the tensor data carry
+    # the checksum; the small integer tables are checked against each other on reading instead
+    group.create_dataset(name, data=data, fletcher32=checksum and data.size > 0)
 
 
 def _dataset(group: h5py.Group, name: str, ndim: int, kind: str) -> np.ndarray:

@@ -331,7 +331,7 @@ def _read_checkpoint(saved, seed, rungs: int):
         first = info["stage"]
         if isinstance(first, bool) or not isinstance(first, int):
             raise ValueError(f"stage {first!r} is not a whole number")
-        if not 0 <= first < rungs or len(stages) != first:
+        if not 0 <= first <= rungs or len(stages) != first:
             raise ValueError(f"stage {first} with {len(stages)} finished stage(s) does not fit a ladder of {rungs}")
         engine = info.get("engine") or {}
         history = [SweepRecord.from_dict(r) for r in engine.get("history", [])]

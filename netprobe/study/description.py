@@ -61,9 +61,12 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from netprobe.errors import NetprobeError, SpecError, StudyError
-from netprobe.spec import (LATTICE_KEYS, ModelSpec, bundled_files, find_model, find_toml, models_directory,
-                           parse_spec)
+from netprobe.errors import MemoryBudgetError, NetprobeError, SpecError, StudyError
+from netprobe.limits import charge_spans, check_dmrg_size, check_exact_size, check_grid_size
+from netprobe.mpo import build_mpo
+from netprobe.sites import count_sector_states
+from netprobe.spec import (LATTICE_KEYS, ModelSpec, _resolve_parameters, bundled_files, check_size, find_model,
+                           find_toml, models_directory, parse_spec)
 from netprobe.tomlio import parse_toml, read_text
 
 __all__ = [
@@ -363,6 +366,9 @@ def _format_value(value) -> str:
     return repr(round(value, _DECIMALS))
 
 
+_EXACT_BITS = 62  # basis codes of the exact engine are 62-bit integers
+
+
 @dataclass(frozen=True, eq=False)
 class StudyDescription:
     """A parsed and checked study file.
@@ -591,18 +597,30 @@ class StudyDescription:
         return replace(self, executor=replace(self.executor, **changes))
 
     def check(self) -> None:
-        """Build the model at the first point of every distinct lattice and carve the regions there.
+        """Check that every point can run: sizes first, then the model, engine and regions.
+
+        Every point's parameters are resolved and its model size estimated (nothing is built); at
+        the first point of every distinct lattice the model is built, the engine's memory is
+        estimated (the exact engine's sector, DMRG's state at the largest bond dimension) and the
+        regions are carved.
 
         Raises
         ------
         NetprobeError
-            The model's own error (a bad value, sector or size), an unknown operator of a
-            ``mean:OP`` probe, or a region that does not fit the lattice; prefixed with the study file.
+            The model's own error (a bad value, sector or size), a point beyond the memory budget,
+            an unknown operator of a ``mean:OP`` probe, or a region that does not fit the lattice;
+            prefixed with the study file and the point.
 
         """
         from netprobe.regions import parse_region
 
         where = _where(self.path)
+        spec = self.model_spec
+        for point in self.points:
+            try:
+                check_size(spec, _resolve_parameters(spec, self.overrides(point)))
+            except NetprobeError as err:
+                raise type(err)(f"{where}: at point {point.label}: {' '.join(str(err).split())}") from None
         seen = set()
         for point in self.points:
             key = self.lattice_key(point)
@@ -611,6 +629,7 @@ class StudyDescription:
             seen.add(key)
             try:
                 model = self.build_model(point)
+                self._check_engine(model)
                 for text in self.regions.values():
                     parse_region(text, model.lattice)
                 for probe in self.probes:
@@ -618,6 +637,23 @@ class StudyDescription:
                         _check_operator(model, probe, self.engine)
             except NetprobeError as err:
                 raise type(err)(f"{where}: at point {point.label}: {' '.join(str(err).split())}") from None
+
+    def _check_engine(self, model) -> None:
+        """Refuse an engine whose memory estimate for this model exceeds the budget."""
+        ham = model.hamiltonian
+        itemsize = 16 if ham.is_complex else 8
+        if self.engine == "exact":
+            if model.num_sites * math.log2(max(model.space.dim, 2)) > _EXACT_BITS:
+                raise MemoryBudgetError(
+                    f"exact diagonalisation of {model.num_sites} sites needs {model.space.dim}^{model.num_sites} "
+                    "basis codes, more than 62 bits; use fewer sites or the dmrg engine")
+            dim = count_sector_states(model.space, model.num_sites, ham.conserve, ham.sector)
+            check_exact_size(dim, sites=model.num_sites, where="engine exact", itemsize=itemsize)
+        elif self.engine == "dmrg":
+            check_dmrg_size(model.num_sites, local_dim=model.space.dim,
+                            mpo_bond=max(build_mpo(ham).bond_dimensions, default=1),
+                            bond_dimension=max(self.ladder), where="engine dmrg",
+                            charge_spans=charge_spans(model.space.charge_values(ham.conserve)))
 
     def __repr__(self) -> str:
         axes = (
@@ -698,6 +734,7 @@ def _axis(name: str, entry, where: str) -> GridAxis:
             raise SpecError(f"{where}: {what}: start and stop must be numbers")
         if isinstance(num, bool) or not isinstance(num, numbers.Integral) or num < 0:
             raise SpecError(f"{where}: {what}: num = {num!r} must be a whole number of points")
+        check_grid_size(int(num), where=f"{where}: {what}")
         if num == 1 and start != stop:
             raise SpecError(f"{where}: {what}: num = 1 with start != stop; give num >= 2 or values = [x]")
         out = tuple(float(round(v, _DECIMALS)) for v in np.linspace(float(start), float(stop), int(num)))
@@ -799,6 +836,7 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
             if key in fixed:
                 raise SpecError(f"{where}: '{key}' is both swept in [grid] and fixed in [set]; keep one")
         axes = tuple(_axis(k, v, where) for k, v in grid.items())
+        check_grid_size(math.prod(len(a.values) for a in axes), where=f"{where}: [grid]")
         for index in np.ndindex(*(len(a.values) for a in axes)):
             values = {a.name: a.values[i] for a, i in zip(axes, index)}
             points.append(StudyPoint(len(points), values, tuple(int(i) for i in index)))
