@@ -18,6 +18,7 @@ import numpy as np
 
 from netprobe import __version__, options
 from netprobe.errors import NetprobeError
+from netprobe.limits import check_dmrg_model, check_exact_model
 
 __all__ = ["main", "build_parser"]
 
@@ -232,6 +233,7 @@ def cmd_exact(args) -> int:
     if args.states < 1:
         raise NetprobeError(f"--states must be at least 1, got {args.states}")
     model = _load(args)
+    check_exact_model(model, where="netprobe exact", num_states=args.states)
     start = time.perf_counter()
     result = ground_state(model.hamiltonian, num_states=args.states)
     seconds = time.perf_counter() - start
@@ -283,7 +285,7 @@ def cmd_run(args) -> int:
     if args.resume and not args.out:
         raise NetprobeError("--resume needs --out DIR: the folder that holds the checkpoint")
     model = _load(args)
-    _check_dmrg_memory(model, chis[-1])
+    check_dmrg_model(model, chis[-1], where=f"--bond-dimension {chis[-1]}")
     sweeps = SweepSettings(max_sweeps=args.sweeps) if args.sweeps else SweepSettings()
     settings = LadderSettings(bond_dimensions=chis, sweeps=sweeps)
     result = run_ladder(model, settings, overrides=parse_overrides(args.overrides), seed=args.seed,
@@ -303,16 +305,6 @@ def cmd_run(args) -> int:
         lines.append(f"state files in {payload['out']}")
     _emit(args, payload, lines)
     return 0
-
-
-def _check_dmrg_memory(model, bond_dimension: int, budget: int | None = None):
-    from netprobe.limits import charge_spans, check_dmrg_size
-    from netprobe.mpo import build_mpo
-
-    ham = model.hamiltonian
-    check_dmrg_size(model.num_sites, local_dim=model.space.dim, mpo_bond=max(build_mpo(ham).bond_dimensions, default=1),
-                    bond_dimension=bond_dimension, where=f"--bond-dimension {bond_dimension}",
-                    charge_spans=charge_spans(model.space.charge_values(ham.conserve)), budget=budget)
 
 
 def cmd_measure(args) -> int:
@@ -399,7 +391,9 @@ def cmd_probe(args) -> int:
         model = _load(args, budget)
         chis = _bond_dimensions(args.bond_dimension)
         if args.engine == "dmrg":
-            _check_dmrg_memory(model, chis[-1], budget)
+            check_dmrg_model(model, chis[-1], where=f"--bond-dimension {chis[-1]}", budget=budget)
+        elif args.engine == "exact":
+            check_exact_model(model, where="--engine exact", budget=budget)
         result = probe_model(model, args.region, engine=args.engine, probes=probes, bond_dimensions=chis,
                              sweeps=args.sweeps, seed=args.seed, overrides=parse_overrides(args.overrides),
                              out=args.out, eps=args.eps, memory_budget=budget, progress=sys.stderr,

@@ -54,7 +54,7 @@ import numpy as np
 import scipy.linalg
 from scipy.special import entr
 
-from netprobe.errors import GaussianStateError, HermiticityError, LatticeError, NetprobeError, NotQuadraticError
+from netprobe.errors import GaussianStateError, HermiticityError, LatticeError, NotQuadraticError
 
 __all__ = [
     "GaussianOptions",

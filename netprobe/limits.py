@@ -24,6 +24,8 @@ import numpy as np
 
 from netprobe.errors import MemoryBudgetError, NetprobeError
 from netprobe.lattice import build_lattice
+from netprobe.mpo import build_mpo
+from netprobe.sites import count_sector_states
 from netprobe.rdm import default_memory_budget
 
 __all__ = [
@@ -33,6 +35,8 @@ __all__ = [
     "check_model_size",
     "estimate_exact_bytes",
     "check_exact_size",
+    "check_exact_model",
+    "check_dmrg_model",
     "estimate_dmrg_bytes",
     "charge_spans",
     "check_dmrg_size",
@@ -46,11 +50,13 @@ __all__ = [
 # cost keep the estimate above every measurement.
 _BYTES_PER_PRODUCT = 5_000
 _BYTES_PER_SITE = 32_000
-# One study point costs its description, a task plan per rung and a ledger row; measured at about
-# 1.2 KB per (point, rung) for a 10^5-point grid (tracemalloc); 4 KB leaves room for JSON copies.
+# A study task costs its point's description, its plan and its ledger rows: tracemalloc's peak over
+# parsing, planning, fingerprinting and the JSON copy was 0.72 KB per task for 10^5 points x 2 rungs;
+# 4 KB leaves room for the ledger's insertion and the executor's copies.
 _BYTES_PER_TASK = 4_000
 # Lanczos vectors the exact engine keeps besides the sector codes (ARPACK's ncv, at least 20).
 _EXACT_VECTORS = 20
+_EXACT_BITS = 62  # basis codes of the exact engine are 62-bit integers
 _REFERENCE_CELLS = 4  # cells along each direction of the small lattice whose bonds are counted
 
 
@@ -140,7 +146,8 @@ def estimate_model_size(lattice: str, *, length: int, circumference: int, geomet
     LatticeError
         For an unknown lattice, geometry or orientation (the builder's own message).
     """
-    sites_per_cell, products_per_cell = _reference_counts(lattice, circumference, geometry, orientation, families)
+    sites_per_cell, products_per_cell = _reference_counts(lattice, circumference, geometry, orientation,
+                                                          families)
     cells = int(length) * int(circumference)
     sites = math.ceil(sites_per_cell * cells)
     products = math.ceil(products_per_cell * cells)
@@ -165,8 +172,8 @@ def check_model_size(size: ModelSize, *, length: int, circumference: int, where:
     shrink = (f"use --set length={fits} or less" if fits >= 1 else
               "use a smaller circumference (and length)")
     raise MemoryBudgetError(
-        f"{where}: length {_count(length)} x circumference {_count(circumference)} gives {size.sites:.3g} sites and "
-        f"{size.products:.3g} operator products; building the model would need about "
+        f"{where}: length {_count(length)} x circumference {_count(circumference)} gives {size.sites:.3g} "
+        "sites and "        f"{size.products:.3g} operator products; building the model would need about "
         f"{format_bytes(size.bytes)}, over the memory budget of {format_bytes(allowed)}; {shrink}"
     )
 
@@ -199,6 +206,45 @@ def check_exact_size(dimension: int, *, sites: int, where: str, itemsize: int = 
             f"need at least {format_bytes(need)}, over the memory budget of {format_bytes(allowed)}; use "
             "fewer sites or the dmrg engine"
         )
+
+
+def check_exact_model(model, *, where: str, num_states: int = 1, budget: int | None = None) -> int:
+    """Refuse exact diagonalisation of a model (:class:`netprobe.spec.Model`) beyond the budget.
+
+    Returns
+    -------
+    int
+        The dimension of the model's sector.
+
+    Raises
+    ------
+    MemoryBudgetError
+        If the basis codes need more than 62 bits or the sector would not fit the budget.
+    """
+    space, n, ham = model.space, model.num_sites, model.hamiltonian
+    if n * math.log2(max(space.dim, 2)) > _EXACT_BITS:
+        raise MemoryBudgetError(
+            f"{where}: exact diagonalisation of {n} sites needs {space.dim}^{n} basis codes, more than "
+            f"{_EXACT_BITS} bits; use fewer sites or the dmrg engine")
+    dim = count_sector_states(space, n, ham.conserve, ham.sector)
+    check_exact_size(dim, sites=n, where=where, itemsize=16 if ham.is_complex else 8, num_states=num_states,
+                     budget=budget)
+    return dim
+
+
+def check_dmrg_model(model, bond_dimension: int, *, where: str, budget: int | None = None) -> None:
+    """Refuse DMRG of a model (:class:`netprobe.spec.Model`) whose state certainly exceeds the budget.
+
+    Raises
+    ------
+    MemoryBudgetError
+        From :func:`check_dmrg_size`.
+    """
+    ham = model.hamiltonian
+    check_dmrg_size(model.num_sites, local_dim=model.space.dim,
+                    mpo_bond=max(build_mpo(ham).bond_dimensions, default=1), bond_dimension=bond_dimension,
+                    where=where, charge_spans=charge_spans(model.space.charge_values(ham.conserve)),
+                    budget=budget)
 
 
 def _bond_sectors(n: int, spans: list[int]) -> int:
@@ -262,8 +308,8 @@ def check_dmrg_size(num_sites: int, *, local_dim: int, mpo_bond: int, bond_dimen
         One line with the lower bound, the budget and what to shrink.
     """
     allowed = _budget(budget)
-    need = estimate_dmrg_bytes(num_sites, local_dim=local_dim, mpo_bond=mpo_bond, bond_dimension=bond_dimension,
-                               charge_spans=charge_spans)
+    need = estimate_dmrg_bytes(num_sites, local_dim=local_dim, mpo_bond=mpo_bond,
+                               bond_dimension=bond_dimension, charge_spans=charge_spans)
     if need > allowed:
         raise MemoryBudgetError(
             f"{where}: DMRG on {num_sites} sites at bond dimension {bond_dimension} would need at least "
@@ -284,7 +330,7 @@ def check_grid_size(tasks: int, *, where: str, budget: int | None = None) -> Non
     need = int(tasks) * _BYTES_PER_TASK
     if need > allowed:
         raise MemoryBudgetError(
-            f"{where}: the grid has {tasks:,} tasks (points x rungs); their plan and ledger would need about "
-            f"{format_bytes(need)}, over the memory budget of {format_bytes(allowed)}; use a smaller num "
+            f"{where}: the grid holds at least {tasks:,} tasks (points x rungs); their plan and ledger "
+            f"would need about {format_bytes(need)}, over the memory budget of {format_bytes(allowed)}; use a smaller num "
             "or fewer values"
         )

@@ -18,6 +18,8 @@ __all__ = [
     "seed",
     "positive_gigabytes",
     "output_folder",
+    "folder_path",
+    "unwritable",
     "scheduler_address",
 ]
 
@@ -25,7 +27,8 @@ __all__ = [
 MAX_SEED = 2**63 - 1
 
 _SCHEMES = ("tcp", "tls", "ws", "wss", "inproc", "ucx")
-_ADDRESS = re.compile(r"^(?:(?P<scheme>[a-z]+)://)?(?P<host>\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.\-]+)(?::(?P<port>\d+))?$")
+_ADDRESS = re.compile(r"^(?:(?P<scheme>[a-z]+)://)?(?P<host>\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.\-]+)"
+                      r"(?::(?P<port>\d+))?$")
 
 
 def seed(text: str) -> int:
@@ -33,7 +36,8 @@ def seed(text: str) -> int:
     try:
         value = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"seed '{text}' must be a whole number from 0 to {MAX_SEED}") from None
+        raise argparse.ArgumentTypeError(
+            f"seed '{text}' must be a whole number from 0 to {MAX_SEED}") from None
     if not 0 <= value <= MAX_SEED:
         raise argparse.ArgumentTypeError(f"seed {value} must be a whole number from 0 to {MAX_SEED}")
     return value
@@ -56,6 +60,15 @@ def output_folder(text: str) -> str:
     Refuses an existing file (not a folder), a place whose nearest existing parent is not a folder,
     and a folder that cannot be written.
     """
+    folder_path(text)
+    problem = unwritable(text)
+    if problem is not None:
+        raise argparse.ArgumentTypeError(problem)
+    return text
+
+
+def folder_path(text: str) -> str:
+    """A folder name that is not an existing file (it may exist as a folder, or not yet)."""
     if not text.strip():
         raise argparse.ArgumentTypeError("the folder name is empty; give a folder such as results/run1")
     path = Path(text)
@@ -71,10 +84,18 @@ def output_folder(text: str) -> str:
         probe = parent
     if probe.exists() and not probe.is_dir():
         raise argparse.ArgumentTypeError(f"{text}: {probe} is a file, not a folder; give a folder name")
-    if not _writable(probe):
-        raise argparse.ArgumentTypeError(
-            f"{text}: cannot write in {probe} (permission denied or read-only); choose another folder")
     return text
+
+
+def unwritable(text: str) -> str | None:
+    """Why files cannot be created in folder ``text`` (or in its nearest existing parent); None if
+    they can."""
+    probe = Path(text)
+    while not probe.exists() and probe.parent != probe:
+        probe = probe.parent
+    if probe.is_dir() and _writable(probe):
+        return None
+    return f"{text}: cannot write in {probe} (permission denied or read-only); choose another folder"
 
 
 def _writable(folder: Path) -> bool:

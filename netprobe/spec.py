@@ -89,7 +89,8 @@ def find_toml(name_or_path: str, folder: Path, what: str) -> Path:
         return bundled
     problem = describe_path_problem(path)
     if problem is not None:
-        raise SpecError(f"{what} '{name_or_path}' {problem}; give the path of a {what} file (TOML) or a bundled {what}")
+        raise SpecError(
+            f"{what} '{name_or_path}' {problem}; give the path of a {what} file (TOML) or a bundled {what}")
     names = ", ".join(p.stem for p in bundled_files(folder)) or "none"
     raise SpecError(f"{what} '{name_or_path}' not found: give a {what} file path or a bundled {what} ({names})")
 
@@ -261,7 +262,8 @@ def parse_spec(text: str, *, path: str = "") -> ModelSpec:
     for index, entry in enumerate(terms_raw):
         label = f"{where}: [[term]] #{index + 1}"
         if not isinstance(entry, dict):
-            raise SpecError(f"{label} is {entry!r}, not a table; write each term as [[term]] with on, ops, coupling")
+            raise SpecError(
+                f"{label} is {entry!r}, not a table; write each term as [[term]] with on, ops, coupling")
         _check_keys(entry, _TERM_KEYS, where, f"[[term]] #{index + 1}")
         for key in ("on", "ops"):
             if key not in entry:
@@ -384,7 +386,8 @@ def _resolve_parameters(spec: ModelSpec, overrides: Mapping[str, str]) -> dict[s
             expression = _as_expression(pending[key], where, f"parameter '{key}'")
             unknown = sorted(expression.names - set(resolved))
             if set(unknown) <= _NON_FINITE:
-                raise SpecError(f"{where}: parameter '{key}' = {pending[key]} is not a finite number; give a finite value")
+                raise SpecError(
+                    f"{where}: parameter '{key}' = {pending[key]} is not a finite number; give a finite value")
             raise SpecError(
                 f"{where}: parameter '{key}' refers to {', '.join(unknown)}, which is not a parameter "
                 "(or the references form a cycle); define it in [parameters]"

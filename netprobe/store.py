@@ -124,7 +124,8 @@ def _int_attribute(attrs, name: str, shape: tuple | None = None) -> np.ndarray:
     value = np.asarray(attrs[name])
     if value.dtype.kind not in "iu" or (shape is not None and value.shape != shape) or \
             (shape is None and value.ndim != 1):
-        raise ValueError(f"attribute {name} = {value!r} is not {'a list of integers' if shape is None else 'an integer'}")
+        wanted = "a list of integers" if shape is None else "an integer"
+        raise ValueError(f"attribute {name} = {value!r} is not {wanted}")
     return value.astype(np.int64)
 
 
@@ -161,7 +162,8 @@ def read_block_tensor(group: h5py.Group) -> BlockTensor:
     keys = keys.reshape(-1, len(legs))
     counts = np.array([leg.n_sectors for leg in legs], np.int64)
     if keys.size and (keys.min() < 0 or np.any(keys >= counts)):
-        raise ValueError(f"{where}: a block key has a sector index out of range (sector counts {counts.tolist()})")
+        raise ValueError(
+            f"{where}: a block key has a sector index out of range (sector counts {counts.tolist()})")
     flat = _dataset(group, "data", 1, "fc")
     if flat.size and not np.all(np.isfinite(flat)):
         raise ValueError(f"{where}: the tensor data hold NaN or infinite numbers")

@@ -63,7 +63,8 @@ def read_text(path, what: str) -> str:
     try:
         data = path.read_bytes()
     except OSError as err:
-        raise SpecError(f"cannot read {what} file {path} ({err.strerror or err}); check that it is readable") from None
+        raise SpecError(
+            f"cannot read {what} file {path} ({err.strerror or err}); check that it is readable") from None
     try:
         return data.decode("utf-8")
     except UnicodeDecodeError as err:
@@ -112,7 +113,10 @@ def _check_values(raw: dict, where: str) -> None:
                 "files use plain tables of values")
         items = node.items() if isinstance(node, dict) else enumerate(node)
         for key, value in items:
-            label = f"{name}.{key}" if name and isinstance(key, str) else (f"{name}[{key}]" if name else str(key))
+            if not name:
+                label = str(key)
+            else:
+                label = f"{name}.{key}" if isinstance(key, str) else f"{name}[{key}]"
             if isinstance(value, float) and not math.isfinite(value):
                 raise SpecError(
                     f"{where}: {label} = {value} is not a finite number; give a finite value (a number "

@@ -251,6 +251,7 @@ def test_version_1_files_without_checksums_stay_readable(saved_file, tmp_path, m
     assert np.array_equal(saved.state.to_vector(), psi.to_vector())
 
 
+@pytest.mark.filterwarnings("ignore:DMRG ladder")  # two sweeps are enough to write a checkpoint
 @pytest.mark.parametrize("info_change, match", [
     (lambda info: info.update(stages=[5] * len(info["stages"])), "stage entry"),
     (lambda info: info.update(stages=[dict(s, energy="low") for s in info["stages"]]), "energy"),

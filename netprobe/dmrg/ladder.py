@@ -312,7 +312,8 @@ def _checked_stage(entry) -> dict:
     for key, allowed in kinds.items():
         value = entry.get(key, ...)
         if value is ... or not isinstance(value, allowed) or (isinstance(value, bool) and bool not in allowed):
-            raise ValueError(f"stage entry {key} = {value if value is not ... else 'missing'!r} has the wrong type")
+            shown = "missing" if value is ... else repr(value)
+            raise ValueError(f"stage entry {key} = {shown} has the wrong type")
     return entry
 
 
@@ -332,7 +333,8 @@ def _read_checkpoint(saved, seed, rungs: int):
         if isinstance(first, bool) or not isinstance(first, int):
             raise ValueError(f"stage {first!r} is not a whole number")
         if not 0 <= first <= rungs or len(stages) != first:
-            raise ValueError(f"stage {first} with {len(stages)} finished stage(s) does not fit a ladder of {rungs}")
+            raise ValueError(
+                f"stage {first} with {len(stages)} finished stage(s) does not fit a ladder of {rungs}")
         engine = info.get("engine") or {}
         history = [SweepRecord.from_dict(r) for r in engine.get("history", [])]
         elapsed = float(engine.get("elapsed", 0.0))

@@ -25,7 +25,7 @@ import sys
 from pathlib import Path
 
 from netprobe.errors import StudyError
-from netprobe.options import output_folder, scheduler_address
+from netprobe.options import folder_path, scheduler_address, unwritable
 from netprobe.study.description import StudyDescription, load_study
 
 __all__ = ["add_study_parser", "add_report_parser", "cmd_study", "cmd_report", "default_folder"]
@@ -55,7 +55,7 @@ def add_study_parser(subparsers) -> None:
     p.add_argument("spec", metavar="SPEC", help="study file (path) or the name of a bundled study")
     p.add_argument(
         "--out",
-        type=output_folder,
+        type=folder_path,
         metavar="DIR",
         help="study folder for the ledger, states and reports (default: ./<study name>-study)",
     )
@@ -172,6 +172,9 @@ def cmd_study(args) -> int:
     folder = Path(args.out) if args.out else default_folder(description)
     if args.status:
         return _status(description, folder, args.json)
+    problem = unwritable(str(folder))
+    if problem is not None:
+        raise StudyError(f"--out {problem}")
     if args.workers is not None and args.scheduler:
         raise StudyError(
             "give --workers (local processes) or --scheduler (Dask), not both; Dask decides its workers"

@@ -61,10 +61,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from netprobe.errors import MemoryBudgetError, NetprobeError, SpecError, StudyError
-from netprobe.limits import charge_spans, check_dmrg_size, check_exact_size, check_grid_size
-from netprobe.mpo import build_mpo
-from netprobe.sites import count_sector_states
+from netprobe.errors import NetprobeError, SpecError, StudyError
+from netprobe.limits import check_dmrg_model, check_exact_model, check_grid_size
 from netprobe.spec import (LATTICE_KEYS, ModelSpec, _resolve_parameters, bundled_files, check_size, find_model,
                            find_toml, models_directory, parse_spec)
 from netprobe.tomlio import parse_toml, read_text
@@ -366,9 +364,6 @@ def _format_value(value) -> str:
     return repr(round(value, _DECIMALS))
 
 
-_EXACT_BITS = 62  # basis codes of the exact engine are 62-bit integers
-
-
 @dataclass(frozen=True, eq=False)
 class StudyDescription:
     """A parsed and checked study file.
@@ -640,20 +635,10 @@ class StudyDescription:
 
     def _check_engine(self, model) -> None:
         """Refuse an engine whose memory estimate for this model exceeds the budget."""
-        ham = model.hamiltonian
-        itemsize = 16 if ham.is_complex else 8
         if self.engine == "exact":
-            if model.num_sites * math.log2(max(model.space.dim, 2)) > _EXACT_BITS:
-                raise MemoryBudgetError(
-                    f"exact diagonalisation of {model.num_sites} sites needs {model.space.dim}^{model.num_sites} "
-                    "basis codes, more than 62 bits; use fewer sites or the dmrg engine")
-            dim = count_sector_states(model.space, model.num_sites, ham.conserve, ham.sector)
-            check_exact_size(dim, sites=model.num_sites, where="engine exact", itemsize=itemsize)
+            check_exact_model(model, where="engine exact")
         elif self.engine == "dmrg":
-            check_dmrg_size(model.num_sites, local_dim=model.space.dim,
-                            mpo_bond=max(build_mpo(ham).bond_dimensions, default=1),
-                            bond_dimension=max(self.ladder), where="engine dmrg",
-                            charge_spans=charge_spans(model.space.charge_values(ham.conserve)))
+            check_dmrg_model(model, max(self.ladder), where="engine dmrg")
 
     def __repr__(self) -> str:
         axes = (
