@@ -9,15 +9,20 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
+import os
 import sys
 import time
 
 import numpy as np
 
-from netprobe import __version__
+from netprobe import __version__, options
 from netprobe.errors import NetprobeError
+from netprobe.limits import check_dmrg_model, check_exact_model
 
 __all__ = ["main", "build_parser"]
+
+_EXACT_BITS = 62  # basis codes of the exact engine are 62-bit integers
 
 
 class _Parser(argparse.ArgumentParser):
@@ -61,8 +66,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--bond-dimension", required=True, metavar="D[,D...]",
                    help="ladder of bond dimensions, e.g. 64,128,256 (each stage warm-starts the next)")
     p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum sweeps per stage")
-    p.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the random initial state (default 0)")
-    p.add_argument("--out", default=None, metavar="DIR", help="folder for state files and the checkpoint")
+    p.add_argument("--seed", type=options.seed, default=0, metavar="S", help="seed of the random initial state (default 0)")
+    p.add_argument("--out", type=options.output_folder, default=None, metavar="DIR", help="folder for state files and the checkpoint")
     p.add_argument("--resume", action="store_true", help="continue from the checkpoint in --out")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_run)
@@ -93,11 +98,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--bond-dimension", default="32,64", metavar="D[,D...]",
                    help="DMRG ladder; the probes are evaluated on every rung (default 32,64)")
     p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum DMRG sweeps per rung")
-    p.add_argument("--seed", type=int, default=0, metavar="S", help="DMRG seed (default 0)")
-    p.add_argument("--out", default=None, metavar="DIR", help="keep the DMRG state files here")
+    p.add_argument("--seed", type=options.seed, default=0, metavar="S", help="DMRG seed (default 0)")
+    p.add_argument("--out", type=options.output_folder, default=None, metavar="DIR", help="keep the DMRG state files here")
     p.add_argument("--eps", type=float, default=1e-12, metavar="EPS",
                    help="relative eigenvalue floor of the modular Hamiltonians (J is also shown at 100 EPS)")
-    p.add_argument("--memory-budget", type=float, default=None, metavar="GB",
+    p.add_argument("--memory-budget", type=options.positive_gigabytes, default=None, metavar="GB",
                    help="refuse reduced density matrices above this estimate (default a quarter of the memory)")
     p.add_argument("--plot", metavar="FILE.png", help="draw the regions (and J against bond dimension)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
@@ -131,7 +136,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--steps", type=int, default=8, metavar="N", help="flux steps from 0 to 2 pi (default 8)")
     p.add_argument("--bond-dimension", type=int, default=64, metavar="D", help="DMRG bond dimension (default 64)")
     p.add_argument("--sweeps", type=int, default=4, metavar="N", help="DMRG sweeps per step (default 4)")
-    p.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the first step (default 0)")
+    p.add_argument("--seed", type=options.seed, default=0, metavar="S", help="seed of the first step (default 0)")
     p.add_argument("--plot", metavar="FILE.png", help="plot <Q_L> and the entanglement spectrum against the flux")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_flux)
@@ -153,10 +158,10 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _load(args):
+def _load(args, memory_budget: int | None = None):
     from netprobe.spec import load_model, parse_overrides
 
-    return load_model(args.spec, parse_overrides(args.overrides))
+    return load_model(args.spec, parse_overrides(args.overrides), memory_budget=memory_budget)
 
 
 def _emit(args, payload: dict, lines: list[str]):
@@ -201,7 +206,11 @@ def _model_summary(model) -> dict:
     families = {}
     for entry in model.spec.terms:
         families[entry.on] = len(model.lattice.family(entry.on))
-    dim = count_sector_states(model.space, model.num_sites, ham.conserve, ham.sector)
+    # beyond 62 bits of basis codes exact diagonalisation is impossible, and the count itself is slow
+    if model.num_sites * math.log2(max(model.space.dim, 2)) <= _EXACT_BITS:
+        dim = count_sector_states(model.space, model.num_sites, ham.conserve, ham.sector)
+    else:
+        dim = None
     return {
         "model": model.name,
         "lattice": model.lattice.describe(),
@@ -233,7 +242,8 @@ def cmd_check(args) -> int:
         + ("" if not info["complex"] else " (complex couplings)"),
         "families   " + ", ".join(f"{k}: {v} bonds" for k, v in info["bond_families"].items()),
         f"sector     {sector}",
-        f"exact dim  {info['exact_dimension']:,} basis states in the sector",
+        (f"exact dim  {info['exact_dimension']:,} basis states in the sector" if info["exact_dimension"] is not None
+         else f"exact dim  far beyond exact diagonalisation ({model.space.dim}^{model.num_sites} basis states)"),
         f"MPO        max bond dimension {max(info['mpo_bond_dimensions'], default=1)} "
         f"(bonds: {' '.join(map(str, info['mpo_bond_dimensions']))})",
         f"           before exact compression {max(info['mpo_bond_dimensions_uncompressed'], default=1)} "
@@ -251,6 +261,7 @@ def cmd_exact(args) -> int:
     if args.states < 1:
         raise NetprobeError(f"--states must be at least 1, got {args.states}")
     model = _load(args)
+    check_exact_model(model, where="netprobe exact", num_states=args.states)
     start = time.perf_counter()
     result = ground_state(model.hamiltonian, num_states=args.states)
     seconds = time.perf_counter() - start
@@ -302,6 +313,7 @@ def cmd_run(args) -> int:
     if args.resume and not args.out:
         raise NetprobeError("--resume needs --out DIR: the folder that holds the checkpoint")
     model = _load(args)
+    check_dmrg_model(model, chis[-1], where=f"--bond-dimension {chis[-1]}")
     sweeps = SweepSettings(max_sweeps=args.sweeps) if args.sweeps else SweepSettings()
     settings = LadderSettings(bond_dimensions=chis, sweeps=sweeps)
     result = run_ladder(model, settings, overrides=parse_overrides(args.overrides), seed=args.seed,
@@ -393,7 +405,7 @@ def cmd_probe(args) -> int:
         if args.memory_budget <= 0:
             raise NetprobeError(f"--memory-budget must be positive (in GB), got {args.memory_budget}")
         budget = int(args.memory_budget * 2**30)
-    if args.eps <= 0 or args.eps >= 1e-3:
+    if not 0 < args.eps < 1e-3:
         raise NetprobeError(f"--eps {args.eps}: choose a small positive floor such as 1e-12 (large floors bias J)")
     if args.plot:
         _check_png(args.plot)
@@ -403,8 +415,13 @@ def cmd_probe(args) -> int:
             raise NetprobeError("--set applies to model sources; a state file carries its own parameters")
         result = probe_saved_state(source, args.region, probes=probes, eps=args.eps, memory_budget=budget)
     else:
-        model = _load(args)
+        model = _load(args, budget)
         settings = _solve_settings(args, parse_overrides(args.overrides))
+        if args.engine == "dmrg":
+            check_dmrg_model(model, settings.bond_dimensions[-1], where=f"--bond-dimension "
+                             f"{settings.bond_dimensions[-1]}", budget=budget)
+        elif args.engine == "exact":
+            check_exact_model(model, where="--engine exact", budget=budget)
         result = probe_model(model, args.region, engine=args.engine, probes=probes, settings=settings,
                              eps=args.eps, memory_budget=budget, cmi_region=args.cmi_region)
     payload = result.to_json()
@@ -730,12 +747,27 @@ def _check_png(path: str):
         raise NetprobeError(f"--plot {path}: plots are written as PNG; give a file name ending in .png")
 
 
+def _closed_output() -> int:
+    """Standard output is closed (``>&-``) or its reader went away: say so in one line."""
+    try:  # later writes and the interpreter's final flush go nowhere instead of failing again
+        sys.stdout = open(os.devnull, "w")
+    except OSError:
+        pass
+    print("netprobe: error: standard output is closed; redirect it to a file or /dev/null (> out.txt)",
+          file=sys.stderr)
+    return 2
+
+
 def main(argv=None) -> int:
     """Entry point of the ``netprobe`` console script."""
     parser = build_parser()
     args = parser.parse_args(argv)
+    if sys.stdout is None:
+        return _closed_output()
     try:
         return args.func(args)
+    except BrokenPipeError:
+        return _closed_output()
     except NetprobeError as err:
         message = " ".join(str(err).split())  # one line, whatever the message held
         print(f"netprobe: error: {message}", file=sys.stderr)

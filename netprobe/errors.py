@@ -14,6 +14,9 @@ __all__ = [
     "HermiticityError",
     "StateFileError",
     "MemoryBudgetError",
+    "NotQuadraticError",
+    "GaussianStateError",
+    "StudyError",
 ]
 
 
@@ -51,3 +54,15 @@ class StateFileError(NetprobeError):
 
 class MemoryBudgetError(NetprobeError):
     """A computation would exceed the memory budget; the message carries the estimate."""
+
+
+class NotQuadraticError(NetprobeError):
+    """The Hamiltonian is not quadratic in fermion operators, so it has no Gaussian ground state."""
+
+
+class GaussianStateError(NetprobeError):
+    """A quadratic model whose ground state the Gaussian engine cannot build (degenerate, wrong path)."""
+
+
+class StudyError(NetprobeError):
+    """A study cannot run as asked (no ledger, a ledger of another study, an unreachable scheduler)."""

@@ -61,8 +61,6 @@ from netprobe.quadratic import (
 )
 
 __all__ = [
-    "NotQuadraticError",
-    "GaussianStateError",
     "GaussianOptions",
     "QuadraticForm",
     "quadratic_form",

@@ -35,7 +35,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from netprobe.errors import HermiticityError, NetprobeError
+from netprobe.errors import GaussianStateError, HermiticityError, NetprobeError, NotQuadraticError
 
 __all__ = [
     "NotQuadraticError",
@@ -45,14 +45,6 @@ __all__ = [
     "QuadraticForm",
     "quadratic_form",
 ]
-
-class NotQuadraticError(NetprobeError):
-    """The Hamiltonian is not quadratic in fermion operators, so it has no Gaussian ground state."""
-
-
-class GaussianStateError(NetprobeError):
-    """A quadratic model whose ground state the Gaussian engine cannot build (degenerate, wrong path)."""
-
 
 _SPIN_AXES = ("z", "x", "y")
 GAUSSIAN_ROUTES = ("auto", "dense", "momentum")

@@ -37,7 +37,6 @@ member ``name@k``; ``a.b`` is the on-site product of ``a`` and ``b``. Example:
 from __future__ import annotations
 
 import re
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
@@ -47,11 +46,14 @@ import numpy as np
 from netprobe import expr
 from netprobe.errors import ExpressionError, NetprobeError, SpecError
 from netprobe.lattice import Lattice, build_lattice
+from netprobe.limits import check_model_size, estimate_model_size
 from netprobe.sites import SiteSpace, operator_charge_change, site_space
 from netprobe.terms import Hamiltonian, Term
+from netprobe.tomlio import describe_path_problem, parse_toml, read_text
 
 __all__ = ["ModelSpec", "Model", "load_spec", "parse_spec", "parse_overrides", "models_directory",
-           "find_model", "list_models", "find_toml", "bundled_files", "build_model", "load_model", "LATTICE_KEYS"]
+           "find_model", "list_models", "find_toml", "bundled_files", "build_model", "load_model", "check_size",
+           "LATTICE_KEYS"]
 
 LATTICE_KEYS = {"lattice": str, "geometry": str, "orientation": str, "length": int, "circumference": int,
                 "flux": float, "twist": float}
@@ -59,6 +61,7 @@ _MODEL_KEYS = {"name", "description", "site", "conserve", "source"}
 _TERM_KEYS = {"on", "ops", "coupling", "conjugate", "peierls"}
 _TOP_KEYS = {"model", "parameters", "sector", "term"}
 _SITE_VARIABLES = ("x", "y", "sublattice", "eps")
+_NON_FINITE = {"nan", "inf", "infinity", "NaN", "Inf", "Infinity"}
 
 
 def models_directory() -> Path:
@@ -85,6 +88,10 @@ def find_toml(name_or_path: str, folder: Path, what: str) -> Path:
     bundled = folder / f"{name_or_path}.toml"
     if bundled.is_file():
         return bundled
+    problem = describe_path_problem(path)
+    if problem is not None:
+        raise SpecError(
+            f"{what} '{name_or_path}' {problem}; give the path of a {what} file (TOML) or a bundled {what}")
     names = ", ".join(p.stem for p in bundled_files(folder)) or "none"
     raise SpecError(f"{what} '{name_or_path}' not found: give a {what} file path or a bundled {what} ({names})")
 
@@ -211,10 +218,7 @@ def parse_spec(text: str, *, path: str = "") -> ModelSpec:
         For malformed TOML, unknown keys, missing entries or malformed expressions.
     """
     where = _where(path)
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise SpecError(f"{where}: not valid TOML ({err}); fix the syntax at the place named") from None
+    raw = parse_toml(text, where)
     _check_keys(raw, _TOP_KEYS, where, "the top level")
     model = raw.get("model")
     if not isinstance(model, dict):
@@ -258,6 +262,9 @@ def parse_spec(text: str, *, path: str = "") -> ModelSpec:
     terms = []
     for index, entry in enumerate(terms_raw):
         label = f"{where}: [[term]] #{index + 1}"
+        if not isinstance(entry, dict):
+            raise SpecError(
+                f"{label} is {entry!r}, not a table; write each term as [[term]] with on, ops, coupling")
         _check_keys(entry, _TERM_KEYS, where, f"[[term]] #{index + 1}")
         for key in ("on", "ops"):
             if key not in entry:
@@ -288,11 +295,7 @@ def _as_expression(value, where, what) -> expr.Expression:
 def load_spec(name_or_path: str) -> ModelSpec:
     """Read and parse a model file (a path, or the name of a bundled model)."""
     path = find_model(name_or_path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise SpecError(f"cannot read model file {path}: {err}") from None
-    return parse_spec(text, path=str(path))
+    return parse_spec(read_text(path, "model"), path=str(path))
 
 
 def parse_overrides(items) -> dict[str, str]:
@@ -383,6 +386,9 @@ def _resolve_parameters(spec: ModelSpec, overrides: Mapping[str, str]) -> dict[s
             key = next(iter(pending))
             expression = _as_expression(pending[key], where, f"parameter '{key}'")
             unknown = sorted(expression.names - set(resolved))
+            if set(unknown) <= _NON_FINITE:
+                raise SpecError(
+                    f"{where}: parameter '{key}' = {pending[key]} is not a finite number; give a finite value")
             raise SpecError(
                 f"{where}: parameter '{key}' refers to {', '.join(unknown)}, which is not a parameter "
                 "(or the references form a cycle); define it in [parameters]"
@@ -398,16 +404,29 @@ def _numeric_env(parameters: Mapping[str, Any]) -> dict[str, Any]:
             ("length", "circumference")} | {"length": parameters["length"], "circumference": parameters["circumference"]}
 
 
-def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None) -> Model:
+def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None, *,
+                memory_budget: int | None = None) -> Model:
     """Place a model on its lattice with the given ``--set`` overrides.
+
+    Parameters
+    ----------
+    spec : ModelSpec
+    overrides : mapping of str to str, optional
+        The ``--set`` values.
+    memory_budget : int, optional
+        Bytes the assembly may use (default :func:`netprobe.rdm.default_memory_budget`); the size is
+        estimated before the lattice is built.
 
     Raises
     ------
     NetprobeError
         Any problem with the description, the lattice, an operator, the sector or Hermiticity.
+    MemoryBudgetError
+        If the estimated size of the model exceeds the budget.
     """
     where = _where(spec.path)
     params = _resolve_parameters(spec, overrides or {})
+    check_size(spec, params, memory_budget=memory_budget)
     lattice = build_lattice(
         params["lattice"], length=params["length"], circumference=params["circumference"],
         geometry=params.get("geometry", "cylinder"), orientation=params.get("orientation", "zigzag"),
@@ -481,6 +500,25 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None) -> 
     return Model(spec, params, lattice, space, ham)
 
 
+def check_size(spec: ModelSpec, params: Mapping[str, Any], *, memory_budget: int | None = None) -> None:
+    """Estimate the model's size from resolved parameters and refuse it above the memory budget.
+
+    Raises
+    ------
+    MemoryBudgetError
+        With the estimate and the largest length that fits.
+    """
+    families: dict[str, int] = {}
+    for entry in spec.terms:
+        families[entry.on] = families.get(entry.on, 0) + len(entry.products) * (2 if entry.conjugate else 1)
+    length, circumference = params["length"], params["circumference"]
+    size = estimate_model_size(params["lattice"], length=length, circumference=circumference,
+                               geometry=params.get("geometry", "cylinder"),
+                               orientation=params.get("orientation", "zigzag"), families=families)
+    check_model_size(size, length=length, circumference=circumference, where=_where(spec.path),
+                     budget=memory_budget)
+
+
 def _evaluate_factor(factor, env, where, entry):
     if isinstance(factor, int):
         return factor
@@ -532,8 +570,9 @@ def _resolve_sector(spec: ModelSpec, params, num_sites: int, space: SiteSpace) -
     return sector
 
 
-def load_model(name_or_path: str, overrides: Mapping[str, str] | None = None) -> Model:
+def load_model(name_or_path: str, overrides: Mapping[str, str] | None = None, *,
+               memory_budget: int | None = None) -> Model:
     """Load a model file and place it on its lattice (the usual entry point)."""
-    return build_model(load_spec(name_or_path), overrides)
+    return build_model(load_spec(name_or_path), overrides, memory_budget=memory_budget)
 
 

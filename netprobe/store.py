@@ -1,10 +1,10 @@
 """State files: matrix product states in HDF5, in a versioned layout of our own.
 
-Layout (format ``netprobe-state``, version 1)
+Layout (format ``netprobe-state``, version 2)
 -----------------------------------------------
 ::
 
-    /                       attributes: format = "netprobe-state", format_version = 1,
+    /                       attributes: format = "netprobe-state", format_version = 2,
                             package_version, kind ("state" or "checkpoint"), created (UTC, ISO 8601),
                             seed (JSON: an integer or null), model_text (the model file),
                             overrides (JSON object of the --set values), info (JSON object),
@@ -17,6 +17,13 @@ A block tensor is a group with attributes ``charge``, ``charge_moduli``, ``dtype
 ``directions`` (one per leg), datasets ``leg<i>_charges`` (n_sectors, k) and ``leg<i>_dims``
 (n_sectors,) per leg, ``keys`` (n_blocks, n_legs) with the sector indices of every stored block and
 ``data``: the blocks flattened in C order and concatenated in the order of ``keys``.
+
+Version 2 writes the tensor data (every ``data`` dataset) with HDF5's Fletcher-32 checksum filter,
+so a damaged byte in a tensor is detected when it is read; version 1 (no checksums, otherwise the
+same) is still read.
+Every read is validated against the layout (shapes, sector indices in range, finite data, a known
+random-generator state), and anything that does not fit is reported as a damaged file, in one line
+that names the file and what is wrong.
 
 Everything is numbers, h5py strings and JSON text; nothing is pickled. Files are written to a
 temporary name in the target folder, flushed to disk and renamed into place (``os.replace``), so a
@@ -55,11 +62,15 @@ __all__ = [
     "read_block_tensor",
     "write_mps",
     "read_mps",
+    "check_rng_state",
+    "damaged",
 ]
 
 FORMAT_NAME = "netprobe-state"
-FORMAT_VERSION = 1
-_READABLE_VERSIONS = (1,)
+FORMAT_VERSION = 2
+_READABLE_VERSIONS = (1, 2)
+_DTYPES = ("float64", "complex128")
+_BIT_GENERATORS = ("PCG64", "PCG64DXSM", "MT19937", "Philox", "SFC64")
 
 
 # --------------------------------------------------------------------------------------------------
@@ -74,13 +85,48 @@ def write_block_tensor(group: h5py.Group, tensor: BlockTensor) -> None:
     group.attrs["dtype"] = str(tensor.dtype)
     group.attrs["directions"] = np.array([leg.direction for leg in tensor.legs], np.int64)
     for i, leg in enumerate(tensor.legs):
-        group.create_dataset(f"leg{i}_charges", data=np.asarray(leg.charges, np.int64))
-        group.create_dataset(f"leg{i}_dims", data=np.asarray(leg.dims, np.int64))
+        _write_dataset(group, f"leg{i}_charges", np.asarray(leg.charges, np.int64))
+        _write_dataset(group, f"leg{i}_dims", np.asarray(leg.dims, np.int64))
     keys = sorted(tensor.blocks)
-    group.create_dataset("keys", data=np.array(keys, np.int64).reshape(len(keys), tensor.ndim))
+    _write_dataset(group, "keys", np.array(keys, np.int64).reshape(len(keys), tensor.ndim))
     data = [np.ascontiguousarray(tensor.blocks[k]).reshape(-1) for k in keys]
     flat = np.concatenate(data) if data else np.zeros(0, tensor.dtype)
-    group.create_dataset("data", data=flat.astype(tensor.dtype, copy=False))
+    _write_dataset(group, "data", flat.astype(tensor.dtype, copy=False), checksum=True)
+
+
+def _write_dataset(group: h5py.Group, name: str, data: np.ndarray, checksum: bool = False) -> None:
+    # Fletcher-32 needs chunked storage, which costs a chunk index per dataset: the tensor data carry
+    # the checksum; the small integer tables are checked against each other on reading instead
+    group.create_dataset(name, data=data, fletcher32=checksum and data.size > 0)
+
+
+def _dataset(group: h5py.Group, name: str, ndim: int, kind: str) -> np.ndarray:
+    """Read dataset ``name`` of the expected rank and number kind ("i": integers, "fc": numbers)."""
+    if name not in group:
+        raise ValueError(f"{group.name}/{name} is missing")
+    node = group[name]
+    if not isinstance(node, h5py.Dataset):
+        raise ValueError(f"{node.name} is not a dataset")
+    if node.ndim != ndim:
+        raise ValueError(f"{node.name} has {node.ndim} dimension(s), the layout has {ndim}")
+    if node.dtype.kind not in kind:
+        raise ValueError(f"{node.name} holds {node.dtype}, not {'integers' if kind == 'i' else 'numbers'}")
+    try:
+        return np.asarray(node[()])
+    except OSError as err:  # a failed Fletcher-32 check or an unreadable chunk
+        raise ValueError(f"{node.name} cannot be read ({' '.join(str(err).split())}): its checksum "
+                         "does not match or the data are cut short") from None
+
+
+def _int_attribute(attrs, name: str, shape: tuple | None = None) -> np.ndarray:
+    if name not in attrs:
+        raise ValueError(f"attribute {name} is missing")
+    value = np.asarray(attrs[name])
+    if value.dtype.kind not in "iu" or (shape is not None and value.shape != shape) or \
+            (shape is None and value.ndim != 1):
+        wanted = "a list of integers" if shape is None else "an integer"
+        raise ValueError(f"attribute {name} = {value!r} is not {wanted}")
+    return value.astype(np.int64)
 
 
 def read_block_tensor(group: h5py.Group) -> BlockTensor:
@@ -88,16 +134,41 @@ def read_block_tensor(group: h5py.Group) -> BlockTensor:
 
     Raises
     ------
-    KeyError, ValueError
-        For a damaged group; :func:`load_state` turns these into :class:`StateFileError`.
+    ValueError
+        For a group that does not fit the layout (the message says where and what);
+        :func:`load_state` turns it into :class:`StateFileError`.
     """
-    rule = ChargeRule(tuple(int(m) for m in group.attrs["charge_moduli"]))
-    directions = [int(d) for d in group.attrs["directions"]]
-    dtype = np.dtype(str(group.attrs["dtype"]))
-    legs = [Leg(np.asarray(group[f"leg{i}_charges"][()], np.int64),
-                np.asarray(group[f"leg{i}_dims"][()], np.int64), d) for i, d in enumerate(directions)]
-    keys = np.asarray(group["keys"][()], np.int64).reshape(-1, len(legs))
-    flat = np.asarray(group["data"][()])
+    where = group.name
+    moduli = _int_attribute(group.attrs, "charge_moduli")
+    rule = ChargeRule(tuple(int(m) for m in moduli))
+    directions = [int(d) for d in _int_attribute(group.attrs, "directions")]
+    charge = _int_attribute(group.attrs, "charge")
+    if charge.shape != (rule.k,):
+        raise ValueError(f"{where}: charge {charge.tolist()} does not have {rule.k} component(s)")
+    dtype_text = _attribute_text(group.attrs, "dtype")
+    if dtype_text not in _DTYPES:
+        raise ValueError(f"{where}: dtype {dtype_text!r} is not one of {', '.join(_DTYPES)}")
+    dtype = np.dtype(dtype_text)
+    legs = []
+    for i, d in enumerate(directions):
+        charges = _dataset(group, f"leg{i}_charges", 2, "iu").astype(np.int64)
+        dims = _dataset(group, f"leg{i}_dims", 1, "iu").astype(np.int64)
+        if charges.shape != (dims.size, rule.k) or dims.size == 0:
+            raise ValueError(f"{where}: leg {i} has {charges.shape} charges for {dims.size} sectors")
+        legs.append(Leg(charges, dims, d))
+    keys = _dataset(group, "keys", 2, "iu").astype(np.int64)
+    if keys.shape[1:] != (len(legs),) and keys.size:
+        raise ValueError(f"{where}: keys have shape {keys.shape}, the tensor has {len(legs)} legs")
+    keys = keys.reshape(-1, len(legs))
+    counts = np.array([leg.n_sectors for leg in legs], np.int64)
+    if keys.size and (keys.min() < 0 or np.any(keys >= counts)):
+        raise ValueError(
+            f"{where}: a block key has a sector index out of range (sector counts {counts.tolist()})")
+    flat = _dataset(group, "data", 1, "fc")
+    if flat.size and not np.all(np.isfinite(flat)):
+        raise ValueError(f"{where}: the tensor data hold NaN or infinite numbers")
+    if flat.dtype.kind == "c" and dtype.kind != "c":
+        raise ValueError(f"{where}: complex data for dtype {dtype}")
     blocks, start = {}, 0
     for key in map(tuple, keys.tolist()):
         shape = tuple(int(leg.dims[s]) for s, leg in zip(key, legs))
@@ -108,7 +179,7 @@ def read_block_tensor(group: h5py.Group) -> BlockTensor:
         start += size
     if start != flat.size:
         raise ValueError("block data longer than the block keys need")
-    return BlockTensor(legs, np.asarray(group.attrs["charge"], np.int64), rule, blocks, dtype=dtype)
+    return BlockTensor(legs, charge, rule, blocks, dtype=dtype)
 
 
 def write_mps(group: h5py.Group, state: MPS) -> None:
@@ -129,18 +200,42 @@ def read_mps(group: h5py.Group) -> MPS:
 
     Raises
     ------
-    KeyError, ValueError, NetprobeError
+    ValueError, NetprobeError
         For a damaged group or an unknown site space.
     """
-    space = site_space(str(group.attrs["site_space"]))
-    basis = SiteBasis.from_space(space, json.loads(group.attrs["conserve"]))
-    if not np.array_equal(np.asarray(group.attrs["basis_order"]), basis.order) or \
-            tuple(int(m) for m in group.attrs["charge_moduli"]) != basis.rule.moduli:
+    space = site_space(_attribute_text(group.attrs, "site_space"))
+    conserve = json.loads(_attribute_text(group.attrs, "conserve"))
+    if not isinstance(conserve, list) or not all(isinstance(c, str) for c in conserve):
+        raise ValueError(f"{group.name}: conserve {conserve!r} is not a list of charge names")
+    basis = SiteBasis.from_space(space, conserve)
+    if not np.array_equal(np.asarray(group.attrs.get("basis_order")), basis.order) or \
+            tuple(int(m) for m in _int_attribute(group.attrs, "charge_moduli")) != basis.rule.moduli:
         raise ValueError("the stored local basis differs from the site space's")
-    n = int(group.attrs["num_sites"])
-    tensors = [read_block_tensor(group[f"site_{i:05d}"]) for i in range(n)]
-    centre = int(group.attrs["centre"])
+    n = int(_int_attribute(group.attrs, "num_sites", ()))
+    stored = sum(1 for name in group if name.startswith("site_"))
+    if not 1 <= n or n != stored:
+        raise ValueError(f"{group.name}: num_sites = {n} but {stored} site tensors are stored")
+    tensors = []
+    for i in range(n):
+        name = f"site_{i:05d}"
+        if not isinstance(group.get(name), h5py.Group):
+            raise ValueError(f"{group.name}/{name} is missing")
+        tensors.append(read_block_tensor(group[name]))
+    centre = int(_int_attribute(group.attrs, "centre", ()))
+    if not -1 <= centre < n:
+        raise ValueError(f"{group.name}: centre {centre} lies outside the {n} sites")
     return MPS(tensors, basis, centre=None if centre < 0 else centre)
+
+
+def _attribute_text(attrs, name: str) -> str:
+    if name not in attrs:
+        raise ValueError(f"attribute {name} is missing")
+    value = attrs[name]
+    if isinstance(value, bytes):
+        return value.decode("utf-8")
+    if not isinstance(value, str):
+        raise ValueError(f"attribute {name} is not text")
+    return value
 
 
 # --------------------------------------------------------------------------------------------------
@@ -312,10 +407,45 @@ def save_state(path, state: MPS, *, model_text: str = "", overrides: Mapping[str
 
 
 def _text(attrs, name) -> str:
-    value = attrs[name]
-    if isinstance(value, bytes):
-        return value.decode("utf-8")
-    return str(value)
+    return _attribute_text(attrs, name)
+
+
+def _json_attribute(attrs, name: str, kinds: tuple, allow_empty: bool = False):
+    text = _text(attrs, name)
+    if allow_empty and not text:
+        return None
+    value = json.loads(text)
+    if not isinstance(value, kinds) or isinstance(value, bool):
+        raise ValueError(f"attribute {name} holds {type(value).__name__}, the layout has "
+                         f"{' or '.join(k.__name__ for k in kinds)}")
+    return value
+
+
+def check_rng_state(state) -> dict:
+    """Validate a stored ``bit_generator.state`` by loading it into a fresh generator.
+
+    Raises
+    ------
+    ValueError
+        If it names an unknown bit generator or numpy refuses the state.
+    """
+    if not isinstance(state, dict) or state.get("bit_generator") not in _BIT_GENERATORS:
+        name = state.get("bit_generator") if isinstance(state, dict) else state
+        raise ValueError(f"random-generator state names {name!r}, not one of {', '.join(_BIT_GENERATORS)}")
+    bitgen = getattr(np.random, state["bit_generator"])()
+    try:
+        bitgen.state = state
+    except (TypeError, ValueError, KeyError, OverflowError) as err:
+        raise ValueError(f"random-generator state is malformed ({type(err).__name__}: {err})") from None
+    return state
+
+
+def damaged(path, detail: str) -> StateFileError:
+    """The one-line error for a state file that does not fit the layout."""
+    return StateFileError(
+        f"state file {path} is damaged or incomplete: {' '.join(str(detail).split())}; rerun or restore it "
+        "from the last good copy"
+    )
 
 
 def load_state(path) -> SavedState:
@@ -347,26 +477,35 @@ def load_state(path) -> SavedState:
                 f"'{FORMAT_NAME}'); give a state file written by 'netprobe run'"
             )
         version = f.attrs.get("format_version")
-        if version is None or int(version) not in _READABLE_VERSIONS:
-            writer = _text(f.attrs, "package_version") if "package_version" in f.attrs else "unknown"
+        try:
+            version = int(version)
+        except (TypeError, ValueError):
+            version = None if version is None else str(version)
+        if version not in _READABLE_VERSIONS:
+            writer = f.attrs.get("package_version", "unknown")
+            writer = writer.decode(errors="replace") if isinstance(writer, bytes) else str(writer)
             raise StateFileError(
                 f"state file {path} has format version {version}, but netprobe {__version__} reads "
                 f"version(s) {', '.join(map(str, _READABLE_VERSIONS))}; use the netprobe version that "
                 f"wrote it (package_version {writer})"
             )
         try:
+            if not isinstance(f.get("mps"), h5py.Group):
+                raise ValueError("the group /mps is missing")
             state = read_mps(f["mps"])
-            rng_text = _text(f.attrs, "rng_state")
+            kind = _text(f.attrs, "kind")
+            if kind not in ("state", "checkpoint"):
+                raise ValueError(f"kind {kind!r} is neither 'state' nor 'checkpoint'")
+            seed = _json_attribute(f.attrs, "seed", (int, type(None)))
+            rng_state = _json_attribute(f.attrs, "rng_state", (dict,), allow_empty=True)
+            if rng_state is not None:
+                check_rng_state(rng_state)
             return SavedState(
-                path=path, kind=_text(f.attrs, "kind"), state=state, model_text=_text(f.attrs, "model_text"),
-                overrides=dict(json.loads(_text(f.attrs, "overrides"))),
-                seed=json.loads(_text(f.attrs, "seed")), info=dict(json.loads(_text(f.attrs, "info"))),
-                rng_state=json.loads(rng_text) if rng_text else None,
+                path=path, kind=kind, state=state, model_text=_text(f.attrs, "model_text"),
+                overrides=_json_attribute(f.attrs, "overrides", (dict,)), seed=seed,
+                info=_json_attribute(f.attrs, "info", (dict,)), rng_state=rng_state,
                 package_version=_text(f.attrs, "package_version"), format_version=int(version),
                 created=_text(f.attrs, "created"),
             )
-        except (KeyError, ValueError, TypeError, NetprobeError) as err:
-            raise StateFileError(
-                f"state file {path} is damaged or incomplete ({' '.join(str(err).split())}); rerun or "
-                "restore it from the last good copy"
-            ) from None
+        except (KeyError, ValueError, TypeError, IndexError, OSError, RecursionError, NetprobeError) as err:
+            raise damaged(path, err) from None

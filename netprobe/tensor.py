@@ -55,7 +55,6 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.linalg
 
-from netprobe.errors import NetprobeError, SectorError
 
 __all__ = [
     "ChargeRule",
@@ -111,13 +110,13 @@ class ChargeRule:
     def __post_init__(self):
         raw = self.moduli if isinstance(self.moduli, Sequence) else None
         if raw is None or not all(isinstance(m, numbers.Integral) for m in raw):
-            raise NetprobeError(
+            raise TypeError(
                 f"ChargeRule: moduli must be a tuple of integers, got {self.moduli!r}; "
                 "use 0 for U(1), n >= 2 for Z_n, () for no charge"
             )
         moduli = tuple(int(m) for m in raw) or (1,)
         if any(m < 0 for m in moduli):
-            raise NetprobeError(
+            raise ValueError(
                 f"ChargeRule: moduli {moduli} contain a negative entry; use 0 for U(1) or n >= 2 for Z_n"
             )
         mods = np.array(moduli, dtype=np.int64)
@@ -205,24 +204,24 @@ class Leg:
         elif q.ndim == 1:
             q = q.reshape(-1, 1)
         if q.ndim != 2 or (q.size and q.dtype.kind not in "iu"):
-            raise NetprobeError(
+            raise ValueError(
                 f"Leg: charges must be integers of shape (n_sectors, k), got dtype {q.dtype} and shape "
                 f"{q.shape}"
             )
         if d.ndim != 1 or d.shape[0] != q.shape[0] or (d.size and d.dtype.kind not in "iu"):
-            raise NetprobeError(
+            raise ValueError(
                 f"Leg: dims must be {q.shape[0]} integers (one per sector), got {np.asarray(self.dims)!r}"
             )
         if d.size and d.min() < 1:
-            raise NetprobeError(
+            raise ValueError(
                 f"Leg: sector dimensions {d.tolist()} include one below 1; drop empty sectors"
             )
         if len(np.unique(q, axis=0)) != len(q):
-            raise NetprobeError(
+            raise ValueError(
                 f"Leg: charges {q.tolist()} repeat a sector; merge equal charges into one sector"
             )
         if self.direction not in (1, -1):
-            raise NetprobeError(
+            raise ValueError(
                 f"Leg: direction must be +1 (incoming) or -1 (outgoing), got {self.direction!r}"
             )
         self._fill(q, d, int(self.direction))
@@ -286,7 +285,7 @@ class Leg:
         if q.ndim == 1:
             q = q.reshape(-1, 1)
         if q.ndim != 2 or q.shape[1] != rule.k or (q.size and q.dtype.kind not in "iu"):
-            raise SectorError(
+            raise ValueError(
                 f"Leg.from_basis_charges: need integer charges of shape (d, {rule.k}) for rule {rule}, "
                 f"got shape {q.shape}"
             )
@@ -334,14 +333,14 @@ class Leg:
 
         Raises
         ------
-        SectorError
+        ValueError
             If the leg has no such sector.
         """
         q = np.atleast_1d(np.asarray(charge, dtype=np.int64))
         try:
             return self._index[tuple(q.tolist())]
         except KeyError:
-            raise SectorError(
+            raise ValueError(
                 f"Leg.sector_index: no sector with charge {q.tolist()}; the leg has {self.charges.tolist()}"
             ) from None
 
@@ -378,7 +377,7 @@ def _as_charge(charge, rule: ChargeRule, where: str) -> np.ndarray:
     if q.ndim == 0:
         q = q.reshape(1)
     if q.shape != (rule.k,) or q.dtype.kind not in "iu":
-        raise SectorError(
+        raise ValueError(
             f"{where}: charge {np.asarray(charge).tolist()!r} must be {rule.k} integer(s) for rule {rule}"
         )
     return rule.reduce(q)
@@ -386,18 +385,18 @@ def _as_charge(charge, rule: ChargeRule, where: str) -> np.ndarray:
 
 def _check_structure(legs, charge, rule, where: str) -> tuple[tuple[Leg, ...], tuple[int, ...]]:
     if not isinstance(rule, ChargeRule):
-        raise NetprobeError(f"{where}: rule must be a ChargeRule, got {type(rule).__name__}")
+        raise TypeError(f"{where}: rule must be a ChargeRule, got {type(rule).__name__}")
     legs = tuple(legs)
     for i, leg in enumerate(legs):
         if not isinstance(leg, Leg):
-            raise NetprobeError(f"{where}: leg {i} is a {type(leg).__name__}, not a Leg")
+            raise TypeError(f"{where}: leg {i} is a {type(leg).__name__}, not a Leg")
         if leg.k != rule.k:
-            raise SectorError(
+            raise ValueError(
                 f"{where}: leg {i} has {leg.k} charge component(s) but rule {rule} has {rule.k}; "
                 "build the legs for this rule"
             )
         if not np.array_equal(rule.reduce(leg.charges), leg.charges):
-            raise SectorError(
+            raise ValueError(
                 f"{where}: leg {i} has charges {leg.charges.tolist()} not reduced for rule {rule}; "
                 "use rule.reduce or Leg.from_basis_charges"
             )
@@ -408,7 +407,7 @@ def _check_structure(legs, charge, rule, where: str) -> tuple[tuple[Leg, ...], t
 def _check_dtype(dtype, where: str) -> np.dtype:
     dt = np.dtype(dtype)
     if dt not in (_REAL, _COMPLEX):
-        raise NetprobeError(f"{where}: dtype {dt} is not supported; use float64 or complex128")
+        raise ValueError(f"{where}: dtype {dt} is not supported; use float64 or complex128")
     return dt
 
 
@@ -418,7 +417,7 @@ def _result_dtype(*dtypes) -> np.dtype:
 
 def _normalize_axis(axis, ndim: int, where: str) -> int:
     if not isinstance(axis, numbers.Integral) or not -ndim <= axis < ndim:
-        raise NetprobeError(f"{where}: axis {axis!r} is out of range for a tensor with {ndim} legs")
+        raise ValueError(f"{where}: axis {axis!r} is out of range for a tensor with {ndim} legs")
     return int(axis) % ndim
 
 
@@ -427,7 +426,7 @@ def _normalize_axes(axes, ndim: int, where: str) -> tuple[int, ...]:
         axes = (axes,)
     out = tuple(_normalize_axis(a, ndim, where) for a in axes)
     if len(set(out)) != len(out):
-        raise NetprobeError(f"{where}: axes {tuple(axes)} repeat a leg; name each leg once")
+        raise ValueError(f"{where}: axes {tuple(axes)} repeat a leg; name each leg once")
     return out
 
 
@@ -435,7 +434,7 @@ def _partition_axes(ndim, left_axes, right_axes, where) -> tuple[tuple[int, ...]
     left = _normalize_axes(left_axes, ndim, where)
     right = _normalize_axes(right_axes, ndim, where)
     if sorted(left + right) != list(range(ndim)):
-        raise NetprobeError(
+        raise ValueError(
             f"{where}: left_axes {left} and right_axes {right} must split all {ndim} legs between them, "
             "each leg exactly once"
         )
@@ -444,7 +443,7 @@ def _partition_axes(ndim, left_axes, right_axes, where) -> tuple[tuple[int, ...]
 
 def _check_tensor(t, where: str) -> None:
     if not isinstance(t, BlockTensor):
-        raise NetprobeError(f"{where}: expected a BlockTensor, got {type(t).__name__}")
+        raise TypeError(f"{where}: expected a BlockTensor, got {type(t).__name__}")
 
 
 def _combos(legs, rule):
@@ -592,13 +591,13 @@ def _contract_plan(legs_a, qa, legs_b, qb, rule, axes_a, axes_b) -> _ContractPla
     for ia, ib in zip(axes_a, axes_b):
         la, lb = legs_a[ia], legs_b[ib]
         if la.direction == lb.direction:
-            raise SectorError(
+            raise ValueError(
                 f"contract: leg {ia} of the first tensor and leg {ib} of the second both have direction "
                 f"{la.direction:+d}; a contracted pair needs one incoming and one outgoing leg "
                 "(conjugate one tensor or build the leg with Leg.dual())"
             )
         if not la.same_sectors(lb):
-            raise SectorError(
+            raise ValueError(
                 f"contract: leg {ia} of the first tensor ({la._describe()}) and leg {ib} of the second "
                 f"({lb._describe()}) differ; contracted legs need the same charges and dimensions in the "
                 "same order"
@@ -731,9 +730,9 @@ class BlockTensor:
 
     Raises
     ------
-    SectorError
+    ValueError
         If a block key breaks charge conservation or the legs do not fit the rule.
-    NetprobeError
+    ValueError
         If a block has the wrong shape or an unsupported dtype.
     """
 
@@ -751,33 +750,33 @@ class BlockTensor:
         checked = {}
         for key, blk in blocks.items():
             if not isinstance(key, tuple) or len(key) != len(legs):
-                raise NetprobeError(
+                raise ValueError(
                     f"BlockTensor: block key {key!r} must be a tuple of {len(legs)} sector indices"
                 )
             in_range = (
                 isinstance(s, numbers.Integral) and 0 <= s < leg.n_sectors for s, leg in zip(key, legs)
             )
             if not all(in_range):
-                raise NetprobeError(
+                raise ValueError(
                     f"BlockTensor: block key {key} has a sector index out of range for sector counts "
                     f"{[leg.n_sectors for leg in legs]}"
                 )
             key = tuple(int(s) for s in key)
             fused = rule.reduce(sum((leg.direction * leg.charges[s] for s, leg in zip(key, legs)), q * 0))
             if not np.array_equal(fused, q):
-                raise SectorError(
+                raise ValueError(
                     f"BlockTensor: block {key} has fused charge {fused.tolist()} but the tensor's charge is "
                     f"{q.tolist()}; drop the block or change the charge"
                 )
             arr = np.asarray(blk)
             if arr.dtype.kind == "c" and dtype.kind != "c":
-                raise NetprobeError(
+                raise ValueError(
                     f"BlockTensor: block {key} is complex but dtype is {dtype}; use complex128"
                 )
             arr = arr.astype(dtype, copy=False)
             want = tuple(int(leg.dims[s]) for s, leg in zip(key, legs))
             if arr.shape != want:
-                raise NetprobeError(f"BlockTensor: block {key} has shape {arr.shape}, the legs need {want}")
+                raise ValueError(f"BlockTensor: block {key} has shape {arr.shape}, the legs need {want}")
             checked[key] = arr
         self._set(legs, qkey, rule, checked, dtype)
 
@@ -853,19 +852,19 @@ class BlockTensor:
 
         Raises
         ------
-        SectorError
+        ValueError
             If an entry outside the allowed blocks exceeds ``atol`` (the array does not conserve the
             charge, or legs, directions or total charge are wrong).
         """
         legs, qkey = _check_structure(legs, charge, rule, "BlockTensor.from_dense")
         arr = np.asarray(array)
         if arr.dtype.kind not in "biufc":
-            raise NetprobeError(f"BlockTensor.from_dense: array has dtype {arr.dtype}; pass numbers")
+            raise ValueError(f"BlockTensor.from_dense: array has dtype {arr.dtype}; pass numbers")
         dtype = _result_dtype(arr.dtype)
         arr = arr.astype(dtype, copy=False)
         want = tuple(leg.dim for leg in legs)
         if arr.shape != want:
-            raise NetprobeError(
+            raise ValueError(
                 f"BlockTensor.from_dense: array has shape {arr.shape} but the legs have dimensions {want}"
             )
         rest = arr.copy()
@@ -878,7 +877,7 @@ class BlockTensor:
             worst = np.abs(rest)
             pos = np.unravel_index(np.argmax(worst), worst.shape)
             if worst[pos] > atol:
-                raise SectorError(
+                raise ValueError(
                     f"BlockTensor.from_dense: entry {tuple(int(i) for i in pos)} of size {worst[pos]:.3g} "
                     f"lies outside the blocks allowed by charge {list(qkey)}; check the leg charges, "
                     "directions and the total charge"
@@ -927,7 +926,7 @@ class BlockTensor:
     def item(self):
         """Return the value of a tensor without legs (e.g. a full contraction)."""
         if self.legs:
-            raise NetprobeError(
+            raise ValueError(
                 f"BlockTensor.item: the tensor has {self.ndim} legs; only a 0-leg tensor is a number"
             )
         blk = self.blocks.get(())
@@ -949,14 +948,14 @@ class BlockTensor:
 
         Raises
         ------
-        NetprobeError
+        ValueError
             If a complex-to-real conversion would drop an imaginary part above ``imag_atol``.
         """
         dtype = _check_dtype(dtype, "BlockTensor.astype")
         if self.dtype.kind == "c" and dtype.kind != "c":
             worst = max((float(np.abs(b.imag).max()) for b in self.blocks.values() if b.size), default=0.0)
             if worst > imag_atol:
-                raise NetprobeError(
+                raise ValueError(
                     f"BlockTensor.astype: imaginary parts up to {worst:.3g} exceed imag_atol={imag_atol:g}; "
                     "keep complex128 or raise imag_atol"
                 )
@@ -989,7 +988,7 @@ class BlockTensor:
             perm = tuple(range(self.ndim))[::-1]
         perm = _normalize_axes(perm, self.ndim, "BlockTensor.transpose")
         if len(perm) != self.ndim:
-            raise NetprobeError(f"BlockTensor.transpose: perm {perm} must list all {self.ndim} legs once")
+            raise ValueError(f"BlockTensor.transpose: perm {perm} must list all {self.ndim} legs once")
         legs = tuple(self.legs[p] for p in perm)
         blocks = {tuple(k[p] for p in perm): b.transpose(perm) for k, b in self.blocks.items()}
         return BlockTensor._new(legs, self._qkey, self.rule, blocks, self.dtype)
@@ -1005,7 +1004,7 @@ class BlockTensor:
 
         Raises
         ------
-        SectorError
+        ValueError
             If the legs or rules differ.
         """
         self._check_same(other, "inner")
@@ -1018,7 +1017,7 @@ class BlockTensor:
     def _check_same(self, other, where):
         _check_tensor(other, f"BlockTensor.{where}")
         if self.rule != other.rule or self.legs != other.legs:
-            raise SectorError(
+            raise ValueError(
                 f"BlockTensor.{where}: the tensors have different legs or charge rules; they need the same "
                 "legs (charges, dimensions, directions) under one rule"
             )
@@ -1026,7 +1025,7 @@ class BlockTensor:
     def _combine(self, other, sign, where):
         self._check_same(other, where)
         if self._qkey != other._qkey:
-            raise SectorError(
+            raise ValueError(
                 f"BlockTensor.{where}: total charges {list(self._qkey)} and {list(other._qkey)} differ; "
                 "only tensors of equal charge can be added"
             )
@@ -1104,7 +1103,7 @@ def contract(a: BlockTensor, b: BlockTensor, axes=2) -> BlockTensor:
 
     Raises
     ------
-    SectorError
+    ValueError
         If a contracted pair has equal directions or different sectors, or the rules differ.
 
     Notes
@@ -1115,7 +1114,7 @@ def contract(a: BlockTensor, b: BlockTensor, axes=2) -> BlockTensor:
     _check_tensor(a, "contract")
     _check_tensor(b, "contract")
     if a.rule != b.rule:
-        raise SectorError(
+        raise ValueError(
             f"contract: charge rules differ ({a.rule} and {b.rule}); build both tensors with one rule"
         )
     axes_a, axes_b = _axes_pair(axes, a.ndim, b.ndim)
@@ -1141,16 +1140,16 @@ def contract(a: BlockTensor, b: BlockTensor, axes=2) -> BlockTensor:
 def _axes_pair(axes, nda: int, ndb: int) -> tuple[tuple[int, ...], tuple[int, ...]]:
     if isinstance(axes, numbers.Integral):
         if not 0 <= axes <= min(nda, ndb):
-            raise NetprobeError(f"contract: axes={axes} but the tensors have {nda} and {ndb} legs")
+            raise ValueError(f"contract: axes={axes} but the tensors have {nda} and {ndb} legs")
         return tuple(range(nda - axes, nda)), tuple(range(axes))
     try:
         first, second = axes
     except (TypeError, ValueError):
-        raise NetprobeError(f"contract: axes must be an int or a pair of leg lists, got {axes!r}") from None
+        raise TypeError(f"contract: axes must be an int or a pair of leg lists, got {axes!r}") from None
     axes_a = _normalize_axes(first, nda, "contract (legs of the first tensor)")
     axes_b = _normalize_axes(second, ndb, "contract (legs of the second tensor)")
     if len(axes_a) != len(axes_b):
-        raise NetprobeError(
+        raise ValueError(
             f"contract: {len(axes_a)} legs of the first tensor against {len(axes_b)} of the second"
         )
     return axes_a, axes_b
@@ -1175,7 +1174,7 @@ def trace(t: BlockTensor, axis1: int, axis2: int) -> BlockTensor:
     a2 = _normalize_axis(axis2, t.ndim, "trace")
     l1, l2 = t.legs[a1], t.legs[a2]
     if a1 == a2 or l1.direction == l2.direction or not l1.same_sectors(l2):
-        raise SectorError(
+        raise ValueError(
             f"trace: legs {a1} and {a2} must be two different legs with the same sectors and opposite "
             "directions"
         )
@@ -1213,7 +1212,7 @@ def diag_multiply(t: BlockTensor, axis: int, values) -> BlockTensor:
     ax = _normalize_axis(axis, t.ndim, "diag_multiply")
     by_sector = values.by_sector if isinstance(values, Spectrum) else values
     if not isinstance(by_sector, Mapping):
-        raise NetprobeError("diag_multiply: values must be a Spectrum or a dict {sector index: 1-D array}")
+        raise TypeError("diag_multiply: values must be a Spectrum or a dict {sector index: 1-D array}")
     tail = (1,) * (t.ndim - ax - 1)
     vecs = {int(s): np.asarray(v).reshape((-1,) + tail) for s, v in by_sector.items()}
     dtype = _result_dtype(t.dtype, *(v.dtype for v in vecs.values()))
@@ -1221,7 +1220,7 @@ def diag_multiply(t: BlockTensor, axis: int, values) -> BlockTensor:
     for key, blk in t.blocks.items():
         vec = vecs.get(key[ax])
         if vec is None or vec.shape[0] != blk.shape[ax]:
-            raise NetprobeError(
+            raise ValueError(
                 f"diag_multiply: sector {key[ax]} of leg {ax} needs {blk.shape[ax]} values, got "
                 f"{'none' if vec is None else vec.shape[0]}"
             )
@@ -1284,12 +1283,12 @@ class BlockLayout:
 
         Raises
         ------
-        SectorError
+        ValueError
             If ``t`` has other legs or another total charge than the layout.
         """
         _check_tensor(t, "BlockLayout.pack")
         if t.legs != self.legs or t._qkey != self._qkey:
-            raise SectorError(
+            raise ValueError(
                 "BlockLayout.pack: the tensor's legs or total charge differ from the layout's; build the "
                 "layout from this tensor's legs"
             )
@@ -1309,12 +1308,12 @@ class BlockLayout:
 
         Raises
         ------
-        NetprobeError
+        ValueError
             If ``vector`` is not 1-D of length :attr:`size`.
         """
         vec = np.asarray(vector)
         if vec.ndim != 1 or vec.shape[0] != self.size:
-            raise NetprobeError(
+            raise ValueError(
                 f"BlockLayout.unpack: need a 1-D array of length {self.size}, got shape {vec.shape}"
             )
         dtype = _result_dtype(vec.dtype)
@@ -1396,7 +1395,7 @@ def _matricize(t, left_axes, right_axes, where, fill_missing=False):
         if mat is None:
             continue
         if not np.isfinite(mat).all():
-            raise NetprobeError(f"{where}: the tensor has NaN or infinite entries")
+            raise ValueError(f"{where}: the tensor has NaN or infinite entries")
         mats.append((sp, mat))
     return left, right, mats
 
@@ -1500,11 +1499,11 @@ def svd(
     Sectors in which ``t`` stores no block are left out of the new bond.
     """
     if max_dim is not None and (not isinstance(max_dim, numbers.Integral) or max_dim < 1):
-        raise NetprobeError(f"svd: max_dim={max_dim!r} must be a positive integer or None")
+        raise ValueError(f"svd: max_dim={max_dim!r} must be a positive integer or None")
     if not 0.0 <= cutoff < 1.0:
-        raise NetprobeError(f"svd: cutoff={cutoff!r} must lie in [0, 1)")
+        raise ValueError(f"svd: cutoff={cutoff!r} must lie in [0, 1)")
     if not 0.0 <= max_discarded < 1.0:
-        raise NetprobeError(f"svd: max_discarded={max_discarded!r} must lie in [0, 1)")
+        raise ValueError(f"svd: max_discarded={max_discarded!r} must lie in [0, 1)")
     left, right, mats = _matricize(t, left_axes, right_axes, "svd")
     factors = [_svd_kernel(mat) for _, mat in mats]
     s_all = np.concatenate([f[1] for f in factors]) if factors else np.zeros(0)
@@ -1622,12 +1621,12 @@ def eigh(t: BlockTensor, left_axes, right_axes) -> tuple[Spectrum, BlockTensor]:
     left, right = _partition_axes(t.ndim, left_axes, right_axes, "eigh")
     square = len(left) == len(right) and all(t.legs[j] == t.legs[i].dual() for i, j in zip(left, right))
     if not square:
-        raise SectorError(
+        raise ValueError(
             "eigh: each leg in right_axes must be the dual of the matching leg in left_axes (same sectors, "
             "opposite direction); a Hermitian tensor maps a space to itself"
         )
     if any(t._qkey):
-        raise SectorError(
+        raise ValueError(
             f"eigh: the tensor has charge {list(t._qkey)}; a Hermitian tensor must have charge 0"
         )
     left, right, mats = _matricize(t, left, right, "eigh", fill_missing=True)

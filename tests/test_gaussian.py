@@ -20,13 +20,11 @@ import pytest
 from conftest import dense_from_products, kron_all, tol
 
 from netprobe import exact
-from netprobe.errors import LatticeError, NetprobeError
+from netprobe.errors import GaussianStateError, LatticeError, NetprobeError, NotQuadraticError
 from netprobe.gaussian import (
     FreeFermionState,
     GaussianOptions,
-    GaussianStateError,
     MajoranaState,
-    NotQuadraticError,
     QuadraticForm,
     fermion_modular_matrix,
     gaussian_state,

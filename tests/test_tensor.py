@@ -10,7 +10,7 @@ import itertools
 import numpy as np
 import pytest
 
-from netprobe.errors import NetprobeError, SectorError
+from netprobe.errors import NetprobeError
 from netprobe.tensor import (
     BlockTensor,
     ChargeRule,
@@ -124,24 +124,24 @@ def test_charge_rule_reduces_cyclic_components_only():
 
 
 def test_charge_rule_rejects_bad_moduli():
-    with pytest.raises(NetprobeError, match="negative entry"):
+    with pytest.raises(ValueError, match="negative entry"):
         ChargeRule((0, -2))
-    with pytest.raises(NetprobeError, match="tuple of integers"):
+    with pytest.raises(TypeError, match="tuple of integers"):
         ChargeRule((0.5,))
 
 
 def test_leg_validation():
-    with pytest.raises(NetprobeError, match="repeat a sector"):
+    with pytest.raises(ValueError, match="repeat a sector"):
         Leg([0, 1, 0], [1, 1, 1])
-    with pytest.raises(NetprobeError, match="direction must be"):
+    with pytest.raises(ValueError, match="direction must be"):
         Leg([0, 1], [1, 1], 0)
-    with pytest.raises(NetprobeError, match="below 1"):
+    with pytest.raises(ValueError, match="below 1"):
         Leg([0, 1], [1, 0])
     leg = Leg([[0, 1], [1, 0]], [2, 3], -1)
     assert leg.dim == 5 and leg.offsets.tolist() == [0, 2, 5]
     assert leg.dual().direction == 1 and leg.dual().dual() == leg and leg != leg.dual()
     assert leg.sector_index([1, 0]) == 1
-    with pytest.raises(SectorError, match="no sector with charge"):
+    with pytest.raises(ValueError, match="no sector with charge"):
         leg.sector_index([2, 2])
 
 
@@ -159,7 +159,7 @@ def test_from_basis_charges_blocks_a_spin_one_raising_operator():
     sminus = BlockTensor.from_dense(blocked.T, (leg, leg.dual()), -1, rule)
     prod = contract(op, sminus, ([1], [0]))
     np.testing.assert_allclose(prod.to_dense(), blocked @ blocked.T, atol=tol(2.0, 3))
-    with pytest.raises(SectorError, match="outside the blocks allowed by charge"):
+    with pytest.raises(ValueError, match="outside the blocks allowed by charge"):
         BlockTensor.from_dense(blocked, (leg, leg.dual()), 0, rule)
     ident = BlockTensor.eye(leg, rule)
     np.testing.assert_array_equal(contract(ident, op, ([1], [0])).to_dense(), blocked)
@@ -221,7 +221,7 @@ def test_elementwise_operations_match_dense(name, dtype):
 def test_astype_refuses_to_drop_imaginary_parts():
     rule = ChargeRule.u1()
     t = random_tensor(rule, np.random.default_rng(0), 2, np.complex128)
-    with pytest.raises(NetprobeError, match="exceed imag_atol"):
+    with pytest.raises(ValueError, match="exceed imag_atol"):
         t.astype(np.float64)
     real_valued = BlockTensor.from_dense(t.to_dense().real.astype(np.complex128), t.legs, t.charge, rule)
     converted = real_valued.astype(np.float64)
@@ -232,23 +232,23 @@ def test_astype_refuses_to_drop_imaginary_parts():
 def test_constructor_errors():
     rule = ChargeRule.u1()
     legs = (Leg([0, 1], [1, 2], 1), Leg([0, 1], [2, 2], -1))
-    with pytest.raises(NetprobeError, match="has shape"):
+    with pytest.raises(ValueError, match="has shape"):
         BlockTensor(legs, 0, rule, {(1, 1): np.zeros((2, 3))})
-    with pytest.raises(SectorError, match="fused charge"):
+    with pytest.raises(ValueError, match="fused charge"):
         BlockTensor(legs, 0, rule, {(0, 1): np.zeros((1, 2))})
-    with pytest.raises(SectorError, match="not reduced"):
+    with pytest.raises(ValueError, match="not reduced"):
         BlockTensor.zeros([Leg([0, 3], [1, 1])], None, ChargeRule((2,)))
-    with pytest.raises(SectorError, match="charge component"):
+    with pytest.raises(ValueError, match="charge component"):
         BlockTensor.zeros([Leg([[0, 0]], [1])], None, rule)
-    with pytest.raises(NetprobeError, match="legs have dimensions"):
+    with pytest.raises(ValueError, match="legs have dimensions"):
         BlockTensor.from_dense(np.zeros((3, 3)), legs, 0, rule)
-    with pytest.raises(NetprobeError, match="float64 or complex128"):
+    with pytest.raises(ValueError, match="float64 or complex128"):
         BlockTensor.zeros(legs, 0, rule, dtype=np.float32)
     t = BlockTensor(legs, 0, rule, {(1, 1): np.ones((2, 2))})
     assert t.n_blocks == 1 and t.to_dense()[1:, 2:].sum() == 4
-    with pytest.raises(SectorError, match="different legs"):
+    with pytest.raises(ValueError, match="different legs"):
         t + BlockTensor.zeros(legs[::-1], 0, rule)
-    with pytest.raises(SectorError, match="total charges"):
+    with pytest.raises(ValueError, match="total charges"):
         t + BlockTensor.zeros(legs, 1, rule)
 
 
@@ -314,17 +314,17 @@ def test_contract_rejects_mismatched_legs():
     leg = Leg([0, 1], [2, 1], 1)
     a = random_tensor(rule, rng, 2, np.float64, fixed={1: leg})
     same_direction = random_tensor(rule, rng, 2, np.float64, fixed={0: leg})
-    with pytest.raises(SectorError, match="both have direction"):
+    with pytest.raises(ValueError, match="both have direction"):
         contract(a, same_direction, ([1], [0]))
     other = random_tensor(rule, rng, 2, np.float64, fixed={0: Leg([0, 1], [1, 2], -1)})
-    with pytest.raises(SectorError, match="contracted legs need the same charges"):
+    with pytest.raises(ValueError, match="contracted legs need the same charges"):
         contract(a, other, ([1], [0]))
     z2 = BlockTensor.zeros([leg.dual()], None, ChargeRule((2,)))
-    with pytest.raises(SectorError, match="charge rules differ"):
+    with pytest.raises(ValueError, match="charge rules differ"):
         contract(a, z2, ([1], [0]))
-    with pytest.raises(NetprobeError, match="legs of the first tensor against"):
+    with pytest.raises(ValueError, match="legs of the first tensor against"):
         contract(a, other, ([0, 1], [0]))
-    with pytest.raises(NetprobeError, match="out of range"):
+    with pytest.raises(ValueError, match="out of range"):
         contract(a, other, ([5], [0]))
 
 
@@ -351,7 +351,7 @@ def test_trace_matches_numpy():
     ref = np.trace(t.to_dense(), axis1=0, axis2=2)
     np.testing.assert_allclose(trace(t, 0, 2).to_dense(), ref, atol=tol(t.norm(), 5))
     assert trace(BlockTensor.eye(leg, rule), 0, 1).item() == leg.dim
-    with pytest.raises(SectorError, match="opposite directions"):
+    with pytest.raises(ValueError, match="opposite directions"):
         trace(t, 0, 1)
 
 
@@ -515,21 +515,21 @@ def test_factorisation_errors():
     rule = ChargeRule.u1()
     rng = np.random.default_rng(2)
     t = random_tensor(rule, rng, 3, np.float64)
-    with pytest.raises(NetprobeError, match="split all 3 legs"):
+    with pytest.raises(ValueError, match="split all 3 legs"):
         svd(t, [0], [1])
-    with pytest.raises(NetprobeError, match="repeat a leg"):
+    with pytest.raises(ValueError, match="repeat a leg"):
         qr(t, [0, 0], [1, 2])
-    with pytest.raises(NetprobeError, match="max_dim"):
+    with pytest.raises(ValueError, match="max_dim"):
         svd(t, [0], [1, 2], max_dim=0)
-    with pytest.raises(NetprobeError, match="cutoff"):
+    with pytest.raises(ValueError, match="cutoff"):
         svd(t, [0], [1, 2], cutoff=-1.0)
-    with pytest.raises(SectorError, match="must be the dual"):
+    with pytest.raises(ValueError, match="must be the dual"):
         eigh(t, [0], [1, 2])
     leg = Leg([0, 1], [2, 2], 1)
     charged = BlockTensor.random((leg, leg.dual()), 1, rule, rng=rng)
-    with pytest.raises(SectorError, match="must have charge 0"):
+    with pytest.raises(ValueError, match="must have charge 0"):
         eigh(charged, [0], [1])
-    with pytest.raises(NetprobeError, match="needs 2 values"):
+    with pytest.raises(ValueError, match="needs 2 values"):
         diag_multiply(charged, 0, {0: np.ones(2), 1: np.ones(3)})
 
 
@@ -550,3 +550,14 @@ def test_zero_and_empty_tensors():
     w, _ = eigh(BlockTensor((a, a.dual()), None, rule), [0], [1])
     assert len(w) == a.dim and not np.any(w.values)
     np.testing.assert_array_equal((np.float64(2.0) * full).to_dense(), 2.0 * full.to_dense())
+
+
+def test_internal_misuse_is_not_a_user_error():
+    # issue #12: the tensor layer's errors are programming errors (ValueError/TypeError), never the
+    # user-error class that the command line would report as the user's mistake
+    with pytest.raises(ValueError, match="repeat a sector") as info:
+        Leg([0, 1, 0], [1, 1, 1])
+    assert not isinstance(info.value, NetprobeError)
+    with pytest.raises(TypeError, match="expected a BlockTensor") as info:
+        contract("not a tensor", "not a tensor", 0)
+    assert not isinstance(info.value, NetprobeError)

@@ -27,7 +27,7 @@ from netprobe.dmrg.progress import ProgressWriter
 from netprobe.errors import NetprobeError
 from netprobe.mpo import build_mpo
 from netprobe.mps import MPS, BlockMPO, SiteBasis, energy_variance, random_state
-from netprobe.store import load_state, remove_stale_temporaries, save_state
+from netprobe.store import damaged, load_state, remove_stale_temporaries, save_state
 
 __all__ = ["LadderSettings", "StageResult", "Extrapolation", "LadderResult", "extrapolate_energy",
            "run_ladder", "resume_ladder", "CHECKPOINT_NAME", "stage_file_name"]
@@ -302,6 +302,48 @@ def _restore_rng(state: dict | None, seed) -> np.random.Generator:
     return np.random.Generator(bitgen)
 
 
+def _checked_stage(entry) -> dict:
+    """A stored stage entry with the types :class:`StageResult` needs (else ValueError)."""
+    if not isinstance(entry, dict):
+        raise ValueError(f"stage entry {entry!r} is not an object")
+    kinds = {"bond_dimension": (int,), "energy": (int, float), "discarded_weight": (int, float),
+             "sweeps": (int,), "seconds": (int, float), "converged": (bool,), "message": (str,),
+             "variance": (int, float, type(None)), "state_file": (str, type(None))}
+    for key, allowed in kinds.items():
+        value = entry.get(key, ...)
+        if value is ... or not isinstance(value, allowed) or (isinstance(value, bool) and bool not in allowed):
+            shown = "missing" if value is ... else repr(value)
+            raise ValueError(f"stage entry {key} = {shown} has the wrong type")
+    return entry
+
+
+def _read_checkpoint(saved, seed, rungs: int):
+    """Generator, finished stages, current stage, sweep history and time of a checkpoint.
+
+    Raises
+    ------
+    StateFileError
+        If an entry does not fit the layout (the message names the file and the entry).
+    """
+    info = saved.info
+    try:
+        rng = _restore_rng(saved.rng_state, seed)
+        stages = [StageResult.from_dict(_checked_stage(s)) for s in info["stages"]]
+        first = info["stage"]
+        if isinstance(first, bool) or not isinstance(first, int):
+            raise ValueError(f"stage {first!r} is not a whole number")
+        if not 0 <= first <= rungs or len(stages) != first:
+            raise ValueError(
+                f"stage {first} with {len(stages)} finished stage(s) does not fit a ladder of {rungs}")
+        engine = info.get("engine") or {}
+        history = [SweepRecord.from_dict(r) for r in engine.get("history", [])]
+        elapsed = float(engine.get("elapsed", 0.0))
+    except (KeyError, TypeError, ValueError, AttributeError, OverflowError) as err:
+        detail = f"missing entry {err}" if isinstance(err, KeyError) else str(err)
+        raise damaged(saved.path, f"its stage entries are malformed ({detail})") from None
+    return rng, stages, first, history, elapsed
+
+
 def _describe_mismatch(saved, model_text, overrides, settings, seed) -> list[str]:
     diffs = []
     if saved.model_text != model_text:
@@ -390,7 +432,10 @@ def run_ladder(model, settings: LadderSettings, *, overrides=None, seed: int | N
         ckpt = folder / CHECKPOINT_NAME
         if ckpt.exists():
             saved = load_state(ckpt)
-            diffs = _describe_mismatch(saved, model_text, overrides, settings, seed)
+            try:
+                diffs = _describe_mismatch(saved, model_text, overrides, settings, seed)
+            except (AttributeError, TypeError, ValueError) as err:
+                raise damaged(ckpt, f"its ladder entry is malformed ({err})") from None
             if diffs:
                 raise NetprobeError(
                     f"run_ladder: the checkpoint {ckpt} was written for a different run "
@@ -400,12 +445,7 @@ def run_ladder(model, settings: LadderSettings, *, overrides=None, seed: int | N
         else:
             writer.line(f"ladder | no checkpoint in {folder}; starting from the beginning")
     if saved is not None:
-        info = saved.info
-        rng = _restore_rng(saved.rng_state, seed)
-        stages = [StageResult.from_dict(s) for s in info["stages"]]
-        first = int(info["stage"])
-        history = [SweepRecord.from_dict(r) for r in (info.get("engine") or {}).get("history", [])]
-        elapsed = float((info.get("engine") or {}).get("elapsed", 0.0))
+        rng, stages, first, history, elapsed = _read_checkpoint(saved, seed, len(chis))
         state = saved.state
         writer.line(f"ladder | resuming from {folder / CHECKPOINT_NAME}: {len(stages)} stage(s) done, "
                     f"{len(history)} sweep(s) into stage {first + 1}")

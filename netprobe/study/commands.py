@@ -24,7 +24,9 @@ import signal
 import sys
 from pathlib import Path
 
-from netprobe.study.description import StudyDescription, StudyError, load_study
+from netprobe.errors import StudyError
+from netprobe.options import folder_path, scheduler_address, unwritable
+from netprobe.study.description import StudyDescription, load_study
 
 __all__ = ["add_study_parser", "add_report_parser", "cmd_study", "cmd_report", "default_folder"]
 
@@ -53,6 +55,7 @@ def add_study_parser(subparsers) -> None:
     p.add_argument("spec", metavar="SPEC", help="study file (path) or the name of a bundled study")
     p.add_argument(
         "--out",
+        type=folder_path,
         metavar="DIR",
         help="study folder for the ledger, states and reports (default: ./<study name>-study)",
     )
@@ -64,6 +67,7 @@ def add_study_parser(subparsers) -> None:
     )
     p.add_argument(
         "--scheduler",
+        type=scheduler_address,
         metavar="ADDRESS",
         help="run on a dask.distributed scheduler, e.g. tcp://10.0.0.5:8786 (the workers must see DIR)",
     )
@@ -168,6 +172,9 @@ def cmd_study(args) -> int:
     folder = Path(args.out) if args.out else default_folder(description)
     if args.status:
         return _status(description, folder, args.json)
+    problem = unwritable(str(folder))
+    if problem is not None:
+        raise StudyError(f"--out {problem}")
     if args.workers is not None and args.scheduler:
         raise StudyError(
             "give --workers (local processes) or --scheduler (Dask), not both; Dask decides its workers"

@@ -54,7 +54,6 @@ import hashlib
 import json
 import math
 import numbers
-import tomllib
 from dataclasses import asdict, dataclass, field, fields
 from pathlib import Path
 from types import MappingProxyType
@@ -62,9 +61,11 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from netprobe.errors import NetprobeError, SpecError
-from netprobe.spec import (LATTICE_KEYS, ModelSpec, bundled_files, find_model, find_toml, models_directory,
-                           parse_spec)
+from netprobe.errors import NetprobeError, SpecError, StudyError
+from netprobe.limits import check_dmrg_model, check_exact_model, check_grid_size
+from netprobe.spec import (LATTICE_KEYS, ModelSpec, _resolve_parameters, bundled_files, check_size, find_model,
+                           find_toml, models_directory, parse_spec)
+from netprobe.tomlio import parse_toml, read_text
 
 __all__ = [
     "ENGINES",
@@ -77,7 +78,6 @@ __all__ = [
     "ExecutorSettings",
     "VerdictSettings",
     "StudyDescription",
-    "StudyError",
     "studies_directory",
     "find_study",
     "list_studies",
@@ -85,10 +85,6 @@ __all__ = [
     "load_study",
     "parse_probe",
 ]
-
-
-class StudyError(NetprobeError):
-    """A study cannot run as asked (no ledger, a ledger of another study, an unreachable scheduler)."""
 
 
 #: Engines by name, with what each does with the ladder.
@@ -596,18 +592,30 @@ class StudyDescription:
         return replace(self, executor=replace(self.executor, **changes))
 
     def check(self) -> None:
-        """Build the model at the first point of every distinct lattice and carve the regions there.
+        """Check that every point can run: sizes first, then the model, engine and regions.
+
+        Every point's parameters are resolved and its model size estimated (nothing is built); at
+        the first point of every distinct lattice the model is built, the engine's memory is
+        estimated (the exact engine's sector, DMRG's state at the largest bond dimension) and the
+        regions are carved.
 
         Raises
         ------
         NetprobeError
-            The model's own error (a bad value, sector or size), an unknown operator of a
-            ``mean:OP`` probe, or a region that does not fit the lattice; prefixed with the study file.
+            The model's own error (a bad value, sector or size), a point beyond the memory budget,
+            an unknown operator of a ``mean:OP`` probe, or a region that does not fit the lattice;
+            prefixed with the study file and the point.
 
         """
         from netprobe.regions import parse_region
 
         where = _where(self.path)
+        spec = self.model_spec
+        for point in self.points:
+            try:
+                check_size(spec, _resolve_parameters(spec, self.overrides(point)))
+            except NetprobeError as err:
+                raise type(err)(f"{where}: at point {point.label}: {' '.join(str(err).split())}") from None
         seen = set()
         for point in self.points:
             key = self.lattice_key(point)
@@ -616,6 +624,7 @@ class StudyDescription:
             seen.add(key)
             try:
                 model = self.build_model(point)
+                self._check_engine(model)
                 for text in self.regions.values():
                     parse_region(text, model.lattice)
                 for probe in self.probes:
@@ -623,6 +632,13 @@ class StudyDescription:
                         _check_operator(model, probe, self.engine)
             except NetprobeError as err:
                 raise type(err)(f"{where}: at point {point.label}: {' '.join(str(err).split())}") from None
+
+    def _check_engine(self, model) -> None:
+        """Refuse an engine whose memory estimate for this model exceeds the budget."""
+        if self.engine == "exact":
+            check_exact_model(model, where="engine exact")
+        elif self.engine == "dmrg":
+            check_dmrg_model(model, max(self.ladder), where="engine dmrg")
 
     def __repr__(self) -> str:
         axes = (
@@ -703,6 +719,7 @@ def _axis(name: str, entry, where: str) -> GridAxis:
             raise SpecError(f"{where}: {what}: start and stop must be numbers")
         if isinstance(num, bool) or not isinstance(num, numbers.Integral) or num < 0:
             raise SpecError(f"{where}: {what}: num = {num!r} must be a whole number of points")
+        check_grid_size(int(num), where=f"{where}: {what}")
         if num == 1 and start != stop:
             raise SpecError(f"{where}: {what}: num = 1 with start != stop; give num >= 2 or values = [x]")
         out = tuple(float(round(v, _DECIMALS)) for v in np.linspace(float(start), float(stop), int(num)))
@@ -747,10 +764,7 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
 
     """
     where = _where(path)
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise SpecError(f"{where}: not valid TOML ({err}); fix the syntax at the place named") from None
+    raw = parse_toml(text, where)
     _check_keys(raw, _TOP_KEYS, where, "the top level")
     study = raw.get("study")
     if not isinstance(study, dict):
@@ -774,9 +788,9 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
 
     model_path = _resolve_model(study["model"], path, where)
     try:
-        model_text = model_path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise SpecError(f"{where}: cannot read model file {model_path}: {err}") from None
+        model_text = read_text(model_path, "model")
+    except SpecError as err:
+        raise SpecError(f"{where}: {err}") from None
     spec = parse_spec(model_text, path=str(model_path))
     parameters = list(spec.parameters)
 
@@ -807,6 +821,7 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
             if key in fixed:
                 raise SpecError(f"{where}: '{key}' is both swept in [grid] and fixed in [set]; keep one")
         axes = tuple(_axis(k, v, where) for k, v in grid.items())
+        check_grid_size(math.prod(len(a.values) for a in axes), where=f"{where}: [grid]")
         for index in np.ndindex(*(len(a.values) for a in axes)):
             values = {a.name: a.values[i] for a, i in zip(axes, index)}
             points.append(StudyPoint(len(points), values, tuple(int(i) for i in index)))
@@ -948,8 +963,5 @@ def _resolve_model(model: str, path: str, where: str) -> Path:
 def load_study(name_or_path: str) -> StudyDescription:
     """Read and parse a study file (a path, or the name of a bundled study)."""
     path = find_study(name_or_path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise SpecError(f"cannot read study file {path}: {err}") from None
+    text = read_text(path, "study")
     return parse_study(text, path=str(path))

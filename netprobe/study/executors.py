@@ -21,6 +21,7 @@ from __future__ import annotations
 import contextlib
 import multiprocessing
 import os
+import socket
 import sys
 import time
 from dataclasses import dataclass, field
@@ -29,7 +30,8 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Callable, Mapping
 
-from netprobe.study.description import StudyDescription, StudyError
+from netprobe.errors import StudyError
+from netprobe.study.description import StudyDescription
 from netprobe.study.ledger import STATES_FOLDER, Claim, Ledger, process_alive
 
 __all__ = [
@@ -333,7 +335,12 @@ class DaskExecutor:
             from distributed import Client
         except ImportError:
             raise StudyError("--scheduler needs dask.distributed; install netprobe[cluster]") from None
+        # a client that fails half-way blocks in its finaliser and prints its own traceback: open a
+        # plain connection first, so that a bad or unreachable address fails here, cleanly
+        problem = _unreachable(self.address, self.connect_seconds)
         try:
+            if problem is not None:
+                raise OSError(problem)
             self.client = Client(self.address, timeout=f"{self.connect_seconds}s", set_as_default=False)
         except Exception as err:  # the client raises OSError, TimeoutError or ValueError by cause
             detail = " ".join(str(err).split()) or type(err).__name__
@@ -403,6 +410,24 @@ class DaskExecutor:
             self._futures.clear()
             self.client.close()
             self.client = None
+
+
+def _unreachable(address: str, seconds: float) -> str | None:
+    """Why no TCP connection to a ``tcp://`` or ``tls://`` scheduler opens (None: it opens, or
+    the scheme is not TCP)."""
+    scheme, sep, rest = address.partition("://")
+    if not sep:
+        scheme, rest = "tcp", address
+    if scheme not in ("tcp", "tls"):
+        return None
+    host, sep, port = rest.rpartition(":")
+    if not sep or not port.isdigit():
+        return f"missing port number in address {address!r}"
+    try:
+        with socket.create_connection((host.strip("[]"), int(port)), timeout=seconds):
+            return None
+    except OSError as err:
+        return f"{err.strerror or type(err).__name__}"
 
 
 @dataclass(frozen=True)

@@ -48,7 +48,8 @@ from pathlib import Path
 from typing import Any, Iterator, Mapping
 
 from netprobe import __version__
-from netprobe.study.description import StudyDescription, StudyError
+from netprobe.errors import StudyError
+from netprobe.study.description import StudyDescription
 
 __all__ = [
     "LEDGER_NAME",

@@ -26,7 +26,8 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
-from netprobe.study.description import StudyDescription, StudyError
+from netprobe.errors import StudyError
+from netprobe.study.description import StudyDescription
 from netprobe.study.ledger import Ledger, encode_json, ledger_path
 from netprobe.study.verdicts import PointVerdict, point_verdict
 
