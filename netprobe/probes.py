@@ -39,6 +39,7 @@ import scipy.linalg
 
 from netprobe import rdm
 from netprobe.errors import LatticeError, NetprobeError
+from netprobe.resources import check_memory_budget
 from netprobe.sites import SiteSpace
 from netprobe.tensor import contract, diag_multiply, svd
 
@@ -483,7 +484,7 @@ def measure_probes(state, layout_parts, space: SiteSpace, *, probes: Sequence[st
     eps : float
         Kernel floor of the modular Hamiltonians (J is also reported at ``100 eps``).
     memory_budget : int, optional
-        Bytes; default :func:`netprobe.rdm.default_memory_budget`.
+        Bytes; default :func:`netprobe.resources.default_memory_budget`.
     method : {"auto", "root", "zipper", "split"}
         Route for an MPS (see :func:`netprobe.rdm.reduced_root`).
     renyi_orders : sequence of float
@@ -524,7 +525,7 @@ def measure_probes(state, layout_parts, space: SiteSpace, *, probes: Sequence[st
     estimate = rdm.estimate_rdm_memory(state, union, space, method=method)
     root = rdm.reduced_root(state, union, space, method=method, memory_budget=memory_budget)
     # the probe stage holds Y, two SVDs (U and V each) and K_AB Y, K_BC Y: about eight copies of Y
-    rdm.check_memory_budget(8.0 * root.nbytes, memory_budget, f"probes on {len(union)} sites")
+    check_memory_budget(8.0 * root.nbytes, memory_budget, f"probes on {len(union)} sites")
     pr = rdm.part_root(root, dict(zip(names, lists)))
     weights: dict[str, np.ndarray] = {}
     mc = None

@@ -1,0 +1,378 @@
+"""The split route: two double-layer walks that meet at one bond, joined into the charge blocks of rho.
+
+``G[O, b, O*, b*]`` runs from ``min S`` to a split point and the same walk on the mirrored chain from
+``max S`` back to the bond after it, each starting from the identity (the state is orthonormal towards
+the span from outside); traced sites are summed ket against bra, open sites fused into the open legs,
+block by block so that a step holds only its input and output. ``rho = sum_{b, b*} G_L G_R`` goes
+straight into the charge blocks of ``rho_S`` (never a dense ``d**m x d**m`` matrix), from which the
+square root comes by one eigendecomposition per block. The split point follows the first half of the
+open sites and the traced sites after them, so the largest steps run while nothing else is held.
+
+Fermions (design notes, section 6): on a traced site ``k`` the transfer uses ``F_k = (-1)^n_k`` on the
+ket wherever the combined ket + bra parity of the open legs on one side of ``k`` is odd. Each walk
+knows the open legs it has already fused, on its own side of ``k``: the left walk those left of
+``k``, the mirrored right walk those right of ``k``. For a state of definite parity the two sides
+give the same flag on every matrix element of ``rho_S`` (ket and bra parity of all of S agree), so
+both walks apply the rule with their own side. The flag is one bit per sector of the open leg, read
+off its charges, so the strings cost nothing; the route applies where the charges fix the parity of
+every open sector (:func:`split_applies`).
+
+Memory (:func:`split_estimate`, exact sector counts): the walks hold at most both layers, the join
+both layers, the blocks (``sum_Q n_Q**2`` entries, ``n_Q`` the configurations of S of charge Q) and a
+few copies of the largest product of two layer blocks; the square root then holds the blocks and one
+eigendecomposition.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from netprobe.rdm.common import BlockedRho, RootBlock, _config_labels, _grading_of
+from netprobe.rdm.root import UngradedParity
+from netprobe.rdm.tables import (
+    WalkMeter, _add, _bond_counts, _centred_copy, _fuse_tables, _pairs_by_charge, _parity_graded, _sector_parity,
+)
+from netprobe.tensor import BlockTensor, ChargeRule, Leg
+
+__all__ = ["split_applies", "split_estimate", "split_blocks"]
+
+
+@dataclass
+class _OpenSide:
+    """Configuration codes and fermion parity (``None`` if mixed) of each sector of an open leg."""
+
+    codes: list
+    parity: list
+
+
+def _bond_identity(bond: Leg, rule: ChargeRule, dtype) -> BlockTensor:
+    """The start of a double-layer walk: ``G[O, b, O*, b*]``, identity on ``b``, one open state of charge 0.
+
+    ``b`` contracts with ``bond``, the left bond of the walk's first tensor.
+    """
+    zero = np.zeros((1, rule.k), np.int64)
+    blocks = {(0, sec, 0, sec): np.eye(int(n), dtype=dtype).reshape(1, int(n), 1, int(n))
+              for sec, n in enumerate(bond.dims.tolist())}
+    return BlockTensor((Leg(zero, [1], 1), bond.dual(), Leg(zero, [1], -1), bond), None, rule, blocks, dtype=dtype)
+
+
+def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, code_of, rule: ChargeRule):
+    """Sectors, placements, codes and parities of the open leg after one more site.
+
+    See :func:`_double_layer_step`; a sector whose pairs have different parities gets parity ``None``.
+    """
+    groups = _pairs_by_charge(o_leg, s_leg, rule)
+    charges = sorted(groups)
+    place, dims, codes, parity = {}, [], [], []
+    for n, q in enumerate(charges):
+        off, parts, pars = 0, [], set()
+        for so, ss in groups[q]:
+            size = int(o_leg.dims[so] * s_leg.dims[ss])
+            place[(so, ss)] = (n, off, size)
+            off += size
+            parts.append(code_of(np.asarray(side.codes[so], np.int64)[:, None],
+                                 np.asarray(phys.codes[ss], np.int64)[None, :]).ravel())
+            po, ps = side.parity[so], phys.parity[ss]
+            pars.add(None if po is None or ps is None else po ^ ps)
+        dims.append(off)
+        codes.append(np.concatenate(parts))
+        parity.append(pars.pop() if len(pars) == 1 else None)
+    leg = Leg(np.array(charges, np.int64).reshape(len(charges), rule.k), np.array(dims, np.int64), o_leg.direction)
+    return leg, place, _OpenSide(codes, parity)
+
+
+def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _OpenSide, phys: _OpenSide,
+                       code_of, fermionic: bool):
+    """``G'[O', c, O'*, c*] = sum A[b, s, c] G[O, b, O*, b*] conj(A[b*, s*, c*])``, one block pair at a time.
+
+    A traced site has ``s* = s`` summed and ``O' = O``; for fermions it carries ``F = (-1)^n`` on the
+    ket wherever the open parities of ``O`` and ``O*`` differ (the string rule, read off the sector
+    flags). An open site fuses ``(O, s)`` into ``O'`` (``O`` major) with codes
+    ``code_of(O codes, s codes)``. Working block by block keeps the memory at the input and the output
+    plus one product of blocks (no fused copies of the large tensor).
+    """
+    rule = g.rule
+    by_bond: dict = {}
+    for (b, ss, c), blk in a.blocks.items():
+        by_bond.setdefault(b, []).append((ss, c, blk))
+    if open_site:
+        o_leg, place, new_side = _fused_open_leg(g.legs[0], a.legs[1], side, phys, code_of, rule)
+    else:
+        o_leg, place, new_side = g.legs[0], None, side
+    legs = (o_leg, a.legs[2], o_leg.dual(), a.legs[2].dual())
+    out: dict = {}
+    for (o, b, ob, bb), blk in g.blocks.items():
+        kets = by_bond.get(b, ())
+        bras = by_bond.get(bb, ())
+        odd = False
+        if fermionic and not open_site:
+            po, pob = side.parity[o], side.parity[ob]
+            if po is None or pob is None:
+                raise UngradedParity
+            odd = bool(po ^ pob)
+        for ss, c, ka in kets:
+            half = np.tensordot(blk, ka, axes=([1], [0]))  # (x, y, z, s, c)
+            if odd and phys.parity[ss]:
+                half = np.negative(half, out=half)
+            for sb, cb, kb in bras:
+                if not open_site and sb != ss:
+                    continue
+                if open_site:
+                    part = np.tensordot(half, kb.conj(), axes=([2], [0]))  # (x, y, s, c, s*, c*)
+                    n, off, size = place[(o, ss)]
+                    nb, offb, sizeb = place[(ob, sb)]
+                    key = (n, c, nb, cb)
+                    shape = (int(o_leg.dims[n]), part.shape[3], int(o_leg.dims[nb]), part.shape[5])
+                    target = out.get(key)
+                    if target is None:
+                        target = out[key] = np.zeros(shape, part.dtype)
+                    x, y, sd, cd, sbd, cbd = part.shape
+                    target[off:off + size, :, offb:offb + sizeb, :] += part.transpose(0, 2, 3, 1, 4, 5).reshape(
+                        x * sd, cd, y * sbd, cbd)
+                else:
+                    part = np.tensordot(half, kb.conj(), axes=([2, 3], [0, 1]))  # (x, y, c, c*)
+                    key = (o, c, ob, cb)
+                    target = out.get(key)
+                    if target is None:
+                        out[key] = part.transpose(0, 2, 1, 3).copy()
+                    else:
+                        target += part.transpose(0, 2, 1, 3)
+    return BlockTensor(legs, None, rule, out, dtype=np.result_type(g.dtype, a.dtype)), new_side
+
+
+def _split_point(sites: tuple[int, ...]) -> int:
+    """MPS index of the last site of the left walk.
+
+    The left walk takes the first half of the open sites and the traced sites after them, up to the
+    first open site of the second half: it runs first, with nothing else held, so the full-size
+    traced steps cost least there.
+    """
+    return sites[(len(sites) + 1) // 2] - 1 if len(sites) > 1 else sites[0]
+
+
+def _label_counts(space, conserve, m: int) -> dict:
+    """Grading label -> number of configurations of ``m`` sites with it (the block sizes of rho_S)."""
+    _, local, moduli = _grading_of(space, conserve)
+    if local.shape[1] == 0:
+        return {(): space.dim**m}
+    out = {tuple([0] * local.shape[1]): 1}
+    rows = [tuple(int(x) for x in r) for r in local.tolist()]
+    for _ in range(m):
+        new: dict = {}
+        for q, n in out.items():
+            for r in rows:
+                key = tuple((a + b) % mod if mod else a + b for a, b, mod in zip(q, r, moduli))
+                new[key] = new.get(key, 0) + n
+        out = new
+    return out
+
+
+def _open_tables(state, count: int) -> dict:
+    """Charge of the open leg after ``count`` open sites -> {parity: configurations} (parity 0 for bosons)."""
+    basis = state.basis
+    rule = basis.rule
+    par = np.asarray(basis.space.parity)[basis.order] if basis.space.fermionic else np.zeros(basis.dim, int)
+    phys = {}
+    for sec, (a, b) in enumerate(zip(basis.leg.offsets[:-1], basis.leg.offsets[1:])):
+        q = tuple(rule.reduce(np.asarray(basis.leg.charges[sec], np.int64)).tolist())
+        for p in np.unique(par[a:b]).tolist():
+            phys.setdefault(q, {})[int(p)] = phys.setdefault(q, {}).get(int(p), 0) + int(np.sum(par[a:b] == p))
+    out = {tuple(rule.zero().tolist()): {0: 1}}
+    for _ in range(count):
+        new: dict = {}
+        for q, pars in out.items():
+            for qs, spars in phys.items():
+                key = _add(q, qs, rule)
+                tgt = new.setdefault(key, {})
+                for p, n in pars.items():
+                    for ps, ns in spars.items():
+                        tgt[p ^ ps] = tgt.get(p ^ ps, 0) + n * ns
+        out = new
+    return out
+
+
+def split_applies(state, sites: tuple[int, ...]) -> bool:
+    """True for spin and boson spaces, and for fermions whose charges fix the parity of every open sector."""
+    if not state.basis.space.fermionic:
+        return True
+    if not _parity_graded(state.basis):
+        return False
+    m = _split_point(sites)
+    k_left = sum(1 for s in sites if s <= m)
+    for count in (k_left, len(sites) - k_left):
+        if any(len(p) > 1 for p in _open_tables(state, count).values()):
+            return False
+    return True
+
+
+def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float:
+    """Peak bytes of the split route, counted exactly from the charge sectors before the walk.
+
+    Parameters
+    ----------
+    state : MPS
+    sites : tuple of int
+    output : {"blocks", "root", "dense"}
+        What the route hands back: the charge blocks of rho, their square root (one
+        eigendecomposition per block on top of the blocks), or the dense ``d**m x d**m`` matrix
+        (assembled from the blocks).
+
+    Notes
+    -----
+    A double layer ``G[(O, b), (O*, b*)]`` is block diagonal in the charge of ``(O, b)``; its entries are
+    ``sum_Q n_Q**2`` with ``n_Q`` the number of (open configuration, bond state) pairs of charge Q. A
+    step holds its input and its output (it works block by block), the right walk also holds ``G_L``;
+    the join holds both layers, the blocks of rho and three copies of the largest product of a left
+    and a right layer block (the product, its reordered copy and the gathered target).
+    """
+    basis = state.basis
+    rule = basis.rule
+    d = basis.dim
+    item = np.dtype(state.dtype).itemsize
+    zero = tuple(rule.zero().tolist())
+    m = _split_point(sites)
+    k_left = sum(1 for s in sites if s <= m)
+    bond = state.tensors[m].legs[2]
+    bond_counts = _bond_counts(bond)
+
+    def open_sizes(count: int) -> dict:
+        return {q: sum(p.values()) for q, p in _open_tables(state, count).items()}
+
+    def layer(opens: dict, sign: int) -> float:
+        bond_table = {_add(zero, q, rule, sign): n for q, n in bond_counts.items()}
+        return float(sum(n * n for n in _fuse_tables(opens, bond_table, rule).values()))
+
+    left, right = open_sizes(k_left), open_sizes(len(sites) - k_left)
+    g_left, g_right = layer(left, 1), layer(right, -1)
+    blocks = _label_counts(basis.space, basis.conserve, len(sites))
+    held = float(sum(n * n for n in blocks.values()))
+    # the largest product of a left block (O_L charge ql, O_L* charge ql2) and a right block whose
+    # charges balance the bond: qr2 = ql + qr - ql2
+    part = 0.0
+    for ql, nl in left.items():
+        for ql2, nl2 in left.items():
+            for qr, nr in right.items():
+                nr2 = right.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
+                part = max(part, float(nl * nl2 * nr * nr2))
+    peak = max(2.0 * g_left, g_left + 2.0 * g_right, g_left + g_right + held + 3.0 * part)
+    # codes -> (block, position) tables and the grading labels of every configuration of S (int64)
+    n_states = float(d) ** len(sites)
+    tables = 8.0 * n_states * (3 + max(1, len(basis.conserve) + basis.space.fermionic))
+    n_max = float(max(blocks.values()))
+    if output == "root":
+        # blocks, one eigendecomposition (copy of the block, eigenvectors, the scaled copy)
+        peak = max(peak, held + 3.0 * n_max * n_max)
+    elif output == "dense":
+        peak = max(peak, held + n_states * n_states)
+    return peak * item + tables
+
+
+def _code_tables(space, conserve, m: int):
+    """Grading labels, the block of every configuration code and its position inside the block."""
+    names, local, moduli = _grading_of(space, conserve)
+    labels = _config_labels(local, moduli, m)
+    if labels.shape[1]:
+        uniq, inverse = np.unique(labels, axis=0, return_inverse=True)
+        inverse = np.asarray(inverse, np.int64).ravel()
+    else:
+        uniq, inverse = np.zeros((1, 0), np.int64), np.zeros(space.dim**m, np.int64)
+    del labels
+    order = np.argsort(inverse, kind="stable")
+    counts = np.bincount(inverse, minlength=len(uniq))
+    starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
+    position = np.empty_like(inverse)
+    position[order] = np.arange(len(inverse)) - np.repeat(starts, counts)
+    codes = np.split(order, np.cumsum(counts)[:-1])
+    return (names, local, moduli), uniq, inverse, position, codes
+
+
+def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where: str = "reduced_root",
+                 estimate: float = 0.0) -> BlockedRho:
+    """The charge blocks of ``rho_S`` by two double-layer walks (module notes).
+
+    The left walk carries ``G_L[O_L, b, O_L*, b*]`` from the first site of the set to the split
+    point; the right walk is the same walk on the mirrored chain (every tensor read as
+    ``A[c, s, b]``) from the last site back to the bond after the split point. Outside the span the
+    state is orthonormal towards it, so both walks start from the identity, and
+    ``rho = sum_{b, b*} G_L[O_L, b, O_L*, b*] G_R[O_R, b, O_R*, b*]``, accumulated pair of blocks by pair
+    of blocks into the charge blocks of rho. Every walk step checks its allocation against the
+    budget first.
+
+    Raises
+    ------
+    UngradedParity
+        For a fermionic open sector of mixed parity (``split_applies`` rules this out up front).
+    """
+    basis = state.basis
+    rule = basis.rule
+    d = basis.dim
+    space = basis.space
+    fermionic = space.fermionic
+    bounds = list(zip(basis.leg.offsets[:-1], basis.leg.offsets[1:]))
+    blocked_parity = np.asarray(space.parity)[basis.order] if fermionic else np.zeros(basis.dim, np.int64)
+    phys = _OpenSide([np.asarray(basis.order[a:b], np.int64) for a, b in bounds],
+                     _sector_parity(blocked_parity, basis.leg.offsets))
+    lo, hi = sites[0], sites[-1]
+    m = _split_point(sites)
+    meter = WalkMeter(budget, f"{where}: the split walk over {len(sites)} sites", np.dtype(state.dtype).itemsize)
+    st = _centred_copy(state, lo, hi)
+
+    def walk(start_bond, tensors, code_of, held: float):
+        g = _bond_identity(start_bond, rule, np.result_type(st.dtype, np.float64))
+        side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
+        for k, a in tensors:
+            is_open = k in sites
+            grow = float(d * d) if is_open else 1.0
+            grow *= max(1.0, a.legs[2].dim / max(1, a.legs[0].dim)) ** 2
+            meter.check(held + g.size * (1.0 + grow), k, a.legs[2].dim)
+            g, side = _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, opened),
+                                         fermionic)
+            opened += is_open
+        return g, side, opened
+
+    left = [(k, st.tensors[k]) for k in range(lo, m + 1)]
+    g_left, side_left, _ = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, 0.0)
+    right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
+    g_right, side_right, k_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o,
+                                        float(g_left.size))
+    del st, left, right
+    grading, uniq, block_of, position, block_codes = _code_tables(space, basis.conserve, len(sites))
+    dtype = np.result_type(g_left.dtype, g_right.dtype)
+    mats: dict = {}
+    shift = d**k_right
+    right_by_bond: dict = {}
+    for (sr, bk, srb, bb), blk in g_right.blocks.items():
+        right_by_bond.setdefault((bk, bb), []).append((sr, srb, blk))
+    for (sl, bk, slb, bb), blk in g_left.blocks.items():
+        for sr, srb, other in right_by_bond.get((bk, bb), ()):
+            part = np.tensordot(blk, other, axes=([1, 3], [1, 3]))  # (O_L, O_L*, O_R, O_R*)
+            rows = (side_left.codes[sl][:, None] * shift + side_right.codes[sr][None, :]).ravel()
+            cols = (side_left.codes[slb][:, None] * shift + side_right.codes[srb][None, :]).ravel()
+            mat = part.transpose(0, 2, 1, 3).reshape(len(rows), len(cols))
+            del part
+            rb, cb = block_of[rows], block_of[cols]
+            for u in np.unique(rb).tolist():
+                ri = rb == u
+                ci = cb == u
+                if not ci.any():
+                    continue  # a pair of charges that rho does not connect: zero by symmetry
+                target = mats.get(u)
+                if target is None:
+                    n = len(block_codes[u])
+                    target = mats[u] = np.zeros((n, n), dtype)
+                if ri.all() and ci.all():
+                    target[np.ix_(position[rows], position[cols])] += mat
+                else:
+                    target[np.ix_(position[rows[ri]], position[cols[ci]])] += mat[np.ix_(ri, ci)]
+    del g_left, g_right, right_by_bond
+    trace = sum(float(np.trace(b).real) for b in mats.values())
+    blocks = []
+    for u in sorted(mats):
+        mat = mats.pop(u)
+        if trace > 0:
+            mat /= trace
+        blocks.append(RootBlock(tuple(int(x) for x in uniq[u]), block_codes[u], mat))
+    names, local, moduli = grading
+    return BlockedRho(tuple(sites), space, names, local, moduli, tuple(blocks), "mps-split", estimate)
