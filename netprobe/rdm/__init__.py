@@ -24,7 +24,8 @@ Layout
 ``vector`` (dense vectors), ``zipper`` (the dense density-matrix zipper, the reference), ``root``
 (the square-root zipper), ``split`` (two double-layer walks joined into charge blocks, with fermion
 parity strings), ``routes`` (the registry of routes and the one dispatcher), ``api`` (public entry
-points), ``parts`` (regions made of parts A|B|C). Every public entry point goes through
+points), ``parts`` (regions made of parts A|B|C), ``blocked`` (parts of a reduced state kept in
+charge blocks: partial traces and the traces that J needs). Every public entry point goes through
 :func:`netprobe.rdm.routes.dispatch`.
 
 References
@@ -34,8 +35,9 @@ Free-fermion check used in the tests: I. Peschel, J. Phys. A 36, L205 (2003).
 """
 
 from netprobe.rdm.api import (
-    estimate_rdm_memory, rdm_route, reduced_blocks, reduced_density_matrix, reduced_root,
+    estimate_blocks_memory, estimate_rdm_memory, rdm_route, reduced_blocks, reduced_density_matrix, reduced_root,
 )
+from netprobe.rdm.blocked import PartBlocks, SubsetBlocks, part_blocks, prefix_suffix_trace, subset_rho
 from netprobe.rdm.common import BlockedRho, GradedRoot, PartRoot, RootBlock, as_pure_state, permutation_sign
 from netprobe.rdm.parts import check_parts, part_root, reorder_parts, subset_weights
 from netprobe.rdm.routes import RDM_METHODS, ROUTES, Route, choose_route
@@ -57,6 +59,12 @@ __all__ = [
     "reduced_root",
     "reduced_blocks",
     "estimate_rdm_memory",
+    "estimate_blocks_memory",
+    "PartBlocks",
+    "SubsetBlocks",
+    "part_blocks",
+    "subset_rho",
+    "prefix_suffix_trace",
     "rdm_route",
     "choose_route",
     "check_parts",

@@ -4,11 +4,20 @@ from __future__ import annotations
 
 import numpy as np
 
+from netprobe.rdm.blocked import blocks_probe_estimate
 from netprobe.rdm.common import BlockedRho, GradedRoot, as_pure_state
-from netprobe.rdm.routes import dispatch, route_estimate
+from netprobe.rdm.routes import _checked_sites, dispatch, route_estimate
+from netprobe.rdm.split import block_sizes
 from netprobe.sites import SiteSpace
 
-__all__ = ["reduced_root", "reduced_density_matrix", "reduced_blocks", "estimate_rdm_memory", "rdm_route"]
+__all__ = [
+    "reduced_root",
+    "reduced_density_matrix",
+    "reduced_blocks",
+    "estimate_rdm_memory",
+    "estimate_blocks_memory",
+    "rdm_route",
+]
 
 
 
@@ -138,3 +147,16 @@ def rdm_route(state, sites, space: SiteSpace, *, method: str = "auto", dense: bo
     route, _ = route_estimate(as_pure_state(state), sites, space, method, "dense" if dense else "root",
                               where="rdm_route")
     return route.name
+
+
+def estimate_blocks_memory(state, sites, space: SiteSpace) -> float:
+    """Peak bytes of :func:`reduced_blocks` followed by the probes on the blocks (:mod:`netprobe.rdm.blocked`).
+
+    Both counted exactly from the charge sectors: the split walks and their join, then the blocks
+    with one product and one eigenvalue copy of the largest block.
+    """
+    state = as_pure_state(state)
+    _, walk = route_estimate(state, sites, space, "split", "blocks", where="estimate_blocks_memory")
+    checked = _checked_sites(state, sites, space, "estimate_blocks_memory")
+    probes = blocks_probe_estimate(block_sizes(state, checked), np.dtype(state.dtype).itemsize)
+    return max(walk, probes)

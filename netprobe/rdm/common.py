@@ -342,6 +342,25 @@ def _root_from_rho(rho: np.ndarray, space: SiteSpace, sites, conserve, route: st
     return GradedRoot(tuple(sites), space, names, local, moduli, tuple(blocks), route)
 
 
+def _code_tables(space, conserve, m: int):
+    """Grading labels, the block of every configuration code and its position inside the block."""
+    names, local, moduli = _grading_of(space, conserve)
+    labels = _config_labels(local, moduli, m)
+    if labels.shape[1]:
+        uniq, inverse = np.unique(labels, axis=0, return_inverse=True)
+        inverse = np.asarray(inverse, np.int64).ravel()
+    else:
+        uniq, inverse = np.zeros((1, 0), np.int64), np.zeros(space.dim**m, np.int64)
+    del labels
+    order = np.argsort(inverse, kind="stable")
+    counts = np.bincount(inverse, minlength=len(uniq))
+    starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
+    position = np.empty_like(inverse)
+    position[order] = np.arange(len(inverse)) - np.repeat(starts, counts)
+    codes = np.split(order, np.cumsum(counts)[:-1])
+    return (names, local, moduli), uniq, inverse, position, codes
+
+
 @dataclass(frozen=True, eq=False)
 class BlockedRho:
     """A reduced density matrix kept in its charge blocks: ``rho_S = sum_q P_q rho_q P_q``.

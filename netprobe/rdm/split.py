@@ -29,14 +29,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from netprobe.rdm.common import BlockedRho, RootBlock, _config_labels, _grading_of
+from netprobe.rdm.common import BlockedRho, RootBlock, _code_tables, _grading_of
 from netprobe.rdm.root import UngradedParity
 from netprobe.rdm.tables import (
     WalkMeter, _add, _bond_counts, _centred_copy, _fuse_tables, _pairs_by_charge, _parity_graded, _sector_parity,
 )
 from netprobe.tensor import BlockTensor, ChargeRule, Leg
 
-__all__ = ["split_applies", "split_estimate", "split_blocks"]
+__all__ = ["split_applies", "split_estimate", "split_blocks", "block_sizes"]
 
 
 @dataclass
@@ -169,6 +169,11 @@ def _label_counts(space, conserve, m: int) -> dict:
     return out
 
 
+def block_sizes(state, sites: tuple[int, ...]) -> list[int]:
+    """Sizes of the charge blocks of ``rho_S`` (configurations of S per grading label)."""
+    return list(_label_counts(state.basis.space, state.basis.conserve, len(sites)).values())
+
+
 def _open_tables(state, count: int) -> dict:
     """Charge of the open leg after ``count`` open sites -> {parity: configurations} (parity 0 for bosons)."""
     basis = state.basis
@@ -267,25 +272,6 @@ def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float
     elif output == "dense":
         peak = max(peak, held + n_states * n_states)
     return peak * item + tables
-
-
-def _code_tables(space, conserve, m: int):
-    """Grading labels, the block of every configuration code and its position inside the block."""
-    names, local, moduli = _grading_of(space, conserve)
-    labels = _config_labels(local, moduli, m)
-    if labels.shape[1]:
-        uniq, inverse = np.unique(labels, axis=0, return_inverse=True)
-        inverse = np.asarray(inverse, np.int64).ravel()
-    else:
-        uniq, inverse = np.zeros((1, 0), np.int64), np.zeros(space.dim**m, np.int64)
-    del labels
-    order = np.argsort(inverse, kind="stable")
-    counts = np.bincount(inverse, minlength=len(uniq))
-    starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
-    position = np.empty_like(inverse)
-    position[order] = np.arange(len(inverse)) - np.repeat(starts, counts)
-    codes = np.split(order, np.cumsum(counts)[:-1])
-    return (names, local, moduli), uniq, inverse, position, codes
 
 
 def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where: str = "reduced_root",
