@@ -68,7 +68,7 @@ class PartBlocks:
 
     def weights(self) -> np.ndarray:
         """Eigenvalues of ``rho`` (all parts), descending, positive only."""
-        vals = [scipy.linalg.eigvalsh(mat, check_finite=False) for _, mat in self.blocks if mat.size]
+        vals = [scipy.linalg.eigvalsh(mat, check_finite=False, driver="evd") for _, mat in self.blocks if mat.size]
         w = np.concatenate(vals) if vals else np.zeros(0)
         return np.sort(w[w > 0])[::-1]
 
@@ -98,7 +98,7 @@ class SubsetBlocks:
 
     def weights(self) -> np.ndarray:
         """Eigenvalues (for a density matrix: its weights), descending, positive only."""
-        vals = [scipy.linalg.eigvalsh(m, check_finite=False) for m in self.matrices.values() if m.size]
+        vals = [scipy.linalg.eigvalsh(m, check_finite=False, driver="evd") for m in self.matrices.values() if m.size]
         w = np.concatenate(vals) if vals else np.zeros(0)
         return np.sort(w[w > 0])[::-1]
 

@@ -29,7 +29,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from netprobe.rdm.common import BlockedRho, RootBlock, _code_tables, _grading_of
+from netprobe.rdm.common import BlockedRho, RootBlock, _grading_of, _labels
 from netprobe.rdm.root import UngradedParity
 from netprobe.rdm.tables import (
     WalkMeter, _add, _bond_counts, _centred_copy, _fuse_tables, _pairs_by_charge, _parity_graded, _sector_parity,
@@ -142,13 +142,8 @@ def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _O
     return BlockTensor(legs, None, rule, out, dtype=np.result_type(g.dtype, a.dtype)), new_side
 
 
-def _split_point(sites: tuple[int, ...]) -> int:
-    """MPS index of the last site of the left walk.
-
-    The left walk takes the first half of the open sites and the traced sites after them, up to the
-    first open site of the second half: it runs first, with nothing else held, so the full-size
-    traced steps cost least there.
-    """
+def _default_split(sites: tuple[int, ...]) -> int:
+    """The balanced split: the left walk takes the first half of the open sites and the traced sites after them."""
     return sites[(len(sites) + 1) // 2] - 1 if len(sites) > 1 else sites[0]
 
 
@@ -204,12 +199,65 @@ def split_applies(state, sites: tuple[int, ...]) -> bool:
         return True
     if not _parity_graded(state.basis):
         return False
-    m = _split_point(sites)
-    k_left = sum(1 for s in sites if s <= m)
-    for count in (k_left, len(sites) - k_left):
-        if any(len(p) > 1 for p in _open_tables(state, count).values()):
-            return False
-    return True
+    return all(len(p) == 1 for count in range(len(sites) + 1) for p in _open_tables(state, count).values())
+
+
+def _plan(state, sites: tuple[int, ...]):
+    """The split point with the smallest exact peak of the walks and the join, with its sizes (entries).
+
+    Returns ``(m, walks_and_join, held, n_max, left, right)``: the last site of the left walk, the peak
+    of the two walks and the join at that split, the entries of the blocks of rho, the largest block
+    size, and the entries of the left layer after each site and of the right layer after each site of
+    the mirrored walk (what every step checks against the budget).
+    Every step of a walk holds its input and output layer (the right walk also ``G_L``); a layer
+    ``G[(O, b), (O*, b*)]`` has ``sum_Q n_Q**2`` entries, ``n_Q`` the (open configuration, bond state)
+    pairs of charge Q; the join holds both layers, the blocks and three copies of the largest product
+    of a left and a right layer block.
+    """
+    basis = state.basis
+    rule = basis.rule
+    zero = tuple(rule.zero().tolist())
+    lo, hi = sites[0], sites[-1]
+    t = state.tensors
+    opens = [{q: sum(p.values()) for q, p in _open_tables(state, c).items()} for c in range(len(sites) + 1)]
+
+    def layer(count: int, bond: Leg, sign: int) -> float:
+        table = {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}
+        return float(sum(n * n for n in _fuse_tables(opens[count], table, rule).values()))
+
+    def identity(bond: Leg) -> float:
+        return float(sum(int(n) ** 2 for n in bond.dims.tolist()))
+
+    left = {lo - 1: identity(t[lo].legs[0])}
+    for k in range(lo, hi + 1):
+        left[k] = layer(sum(1 for s in sites if s <= k), t[k].legs[2], 1)
+    right = {hi + 1: identity(t[hi].legs[2])}
+    for k in range(hi, lo, -1):
+        right[k] = layer(sum(1 for s in sites if s >= k), t[k - 1].legs[2], -1)
+    blocks = _label_counts(basis.space, basis.conserve, len(sites))
+    held = float(sum(n * n for n in blocks.values()))
+    n_max = float(max(blocks.values()))
+    default = _default_split(sites)
+    best = None
+    for m in range(lo, hi + 1) if len(sites) > 1 else [lo]:
+        k_left = sum(1 for s in sites if s <= m)
+        if not 0 < k_left < len(sites) and len(sites) > 1:
+            continue
+        walk_left = max(left[k - 1] + left[k] for k in range(lo, m + 1))
+        walk_right = max([left[m] + right[k + 1] + right[k] for k in range(m + 1, hi + 1)], default=0.0)
+        lsz, rsz = opens[k_left], opens[len(sites) - k_left]
+        part = 0.0
+        for ql, nl in lsz.items():
+            for ql2, nl2 in lsz.items():
+                for qr, nr in rsz.items():
+                    nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
+                    part = max(part, float(nl * nl2 * nr * nr2))
+        join = left[m] + right[m + 1] + held + 3.0 * part
+        peak = max(walk_left, walk_right, join)
+        key = (peak, abs(m - default))
+        if best is None or key < best[0]:
+            best = (key, m, peak)
+    return best[1], best[2], held, n_max, left, right
 
 
 def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float:
@@ -226,52 +274,18 @@ def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float
 
     Notes
     -----
-    A double layer ``G[(O, b), (O*, b*)]`` is block diagonal in the charge of ``(O, b)``; its entries are
-    ``sum_Q n_Q**2`` with ``n_Q`` the number of (open configuration, bond state) pairs of charge Q. A
-    step holds its input and its output (it works block by block), the right walk also holds ``G_L``;
-    the join holds both layers, the blocks of rho and three copies of the largest product of a left
-    and a right layer block (the product, its reordered copy and the gathered target).
+    The walks and the join at the split point that minimises this peak (:func:`_plan`), then the
+    output stage, plus the row codes of the blocks.
     """
-    basis = state.basis
-    rule = basis.rule
-    d = basis.dim
     item = np.dtype(state.dtype).itemsize
-    zero = tuple(rule.zero().tolist())
-    m = _split_point(sites)
-    k_left = sum(1 for s in sites if s <= m)
-    bond = state.tensors[m].legs[2]
-    bond_counts = _bond_counts(bond)
-
-    def open_sizes(count: int) -> dict:
-        return {q: sum(p.values()) for q, p in _open_tables(state, count).items()}
-
-    def layer(opens: dict, sign: int) -> float:
-        bond_table = {_add(zero, q, rule, sign): n for q, n in bond_counts.items()}
-        return float(sum(n * n for n in _fuse_tables(opens, bond_table, rule).values()))
-
-    left, right = open_sizes(k_left), open_sizes(len(sites) - k_left)
-    g_left, g_right = layer(left, 1), layer(right, -1)
-    blocks = _label_counts(basis.space, basis.conserve, len(sites))
-    held = float(sum(n * n for n in blocks.values()))
-    # the largest product of a left block (O_L charge ql, O_L* charge ql2) and a right block whose
-    # charges balance the bond: qr2 = ql + qr - ql2
-    part = 0.0
-    for ql, nl in left.items():
-        for ql2, nl2 in left.items():
-            for qr, nr in right.items():
-                nr2 = right.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
-                part = max(part, float(nl * nl2 * nr * nr2))
-    peak = max(2.0 * g_left, g_left + 2.0 * g_right, g_left + g_right + held + 3.0 * part)
-    # codes -> (block, position) tables and the grading labels of every configuration of S (int64)
-    n_states = float(d) ** len(sites)
-    tables = 8.0 * n_states * (3 + max(1, len(basis.conserve) + basis.space.fermionic))
-    n_max = float(max(blocks.values()))
+    _, peak, held, n_max, _, _ = _plan(state, sites)
+    n_states = float(state.basis.dim) ** len(sites)
     if output == "root":
         # blocks, one eigendecomposition (copy of the block, eigenvectors, the scaled copy)
         peak = max(peak, held + 3.0 * n_max * n_max)
     elif output == "dense":
         peak = max(peak, held + n_states * n_states)
-    return peak * item + tables
+    return peak * item + 8.0 * n_states
 
 
 def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where: str = "reduced_root",
@@ -301,64 +315,86 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
     phys = _OpenSide([np.asarray(basis.order[a:b], np.int64) for a, b in bounds],
                      _sector_parity(blocked_parity, basis.leg.offsets))
     lo, hi = sites[0], sites[-1]
-    m = _split_point(sites)
+    m, _, _, _, sizes_left, sizes_right = _plan(state, sites)
     meter = WalkMeter(budget, f"{where}: the split walk over {len(sites)} sites", np.dtype(state.dtype).itemsize)
     st = _centred_copy(state, lo, hi)
 
-    def walk(start_bond, tensors, code_of, held: float):
+    def walk(start_bond, tensors, code_of, sizes, step, held: float):
         g = _bond_identity(start_bond, rule, np.result_type(st.dtype, np.float64))
         side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
         for k, a in tensors:
             is_open = k in sites
-            grow = float(d * d) if is_open else 1.0
-            grow *= max(1.0, a.legs[2].dim / max(1, a.legs[0].dim)) ** 2
-            meter.check(held + g.size * (1.0 + grow), k, a.legs[2].dim)
+            meter.check(held + sizes[k - step] + sizes[k], k, a.legs[2].dim)  # input and output layers
             g, side = _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, opened),
                                          fermionic)
             opened += is_open
         return g, side, opened
 
     left = [(k, st.tensors[k]) for k in range(lo, m + 1)]
-    g_left, side_left, _ = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, 0.0)
+    g_left, side_left, _ = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, sizes_left, 1, 0.0)
     right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
     g_right, side_right, k_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o,
-                                        float(g_left.size))
+                                        sizes_right, -1, sizes_left[m])
     del st, left, right
-    grading, uniq, block_of, position, block_codes = _code_tables(space, basis.conserve, len(sites))
+    names, local, moduli = _grading_of(space, basis.conserve)
     dtype = np.result_type(g_left.dtype, g_right.dtype)
-    mats: dict = {}
     shift = d**k_right
-    right_by_bond: dict = {}
-    for (sr, bk, srb, bb), blk in g_right.blocks.items():
-        right_by_bond.setdefault((bk, bb), []).append((sr, srb, blk))
+    # rows of a block of rho: the (left sector, right sector) pairs of one total open charge, one
+    # after the other, so that every product of two layers lands in a contiguous sub-block
+    layout: dict = {}
+    for sl, ql in enumerate(g_left.legs[0].charges.tolist()):
+        for sr, qr in enumerate(g_right.legs[0].charges.tolist()):
+            layout.setdefault(_add(tuple(ql), tuple(qr), rule), []).append((sl, sr))
+    place, sizes = {}, {}
+    for total, pairs in layout.items():
+        off = 0
+        for sl, sr in pairs:
+            n = len(side_left.codes[sl]) * len(side_right.codes[sr])
+            place[(sl, sr)] = (total, off, n)
+            off += n
+        sizes[total] = off
+    left_groups: dict = {}
     for (sl, bk, slb, bb), blk in g_left.blocks.items():
-        for sr, srb, other in right_by_bond.get((bk, bb), ()):
-            part = np.tensordot(blk, other, axes=([1, 3], [1, 3]))  # (O_L, O_L*, O_R, O_R*)
-            rows = (side_left.codes[sl][:, None] * shift + side_right.codes[sr][None, :]).ravel()
-            cols = (side_left.codes[slb][:, None] * shift + side_right.codes[srb][None, :]).ravel()
-            mat = part.transpose(0, 2, 1, 3).reshape(len(rows), len(cols))
-            del part
-            rb, cb = block_of[rows], block_of[cols]
-            for u in np.unique(rb).tolist():
-                ri = rb == u
-                ci = cb == u
-                if not ci.any():
-                    continue  # a pair of charges that rho does not connect: zero by symmetry
-                target = mats.get(u)
-                if target is None:
-                    n = len(block_codes[u])
-                    target = mats[u] = np.zeros((n, n), dtype)
-                if ri.all() and ci.all():
-                    target[np.ix_(position[rows], position[cols])] += mat
+        left_groups.setdefault((sl, slb), {})[(bk, bb)] = blk
+    right_groups: dict = {}
+    for (sr, bk, srb, bb), blk in g_right.blocks.items():
+        right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk
+    del g_left, g_right
+    mats: dict = {}
+    for (sl, slb), lefts in left_groups.items():
+        for (sr, srb), rights in right_groups.items():
+            total, r0, rn = place[(sl, sr)]
+            total_b, c0, cn = place[(slb, srb)]
+            if total != total_b:
+                continue  # a pair of charges that rho does not connect: zero by symmetry
+            part = None
+            for key, blk in lefts.items():
+                other = rights.get(key)
+                if other is None:
+                    continue
+                term = np.tensordot(blk, other, axes=([1, 3], [1, 3]))  # (O_L, O_L*, O_R, O_R*)
+                if part is None:
+                    part = term
                 else:
-                    target[np.ix_(position[rows[ri]], position[cols[ci]])] += mat[np.ix_(ri, ci)]
-    del g_left, g_right, right_by_bond
+                    part += term
+                del term
+            if part is None:
+                continue
+            target = mats.get(total)
+            if target is None:
+                target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
+            target[r0:r0 + rn, c0:c0 + cn] += part.transpose(0, 2, 1, 3).reshape(rn, cn)
+            del part
+    del left_groups, right_groups
     trace = sum(float(np.trace(b).real) for b in mats.values())
+    powers = d ** np.arange(len(sites) - 1, -1, -1, dtype=np.int64)
     blocks = []
-    for u in sorted(mats):
-        mat = mats.pop(u)
+    for total in sorted(mats):
+        mat = mats.pop(total)
         if trace > 0:
             mat /= trace
-        blocks.append(RootBlock(tuple(int(x) for x in uniq[u]), block_codes[u], mat))
-    names, local, moduli = grading
+        codes = np.concatenate([(side_left.codes[sl][:, None] * shift + side_right.codes[sr][None, :]).ravel()
+                                for sl, sr in layout[total]])
+        label = _labels(local[(codes[0] // powers) % d].sum(axis=0, keepdims=True), moduli)[0]
+        blocks.append(RootBlock(tuple(int(x) for x in label), codes, mat))
     return BlockedRho(tuple(sites), space, names, local, moduli, tuple(blocks), "mps-split", estimate)
