@@ -324,8 +324,9 @@ def large_regions(ctx: Context) -> list[Figure]:
     figures = []
 
     def log(tag, data):
-        ctx.log(f"    {tag}: {data['seconds']:.1f} s, peak {data['peak_rss_bytes'] / GIB:.2f} GiB (baseline "
-                f"{data['baseline_rss_bytes'] / GIB:.2f} GiB), estimate {data['estimate_bytes'] / GIB:.2f} GiB, "
+        ctx.log(f"    {tag}: {data['seconds']:.1f} s ({data['cpu_seconds']:.1f} s CPU), peak "
+                f"{data['peak_rss_bytes'] / GIB:.2f} GiB (baseline {data['baseline_rss_bytes'] / GIB:.2f} GiB), "
+                f"estimate {data['estimate_bytes'] / GIB:.2f} GiB, "
                 f"route {data['route']}, max bond {data['max_bond']}")
 
     if ctx.quick:
