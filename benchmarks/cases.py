@@ -1,4 +1,4 @@
-"""The eight benchmarks of the suite. Each returns a list of :class:`Figure` (a ratio beside its target).
+"""The benchmarks of the suite. Each returns a list of :class:`Figure` (a ratio beside its target).
 
 Every ratio is taken from measurements made in the same run (see README.md in this folder): the
 matvec rate against the matrix-multiply rate measured minutes apart on the same cores, the
@@ -338,6 +338,89 @@ def rdm_and_j(ctx: Context) -> list[Figure]:
     return figures
 
 
+# ---- 5b. larger regions: the split route on charge blocks, fermions against spins ----------------
+
+
+def _run_regions(args: list[str]) -> dict:
+    """Run ``python -m benchmarks.rdm_regions ...`` in a fresh process; its JSON plus the wall seconds."""
+    env = dict(os.environ)
+    env["PYTHONPATH"] = os.pathsep.join([str(Path(__file__).resolve().parent.parent), env.get("PYTHONPATH", "")])
+    start = time.perf_counter()
+    proc = subprocess.run([sys.executable, "-m", "benchmarks.rdm_regions", *args], capture_output=True, text=True,
+                          env=env)
+    if proc.returncode != 0:
+        raise RuntimeError(f"rdm_regions {' '.join(args)} failed: {proc.stderr.strip().splitlines()[-1:]}")
+    data = json.loads(proc.stdout)
+    data["process_seconds"] = time.perf_counter() - start
+    return data
+
+
+def _estimate_spread(data: dict) -> float:
+    """max(estimate / measured, measured / estimate), measured = peak resident memory over the baseline."""
+    measured = max(1.0, data["peak_rss_bytes"] - data["baseline_rss_bytes"])
+    ratio = data["estimate_bytes"] / measured
+    return max(ratio, 1.0 / ratio)
+
+
+def large_regions(ctx: Context) -> list[Figure]:
+    """Reduced state, J, CMI of large disks (kagome, square cylinder) and fermionic against spin regions.
+
+    Random MPS of the given bond dimension in the model's sector (the split route's cost depends on
+    the charge sectors of the bonds, not on the entanglement), except the square cylinder of the full
+    set, which uses the D = 512 ground state of the ladder.
+    """
+    from netprobe.store import save_state
+
+    kagome = ["--model", "kagome_chiral", "--set", "length=6", "--set", "circumference=3"]
+    haldane = ["--model", "haldane", "--set", "length=8", "--set", "circumference=3"]
+    figures = []
+
+    def log(tag, data):
+        ctx.log(f"    {tag}: {data['seconds']:.1f} s ({data['cpu_seconds']:.1f} s CPU), peak "
+                f"{data['peak_rss_bytes'] / GIB:.2f} GiB (baseline {data['baseline_rss_bytes'] / GIB:.2f} GiB), "
+                f"estimate {data['estimate_bytes'] / GIB:.2f} GiB, "
+                f"route {data['route']}, max bond {data['max_bond']}")
+
+    if ctx.quick:
+        kag_n, kag_d, ferm_n, ferm_d = 12, 128, 8, 256
+    else:
+        kag_n, kag_d, ferm_n, ferm_d = 15, 256, 10, 512
+    data = _run_regions(kagome + ["--bond", str(kag_d), "--sites", str(kag_n)])
+    log(f"kagome {kag_n} sites D={kag_d}", data)
+    details = dict(data, sites=kag_n, bond_dimension=kag_d)
+    figures.append(Figure(f"rdm_kagome_{kag_n}_sites_time_vs_300s", data["seconds"] / 300.0, 1.0, "<=", details))
+    figures.append(Figure(f"rdm_kagome_{kag_n}_sites_memory_vs_8GiB", data["peak_rss_bytes"] / (8 * GIB), 1.0,
+                          "<=", details))
+    figures.append(Figure(f"rdm_kagome_{kag_n}_sites_estimate_spread", _estimate_spread(data), 1.5, "<=", details))
+    ferm = _run_regions(haldane + ["--bond", str(ferm_d), "--sites", str(ferm_n)])
+    log(f"haldane {ferm_n} sites D={ferm_d}", ferm)
+    spin = _run_regions(haldane + ["--bond", str(ferm_d), "--sites", str(ferm_n), "--spin-twin"])
+    log(f"spin twin {ferm_n} sites D={ferm_d}", spin)
+    details = {"fermions": ferm, "spins": spin, "sites": ferm_n, "bond_dimension": ferm_d}
+    figures.append(Figure(f"rdm_fermion_vs_spin_{ferm_n}_sites_time", ferm["seconds"] / spin["seconds"], 2.0,
+                          "<=", details))
+    figures.append(Figure(f"rdm_fermion_vs_spin_{ferm_n}_sites_memory",
+                          (ferm["peak_rss_bytes"] - ferm["baseline_rss_bytes"])
+                          / max(1.0, spin["peak_rss_bytes"] - spin["baseline_rss_bytes"]), 2.0, "<=", details))
+    if not ctx.quick:
+        state = ctx.ladder(512).states[512]
+        path = ctx.scratch / "heisenberg_w6_L6_D512_regions.h5"
+        save_state(path, state, info={"bond_dimension": 512})
+        try:
+            data = _run_regions(["--model", "heisenberg", "--set", "lattice=square", "--set", "circumference=6",
+                                 "--set", "length=6", "--sites", "16", "--state", str(path)])
+        except RuntimeError as err:  # refused up front (the estimate is above the 16 GB budget): missed
+            ctx.log(f"    square 16 sites D=512: {err}")
+            figures.append(Figure("rdm_square_16_sites_memory_vs_16GiB", None, 1.0, "<=", {"error": str(err)}))
+            return figures
+        log("square 16 sites D=512", data)
+        details = dict(data, sites=16, bond_dimension=512)
+        figures.append(Figure("rdm_square_16_sites_memory_vs_16GiB", data["peak_rss_bytes"] / (16 * GIB), 1.0,
+                              "<=", details))
+        figures.append(Figure("rdm_square_16_sites_estimate_spread", _estimate_spread(data), 1.5, "<=", details))
+    return figures
+
+
 # ---- 6. free fermions ---------------------------------------------------------------------------
 
 
@@ -570,6 +653,7 @@ BENCHMARKS = {
     "exact": exact_crossover,
     "cost": cost_growth,
     "rdm": rdm_and_j,
+    "regions": large_regions,
     "free_fermions": free_fermions,
     "mpo": mpo_compression,
     "study": study_throughput,

@@ -27,7 +27,6 @@ Entry points: :func:`ground_state`, :func:`hamiltonian_matrix`, :func:`hamiltoni
 from __future__ import annotations
 
 import itertools
-import os
 from dataclasses import dataclass, field
 from typing import Mapping, Sequence
 
@@ -37,6 +36,7 @@ import scipy.sparse.linalg as spla
 from numba import njit, prange
 
 from netprobe.errors import HermiticityError, MemoryBudgetError, OperatorError, SectorError, SpecError
+from netprobe.resources import default_memory_budget, format_bytes
 from netprobe.sites import operator_charge_change, operator_parity
 from netprobe.terms import Hamiltonian, LocalProduct, Term, normal_form
 
@@ -60,17 +60,6 @@ _CODE_LIMIT = 2**62  # codes are int64; d**N must stay below this
 _TABLE_LIMIT = 2**23  # entries of the two rank tables before falling back to binary search
 _CHUNK = 2048  # states per parallel work item
 _PIECE_RTOL = 1e-14  # local entries below this fraction of the matrix norm are rounding residue
-
-
-def _default_budget() -> int:
-    try:
-        return int(os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")) // 2
-    except (ValueError, OSError, AttributeError):
-        return 8 * 2**30
-
-
-def _gib(nbytes: float) -> str:
-    return f"{nbytes / 2**30:.2f} GiB"
 
 
 # ----------------------------------------------------------------------------------------------
@@ -349,7 +338,7 @@ class SectorBasis:
     names : sequence of str, optional
         Charge names, used in messages and by :meth:`with_target`.
     memory_budget : int, optional
-        Bytes the enumeration may use; default half the physical memory.
+        Bytes the enumeration may use; default :func:`netprobe.resources.default_memory_budget`.
 
     Raises
     ------
@@ -390,7 +379,7 @@ class SectorBasis:
         q.setflags(write=False)
         self.target = target
         self.names = names
-        budget = _default_budget() if memory_budget is None else int(memory_budget)
+        budget = default_memory_budget() if memory_budget is None else int(memory_budget)
         if k == 0:
             dim = d**num_sites
         else:
@@ -410,8 +399,8 @@ class SectorBasis:
                 )
         if 8 * dim > budget:
             raise MemoryBudgetError(
-                f"the sector has {dim} states; its codes alone need {_gib(8 * dim)}, over the budget of "
-                f"{_gib(budget)}; use a smaller lattice or DMRG"
+                f"the sector has {dim} states; its codes alone need {format_bytes(8 * dim)}, over the budget of "
+                f"{format_bytes(budget)}; use a smaller lattice or DMRG"
             )
         if k == 0:
             codes = np.arange(dim, dtype=np.int64)
@@ -774,7 +763,7 @@ class ExactOptions:
         Sector dimensions up to this use dense ``numpy.linalg.eigh``.
     memory_budget : int or None
         Bytes the sparse matrix plus Lanczos vectors may take before the matrix-free path is
-        chosen (or an error raised); ``None`` means half the physical memory.
+        chosen (or an error raised); ``None`` means :func:`netprobe.resources.default_memory_budget`.
     ncv : int or None
         Lanczos vectors kept by ARPACK; ``None`` lets it be ``max(2 k + 1, 20)``.
     maxiter : int or None
@@ -787,7 +776,7 @@ class ExactOptions:
     maxiter: int | None = None
 
     def budget(self) -> int:
-        return _default_budget() if self.memory_budget is None else int(self.memory_budget)
+        return default_memory_budget() if self.memory_budget is None else int(self.memory_budget)
 
 
 def hamiltonian_matrix(ham: Hamiltonian, basis: SectorBasis | None = None) -> sp.csr_matrix:
@@ -817,9 +806,9 @@ def _linear_operator(ham: Hamiltonian, basis: SectorBasis, matrix_free: bool | N
         need = work + (0 if matrix_free else csr_bytes)
         hint = "use matrix_free=True or " if not matrix_free else ""
         raise MemoryBudgetError(
-            f"the {basis.dim}-state sector needs about {_gib(need)} "
+            f"the {basis.dim}-state sector needs about {format_bytes(need)} "
             f"({'matrix-free' if matrix_free else 'CSR'}), "
-            f"over the budget of {_gib(budget)}; {hint}raise ExactOptions.memory_budget or shrink the lattice"
+            f"over the budget of {format_bytes(budget)}; {hint}raise ExactOptions.memory_budget or shrink the lattice"
         )
     if matrix_free:
         # the diagonal is stored (one vector): it would otherwise be most of the work per product
@@ -984,8 +973,8 @@ def ground_state(ham: Hamiltonian, *, num_states: int = 1, tol: float = 1e-10, s
         need = 3 * basis.dim**2 * np.dtype(ham.dtype).itemsize  # matrix, eigenvectors, LAPACK work
         if need > options.budget():
             raise MemoryBudgetError(
-                f"{num_states} of {basis.dim} states need a dense solve of about {_gib(need)}, over the "
-                f"budget of {_gib(options.budget())}; ask for at most {basis.dim - 2} states or raise it"
+                f"{num_states} of {basis.dim} states need a dense solve of about {format_bytes(need)}, over the "
+                f"budget of {format_bytes(options.budget())}; ask for at most {basis.dim - 2} states or raise it"
             )
         dense = hamiltonian_matrix(ham, basis).toarray()
         energies, vectors = np.linalg.eigh(dense)

@@ -26,7 +26,7 @@ from netprobe.errors import MemoryBudgetError, NetprobeError
 from netprobe.lattice import build_lattice
 from netprobe.mpo import build_mpo
 from netprobe.sites import count_sector_states
-from netprobe.rdm import default_memory_budget
+from netprobe.resources import default_memory_budget
 
 __all__ = [
     "ModelSize",

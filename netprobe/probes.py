@@ -39,6 +39,7 @@ import scipy.linalg
 
 from netprobe import rdm
 from netprobe.errors import LatticeError, NetprobeError
+from netprobe.resources import check_memory_budget
 from netprobe.sites import SiteSpace
 from netprobe.tensor import contract, diag_multiply, svd
 
@@ -355,6 +356,38 @@ def _modular_commutator_blocks(root: rdm.PartRoot, eps: float):
     return mc, np.asarray(s1.values) ** 2, np.asarray(s2.values) ** 2
 
 
+def _modular_commutator_rho_blocks(pb: rdm.PartBlocks, eps: float):
+    """J of a :class:`netprobe.rdm.PartBlocks` with parts (A, B, C): ``x = Tr(rho (K_AB x 1)(1 x K_BC))``.
+
+    ``K_AB`` and ``K_BC`` come from the eigendecompositions of the charge blocks of rho_AB and rho_BC
+    (small), and act on the blocks of rho_ABC block by block; also returns the AB and BC weights.
+    """
+    rho_ab, rho_bc = rdm.subset_rho(pb, (0, 1)), rdm.subset_rho(pb, (1, 2))
+    dec_ab, dec_bc = rho_ab.eigh(), rho_bc.eigh()
+    w_ab = np.concatenate([w for w, _ in dec_ab.values()]) if dec_ab else np.zeros(0)
+    w_bc = np.concatenate([w for w, _ in dec_bc.values()]) if dec_bc else np.zeros(0)
+    top_ab, top_bc = float(w_ab.max(initial=0.0)), float(w_bc.max(initial=0.0))
+    out = []
+    for floor in (eps, _LOOSE * eps):
+        ks, ranks = [], []
+        for dec, top, rho_x in ((dec_ab, top_ab, rho_ab), (dec_bc, top_bc, rho_bc)):
+            mats, rank = {}, 0
+            for u, (w, v) in dec.items():
+                f = _floor_factor(w, top, floor, 0)
+                rank += int(np.count_nonzero(f))
+                mats[u] = (v * f) @ v.conj().T
+            ks.append(rho_x.replaced(mats))
+            ranks.append(rank)
+        x = rdm.prefix_suffix_trace(pb, ks[0], ks[1])
+        out.append((-2.0 * float(np.imag(x)), ranks))
+    mc = ModularCommutator(out[0][0], out[1][0], eps, out[0][1][0], out[0][1][1])
+    return mc, _positive_descending(w_ab), _positive_descending(w_bc)
+
+
+def _positive_descending(w: np.ndarray) -> np.ndarray:
+    return np.sort(w[w > 0])[::-1]
+
+
 # --------------------------------------------------------------------------------------------------
 # The driver
 # --------------------------------------------------------------------------------------------------
@@ -483,7 +516,7 @@ def measure_probes(state, layout_parts, space: SiteSpace, *, probes: Sequence[st
     eps : float
         Kernel floor of the modular Hamiltonians (J is also reported at ``100 eps``).
     memory_budget : int, optional
-        Bytes; default :func:`netprobe.rdm.default_memory_budget`.
+        Bytes; default :func:`netprobe.resources.default_memory_budget`.
     method : {"auto", "root", "zipper", "split"}
         Route for an MPS (see :func:`netprobe.rdm.reduced_root`).
     renyi_orders : sequence of float
@@ -521,16 +554,6 @@ def measure_probes(state, layout_parts, space: SiteSpace, *, probes: Sequence[st
         parts = {n: parts[n] for n in _ABC}
     n_sites = _num_sites(state, space)
     names, lists, union = rdm.check_parts(parts, "measure_probes", num_sites=n_sites)
-    estimate = rdm.estimate_rdm_memory(state, union, space, method=method)
-    root = rdm.reduced_root(state, union, space, method=method, memory_budget=memory_budget)
-    # the probe stage holds Y, two SVDs (U and V each) and K_AB Y, K_BC Y: about eight copies of Y
-    rdm.check_memory_budget(8.0 * root.nbytes, memory_budget, f"probes on {len(union)} sites")
-    pr = rdm.part_root(root, dict(zip(names, lists)))
-    weights: dict[str, np.ndarray] = {}
-    mc = None
-    if "J" in probes:
-        mc, w_ab, w_bc = _modular_commutator_blocks(pr, eps)
-        weights["AB"], weights["BC"] = w_ab, w_bc
     wanted = []
     if "S" in probes:
         wanted += [(i,) for i in range(len(names))] + [tuple(range(len(names)))]
@@ -538,10 +561,12 @@ def measure_probes(state, layout_parts, space: SiteSpace, *, probes: Sequence[st
         wanted += [(0, 1), (1, 2), (1,), (0, 1, 2)]
     if "TEE" in probes:
         wanted += [(0,), (1,), (2,), (0, 1), (1, 2), (0, 2), (0, 1, 2)]
-    for keep in wanted:
-        label = "".join(names[i] for i in keep)
-        if label not in weights:
-            weights[label] = root.weights() if len(keep) == len(names) else rdm.subset_weights(pr, keep)
+    if rdm.rdm_route(state, union, space, method=method) == "split":
+        weights, mc, route, estimate = _probes_on_blocks(state, names, lists, union, space, probes, wanted, eps,
+                                                         memory_budget)
+    else:
+        weights, mc, route, estimate = _probes_on_root(state, names, lists, union, space, probes, wanted, eps,
+                                                       memory_budget, method)
     entropies = {k: entropy_from_weights(w) for k, w in weights.items()}
     renyi = {float(n): {k: renyi_from_weights(w, float(n)) for k, w in weights.items()} for n in renyi_orders}
     cmi = kp = None
@@ -551,8 +576,45 @@ def measure_probes(state, layout_parts, space: SiteSpace, *, probes: Sequence[st
     if "TEE" in probes:
         e = entropies
         kp = kitaev_preskill_combination(e["A"], e["B"], e["C"], e["AB"], e["BC"], e["AC"], e["ABC"])
-    return ProbeReport(dict(zip(names, lists)), root.route, entropies, renyi, cmi, kp, mc, estimate,
+    return ProbeReport(dict(zip(names, lists)), route, entropies, renyi, cmi, kp, mc, estimate,
                        time.perf_counter() - start)
+
+
+def _probes_on_root(state, names, lists, union, space, probes, wanted, eps, memory_budget, method):
+    """Weights and J from the square root of rho_ABC (vectors, the root and zipper routes)."""
+    estimate = rdm.estimate_rdm_memory(state, union, space, method=method)
+    root = rdm.reduced_root(state, union, space, method=method, memory_budget=memory_budget)
+    # the probe stage holds Y, two SVDs (U and V each) and K_AB Y, K_BC Y: about eight copies of Y
+    check_memory_budget(8.0 * root.nbytes, memory_budget, f"probes on {len(union)} sites")
+    pr = rdm.part_root(root, dict(zip(names, lists)))
+    weights: dict[str, np.ndarray] = {}
+    mc = None
+    if "J" in probes:
+        mc, w_ab, w_bc = _modular_commutator_blocks(pr, eps)
+        weights["AB"], weights["BC"] = w_ab, w_bc
+    for keep in wanted:
+        label = "".join(names[i] for i in keep)
+        if label not in weights:
+            weights[label] = root.weights() if len(keep) == len(names) else rdm.subset_weights(pr, keep)
+    return weights, mc, root.route, estimate
+
+
+def _probes_on_blocks(state, names, lists, union, space, probes, wanted, eps, memory_budget):
+    """Weights and J from the charge blocks of rho_ABC (the split route), never a dense rho or its root."""
+    estimate = rdm.estimate_blocks_memory(state, union, space)
+    check_memory_budget(estimate, memory_budget, f"probes on the charge blocks of {len(union)} sites")
+    blocked = rdm.reduced_blocks(state, union, space, method="split", memory_budget=memory_budget)
+    pb = rdm.part_blocks(blocked, dict(zip(names, lists)))
+    del blocked
+    weights: dict[str, np.ndarray] = {}
+    mc = None
+    if "J" in probes:
+        mc, weights["AB"], weights["BC"] = _modular_commutator_rho_blocks(pb, eps)
+    for keep in wanted:
+        label = "".join(names[i] for i in keep)
+        if label not in weights:
+            weights[label] = pb.weights() if len(keep) == len(names) else rdm.subset_rho(pb, keep).weights()
+    return weights, mc, pb.route, estimate
 
 
 def probe_state(state, layout_parts, space: SiteSpace, *, probes: Sequence[str] = ("S", "CMI", "J", "TEE"),

@@ -300,16 +300,20 @@ def test_noninteracting_haldane_j_equals_free_fermion_value():
 # ----------------------------------------------------------------------------------------------
 
 
-# the dense zipper (chi^2 d^(2m) entries) runs on the smaller layouts only, to stay quick
+# every registered MPS route (the split route computes the probes on the charge blocks of rho_ABC,
+# the others on its square root); the dense zipper (chi^2 d^(2m) entries) runs on the smaller layouts
+# only, to stay quick
 @pytest.mark.parametrize("name, overrides, parts, methods", [
     ("kagome_chiral", {}, KAGOME_PARTS, ("root", "split")),
     ("kagome_chiral", {}, {"A": [1, 7], "B": [3, 4], "C": [6, 10]}, ("root", "zipper", "split")),
     ("haldane", {"length": "3", "circumference": "2", "V": "1.0"},
-     {"A": [0, 4, 9], "B": [1, 5, 7], "C": [2, 3, 10]}, ("root",)),
+     {"A": [0, 4, 9], "B": [1, 5, 7], "C": [2, 3, 10]}, ("root", "split")),
     ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, {"A": [0, 9], "B": [2, 5], "C": [3, 7]},
-     ("root", "zipper")),
+     ("root", "zipper", "split")),
+    ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, {"A": [5, 6], "B": [0, 9], "C": [3, 10]},
+     ("root", "split")),  # parts interleaved out of MPS order: fermionic reordering of the blocks
     ("chern_square", {"length": "3", "circumference": "2"}, {"A": [0], "B": [2, 4], "C": [3]},
-     ("root", "zipper")),
+     ("root", "zipper", "split")),
 ])
 def test_mps_routes_give_the_same_probes_as_the_vector(name, overrides, parts, methods):
     model = load_model(name, overrides)
@@ -322,7 +326,9 @@ def test_mps_routes_give_the_same_probes_as_the_vector(name, overrides, parts, m
         for key, value in ref.entropies.items():
             assert abs(rep.entropies[key] - value) < 1e-10
         assert abs(rep.modular_commutator.value - ref.modular_commutator.value) < 1e-9
+        assert abs(rep.modular_commutator.value_loose - ref.modular_commutator.value_loose) < 1e-9
         assert abs(rep.cmi - ref.cmi) < 1e-10
+        assert abs(rep.kitaev_preskill - ref.kitaev_preskill) < 1e-10
 
 
 # ----------------------------------------------------------------------------------------------

@@ -1,11 +1,16 @@
 """Reduced density matrices of site sets: spins, fermions (Jordan-Wigner), dense vectors and MPS routes."""
 
 import itertools
+import math
 
 import numpy as np
 import pytest
 
-from netprobe import rdm
+from netprobe import rdm, resources
+from netprobe.rdm import root as root_route
+from netprobe.rdm import split as split_route
+from netprobe.rdm import tables as rdm_tables
+from netprobe.rdm import zipper as zipper_route
 from netprobe.errors import LatticeError, MemoryBudgetError, NetprobeError, SectorError
 from netprobe.exact import correlation, full_vector, ground_state, hamiltonian_matrix, sector_basis
 from netprobe.mps import random_state
@@ -286,21 +291,94 @@ def _mps_cases():
     ]
 
 
+def _mps_routes(state, sites, space):
+    """Every registered MPS route that applies (the registry itself, so a new route is crossed too)."""
+    return [name for name, route in rdm.ROUTES.items()
+            if name != "vector" and route.applies(state, tuple(sorted(sites)), space)]
+
+
 @pytest.mark.parametrize("name, overrides, sets", _mps_cases())
-def test_mps_routes_equal_the_dense_vector_route(name, overrides, sets):
+def test_every_mps_route_equals_the_dense_vector_route(name, overrides, sets):
     model = load_model(name, overrides)
     state = random_state(model.hamiltonian, bond_dimension=12, rng=7)
     psi = state.to_vector()
     for sites in sets:
         ref = rdm.reduced_density_matrix(psi, sites, model.space)
-        methods = ("zipper", "root") if model.space.fermionic else ("zipper", "root", "split")
-        for method in methods:
+        routes = _mps_routes(state, sites, model.space)
+        # the split route places the fermion parity strings: it applies to every case here
+        assert {"root", "zipper", "split"} <= set(routes), (name, routes)
+        w_ref = np.sort(np.linalg.eigvalsh(ref))[::-1]
+        for method in routes:
             rho = rdm.reduced_density_matrix(state, sites, model.space, method=method)
             # gauge-invariant matrices, rounding only (common practice)
             assert np.allclose(rho, ref, atol=tol(factor=1e4)), (name, sites, method)
-        w_root = rdm.reduced_root(state, sites, model.space, method="root").weights()
-        w_ref = np.sort(np.linalg.eigvalsh(ref))[::-1][: len(w_root)]
-        assert np.allclose(w_root, w_ref, atol=tol(factor=1e4))
+            root = rdm.reduced_root(state, sites, model.space, method=method)
+            assert root.route == rdm.ROUTES[method].label  # the route asked for is the route that ran
+            w = root.weights()
+            assert np.allclose(w, w_ref[: len(w)], atol=tol(factor=1e4)), (name, sites, method)
+            assert abs(w.sum() - 1) < tol(factor=1e4)
+
+
+def test_dense_output_runs_the_route_it_names(monkeypatch):
+    # Review finding: reduced_density_matrix(method="split") used to run the square-root walk. The
+    # budget check names the route, and a spy on the split walk records that it ran.
+    model = load_model("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"})
+    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
+    sites = [1, 2, 5, 9, 10]
+    ran = []
+    original = split_route.split_blocks
+
+    def spy(*args, **kwargs):
+        ran.append("split")
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(split_route, "split_blocks", spy)
+    rho = rdm.reduced_density_matrix(state, sites, model.space, method="split")
+    assert ran == ["split"]
+    assert rdm.rdm_route(state, sites, model.space, method="split", dense=True) == "split"
+    need = rdm.estimate_rdm_memory(state, sites, model.space, method="split", dense=True)
+    with pytest.raises(MemoryBudgetError, match="reduced_density_matrix: the split walk over 5 sites"):
+        rdm.reduced_density_matrix(state, sites, model.space, method="split", memory_budget=int(need) - 1)
+    # reference: the partial trace of the dense vector (common practice); rounding only
+    assert np.allclose(rho, rdm.reduced_density_matrix(state.to_vector(), sites, model.space),
+                       atol=tol(factor=1e4))
+
+
+def test_split_route_gives_the_fermionic_rho_of_a_free_fermion_ground_state():
+    # A DMRG ground state of free fermions (V = 0) on 8 sites, exact at bond dimension 16; the split
+    # route with parity strings against the correlation-matrix entropy (Peschel, J. Phys. A 36, L205
+    # (2003)), which the spin-basis partial trace misses for interleaved sets (design notes, section 6)
+    from netprobe.dmrg import SweepSettings, find_ground_state
+
+    model = load_model("haldane", {"length": "2", "circumference": "2", "V": "0.0", "phi": "pi/2"})
+    result = find_ground_state(model, SweepSettings(bond_dimension=16, max_sweeps=8), seed=3, progress=None)
+    g = filled_projector(single_particle_matrix(model), model.num_sites // 2)
+    psi = result.state.to_vector()
+    for sites in ([0, 3, 5], [1, 2, 6], [0, 2, 4, 7]):
+        assert rdm.rdm_route(result.state, sites, model.space, method="split") == "split"
+        root = rdm.reduced_root(result.state, sites, model.space, method="split")
+        assert root.route == "mps-split"
+        s_split = float(-np.sum(root.weights() * np.log(root.weights())))
+        s_true = peschel_entropy(g, sites)
+        # DMRG energy tolerance 1e-9 bounds the state error (as in the test below)
+        assert abs(s_split - s_true) < 1e-6
+        zipped = rdm.reduced_density_matrix(result.state, sites, model.space, method="zipper")
+        assert np.allclose(root.density_matrix(), zipped, atol=tol(factor=1e4))
+        if sites == [0, 3, 5]:
+            assert abs(entropy(spin_basis_rho(psi, model.num_sites, 2, sites)) - s_true) > 0.02
+
+
+def test_blocked_rho_holds_only_the_charge_blocks():
+    model = load_model("haldane", {"length": "3", "circumference": "2", "V": "1.0"})
+    state = random_state(model.hamiltonian, bond_dimension=12, rng=5)
+    sites = [0, 2, 3, 7, 9, 10]
+    blocks = rdm.reduced_blocks(state, sites, model.space)
+    ref = rdm.reduced_density_matrix(state.to_vector(), sites, model.space)
+    assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
+    # block sizes are the numbers of configurations of S with each (N, parity): binomials (common practice)
+    sizes = sorted(len(b.codes) for b in blocks.blocks)
+    assert sizes == sorted(math.comb(6, k) for k in range(7))
+    assert blocks.nbytes < ref.nbytes
 
 
 @pytest.mark.parametrize("name, overrides, sites", [
@@ -321,27 +399,23 @@ def test_split_walks_equal_the_dense_vector_route(name, overrides, sites):
     assert rdm.reduced_root(state, sites, model.space, method="split").route == "mps-split"
 
 
-def test_split_walks_refuse_fermions_and_stay_within_their_estimate():
-    model = load_model("haldane", {"length": "3", "circumference": "2", "V": "1.0"})
-    state = random_state(model.hamiltonian, bond_dimension=8, rng=1)
-    with pytest.raises(NetprobeError, match="method='split' does not place fermion parity strings"):
-        rdm.reduced_root(state, [0, 3, 5], model.space, method="split")
+def test_split_walks_stay_within_their_estimate():
     spins = load_model("heisenberg", {"lattice": "square", "circumference": "4", "length": "6"})
     state = random_state(spins.hamiltonian, bond_dimension=64, rng=2)
     sites = (5, 6, 9, 10, 13, 14, 17)
     estimate = rdm.estimate_rdm_memory(state, sites, spins.space, method="split")
     seen = []
-    original = rdm._WalkMeter.check
+    original = rdm_tables.WalkMeter.check
 
     def spy(meter, entries, site, width):
         seen.append(entries * meter.itemsize)
         return original(meter, entries, site, width)
 
-    rdm._WalkMeter.check = spy
+    rdm_tables.WalkMeter.check = spy
     try:
         rdm.reduced_root(state, sites, spins.space, method="split", memory_budget=2**40)
     finally:
-        rdm._WalkMeter.check = original
+        rdm_tables.WalkMeter.check = original
     # every step's own check (actual sizes) stays within the up-front estimate (exact sector counts)
     assert seen and max(seen) <= estimate * 1.0001
     with pytest.raises(MemoryBudgetError, match="split walk over 7 sites"):
@@ -426,12 +500,13 @@ def test_memory_refusal_happens_before_any_contraction(monkeypatch):
     def forbidden(*args, **kwargs):
         raise AssertionError("the contraction started before the budget check")
 
-    monkeypatch.setattr(rdm, "_root_from_mps", forbidden)
-    monkeypatch.setattr(rdm, "_rho_from_mps_zipper", forbidden)
-    for method in ("root", "zipper", "auto"):
-        with pytest.raises(MemoryBudgetError, match=r"would need about .* GiB, over the memory budget .*fewer"):
+    monkeypatch.setattr(root_route, "root_walk", forbidden)
+    monkeypatch.setattr(zipper_route, "zipper_rho", forbidden)
+    monkeypatch.setattr(split_route, "split_blocks", forbidden)
+    for method in ("root", "zipper", "split", "auto"):
+        with pytest.raises(MemoryBudgetError, match=r"would need about .* [KMG]iB, over the memory budget .*fewer"):
             rdm.reduced_root(state, [0, 3, 5, 6, 10], model.space, method=method, memory_budget=1000)
-    monkeypatch.setattr(rdm, "default_memory_budget", lambda: 1000)
+    monkeypatch.setattr(resources, "default_memory_budget", lambda: 1000)
     with pytest.raises(MemoryBudgetError, match="raise --memory-budget"):
         rdm.reduced_density_matrix(state, [0, 3, 5], model.space)
     with pytest.raises(MemoryBudgetError, match="memory budget"):
@@ -456,14 +531,14 @@ def test_walk_refuses_a_step_before_allocating_it(monkeypatch):
         return run
 
     for name in ("contract", "svd", "diag_multiply", "_fuse_open"):
-        monkeypatch.setattr(rdm, name, recording(name, getattr(rdm, name)))
+        monkeypatch.setattr(root_route, name, recording(name, getattr(root_route, name)))
     full = rdm.reduced_root(state, sites, model.space, method="root", memory_budget=2**40)
     done = list(calls)
     upfront = rdm.estimate_rdm_memory(state, sites, model.space, method="root")
     assert upfront < full.peak_estimate  # the case really needs the step checks
     budget = int((upfront + full.peak_estimate) / 2)
     calls.clear()
-    with pytest.raises(MemoryBudgetError, match=r"at site \d+ with e of width \d+, would need about .* GiB, "
+    with pytest.raises(MemoryBudgetError, match=r"at site \d+ with e of width \d+, would need about .* [KMG]iB, "
                                                 r"over the memory budget .*fewer sites"):
         rdm.reduced_root(state, sites, model.space, method="root", memory_budget=budget)
     # the refused walk is the start of the full one, stopped before it finished; none of its
@@ -502,7 +577,7 @@ def test_bad_site_sets_and_states_raise_clear_errors(rng):
         rdm.reduced_root(psi, [], SPIN)
     with pytest.raises(NetprobeError, match="length d\\*\\*N"):
         rdm.reduced_density_matrix(psi[:50], [0], SPIN)
-    with pytest.raises(NetprobeError, match="valid methods: auto, root, zipper"):
+    with pytest.raises(NetprobeError, match="valid methods: auto, vector, root, zipper, split"):
         rdm.reduced_root(psi, [0], SPIN, method="fast")
     mixed = _random_spin_vector(rng, 6)  # every occupation pattern, both parities
     with pytest.raises(SectorError, match="mixes fermion parities"):

@@ -36,7 +36,8 @@ from netprobe.errors import LatticeError, MemoryBudgetError, NetprobeError
 from netprobe.fitting import Fit, extrapolate_in_size, extrapolate_to_zero, least_squares_line
 from netprobe.pipeline.measure import measure
 from netprobe.probes import DEFAULT_EPS, c_minus_from_j
-from netprobe.rdm import default_memory_budget, estimate_rdm_memory
+from netprobe.rdm import estimate_rdm_memory
+from netprobe.resources import default_memory_budget
 from netprobe.region_ladders import RegionRung, linear_size, markov_series, region_ladder
 
 __all__ = ["CERTIFY_MULTIPLE", "GAMMA_CANDIDATES", "SizeEntry", "Assessment", "assess_model", "assess_states"]

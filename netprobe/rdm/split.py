@@ -1,0 +1,400 @@
+"""The split route: two double-layer walks that meet at one bond, joined into the charge blocks of rho.
+
+``G[O, b, O*, b*]`` runs from ``min S`` to a split point and the same walk on the mirrored chain from
+``max S`` back to the bond after it, each starting from the identity (the state is orthonormal towards
+the span from outside); traced sites are summed ket against bra, open sites fused into the open legs,
+block by block so that a step holds only its input and output. ``rho = sum_{b, b*} G_L G_R`` goes
+straight into the charge blocks of ``rho_S`` (never a dense ``d**m x d**m`` matrix), from which the
+square root comes by one eigendecomposition per block. The split point follows the first half of the
+open sites and the traced sites after them, so the largest steps run while nothing else is held.
+
+Fermions (design notes, section 6): on a traced site ``k`` the transfer uses ``F_k = (-1)^n_k`` on the
+ket wherever the combined ket + bra parity of the open legs on one side of ``k`` is odd. Each walk
+knows the open legs it has already fused, on its own side of ``k``: the left walk those left of
+``k``, the mirrored right walk those right of ``k``. For a state of definite parity the two sides
+give the same flag on every matrix element of ``rho_S`` (ket and bra parity of all of S agree), so
+both walks apply the rule with their own side. The flag is one bit per sector of the open leg, read
+off its charges, so the strings cost nothing; the route applies where the charges fix the parity of
+every open sector (:func:`split_applies`).
+
+Memory (:func:`split_estimate`, exact sector counts): the walks hold at most both layers, the join
+both layers, the blocks (``sum_Q n_Q**2`` entries, ``n_Q`` the configurations of S of charge Q) and a
+few copies of the largest product of two layer blocks; the square root then holds the blocks and one
+eigendecomposition.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from netprobe.rdm.common import BlockedRho, RootBlock, _grading_of, _labels
+from netprobe.rdm.root import UngradedParity
+from netprobe.rdm.tables import (
+    WalkMeter, _add, _bond_counts, _centred_copy, _fuse_tables, _pairs_by_charge, _parity_graded, _sector_parity,
+)
+from netprobe.tensor import BlockTensor, ChargeRule, Leg
+
+__all__ = ["split_applies", "split_estimate", "split_blocks", "block_sizes"]
+
+
+@dataclass
+class _OpenSide:
+    """Configuration codes and fermion parity (``None`` if mixed) of each sector of an open leg."""
+
+    codes: list
+    parity: list
+
+
+def _bond_identity(bond: Leg, rule: ChargeRule, dtype) -> BlockTensor:
+    """The start of a double-layer walk: ``G[O, b, O*, b*]``, identity on ``b``, one open state of charge 0.
+
+    ``b`` contracts with ``bond``, the left bond of the walk's first tensor.
+    """
+    zero = np.zeros((1, rule.k), np.int64)
+    blocks = {(0, sec, 0, sec): np.eye(int(n), dtype=dtype).reshape(1, int(n), 1, int(n))
+              for sec, n in enumerate(bond.dims.tolist())}
+    return BlockTensor((Leg(zero, [1], 1), bond.dual(), Leg(zero, [1], -1), bond), None, rule, blocks, dtype=dtype)
+
+
+def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, code_of, rule: ChargeRule):
+    """Sectors, placements, codes and parities of the open leg after one more site.
+
+    See :func:`_double_layer_step`; a sector whose pairs have different parities gets parity ``None``.
+    """
+    groups = _pairs_by_charge(o_leg, s_leg, rule)
+    charges = sorted(groups)
+    place, dims, codes, parity = {}, [], [], []
+    for n, q in enumerate(charges):
+        off, parts, pars = 0, [], set()
+        for so, ss in groups[q]:
+            size = int(o_leg.dims[so] * s_leg.dims[ss])
+            place[(so, ss)] = (n, off, size)
+            off += size
+            parts.append(code_of(np.asarray(side.codes[so], np.int64)[:, None],
+                                 np.asarray(phys.codes[ss], np.int64)[None, :]).ravel())
+            po, ps = side.parity[so], phys.parity[ss]
+            pars.add(None if po is None or ps is None else po ^ ps)
+        dims.append(off)
+        codes.append(np.concatenate(parts))
+        parity.append(pars.pop() if len(pars) == 1 else None)
+    leg = Leg(np.array(charges, np.int64).reshape(len(charges), rule.k), np.array(dims, np.int64), o_leg.direction)
+    return leg, place, _OpenSide(codes, parity)
+
+
+def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _OpenSide, phys: _OpenSide,
+                       code_of, fermionic: bool):
+    """``G'[O', c, O'*, c*] = sum A[b, s, c] G[O, b, O*, b*] conj(A[b*, s*, c*])``, one block pair at a time.
+
+    A traced site has ``s* = s`` summed and ``O' = O``; for fermions it carries ``F = (-1)^n`` on the
+    ket wherever the open parities of ``O`` and ``O*`` differ (the string rule, read off the sector
+    flags). An open site fuses ``(O, s)`` into ``O'`` (``O`` major) with codes
+    ``code_of(O codes, s codes)``. Working block by block keeps the memory at the input and the output
+    plus one product of blocks (no fused copies of the large tensor).
+    """
+    rule = g.rule
+    by_bond: dict = {}
+    for (b, ss, c), blk in a.blocks.items():
+        by_bond.setdefault(b, []).append((ss, c, blk))
+    if open_site:
+        o_leg, place, new_side = _fused_open_leg(g.legs[0], a.legs[1], side, phys, code_of, rule)
+    else:
+        o_leg, place, new_side = g.legs[0], None, side
+    legs = (o_leg, a.legs[2], o_leg.dual(), a.legs[2].dual())
+    out: dict = {}
+    for (o, b, ob, bb), blk in g.blocks.items():
+        kets = by_bond.get(b, ())
+        bras = by_bond.get(bb, ())
+        odd = False
+        if fermionic and not open_site:
+            po, pob = side.parity[o], side.parity[ob]
+            if po is None or pob is None:
+                raise UngradedParity
+            odd = bool(po ^ pob)
+        for ss, c, ka in kets:
+            half = np.tensordot(blk, ka, axes=([1], [0]))  # (x, y, z, s, c)
+            if odd and phys.parity[ss]:
+                half = np.negative(half, out=half)
+            for sb, cb, kb in bras:
+                if not open_site and sb != ss:
+                    continue
+                if open_site:
+                    part = np.tensordot(half, kb.conj(), axes=([2], [0]))  # (x, y, s, c, s*, c*)
+                    n, off, size = place[(o, ss)]
+                    nb, offb, sizeb = place[(ob, sb)]
+                    key = (n, c, nb, cb)
+                    shape = (int(o_leg.dims[n]), part.shape[3], int(o_leg.dims[nb]), part.shape[5])
+                    target = out.get(key)
+                    if target is None:
+                        target = out[key] = np.zeros(shape, part.dtype)
+                    x, y, sd, cd, sbd, cbd = part.shape
+                    target[off:off + size, :, offb:offb + sizeb, :] += part.transpose(0, 2, 3, 1, 4, 5).reshape(
+                        x * sd, cd, y * sbd, cbd)
+                else:
+                    part = np.tensordot(half, kb.conj(), axes=([2, 3], [0, 1]))  # (x, y, c, c*)
+                    key = (o, c, ob, cb)
+                    target = out.get(key)
+                    if target is None:
+                        out[key] = part.transpose(0, 2, 1, 3).copy()
+                    else:
+                        target += part.transpose(0, 2, 1, 3)
+    return BlockTensor(legs, None, rule, out, dtype=np.result_type(g.dtype, a.dtype)), new_side
+
+
+def _default_split(sites: tuple[int, ...]) -> int:
+    """The balanced split: the left walk takes the first half of the open sites and the traced sites after them."""
+    return sites[(len(sites) + 1) // 2] - 1 if len(sites) > 1 else sites[0]
+
+
+def _label_counts(space, conserve, m: int) -> dict:
+    """Grading label -> number of configurations of ``m`` sites with it (the block sizes of rho_S)."""
+    _, local, moduli = _grading_of(space, conserve)
+    if local.shape[1] == 0:
+        return {(): space.dim**m}
+    out = {tuple([0] * local.shape[1]): 1}
+    rows = [tuple(int(x) for x in r) for r in local.tolist()]
+    for _ in range(m):
+        new: dict = {}
+        for q, n in out.items():
+            for r in rows:
+                key = tuple((a + b) % mod if mod else a + b for a, b, mod in zip(q, r, moduli))
+                new[key] = new.get(key, 0) + n
+        out = new
+    return out
+
+
+def block_sizes(state, sites: tuple[int, ...]) -> list[int]:
+    """Sizes of the charge blocks of ``rho_S`` (configurations of S per grading label)."""
+    return list(_label_counts(state.basis.space, state.basis.conserve, len(sites)).values())
+
+
+def _open_tables(state, count: int) -> dict:
+    """Charge of the open leg after ``count`` open sites -> {parity: configurations} (parity 0 for bosons)."""
+    basis = state.basis
+    rule = basis.rule
+    par = np.asarray(basis.space.parity)[basis.order] if basis.space.fermionic else np.zeros(basis.dim, int)
+    phys = {}
+    for sec, (a, b) in enumerate(zip(basis.leg.offsets[:-1], basis.leg.offsets[1:])):
+        q = tuple(rule.reduce(np.asarray(basis.leg.charges[sec], np.int64)).tolist())
+        for p in np.unique(par[a:b]).tolist():
+            phys.setdefault(q, {})[int(p)] = phys.setdefault(q, {}).get(int(p), 0) + int(np.sum(par[a:b] == p))
+    out = {tuple(rule.zero().tolist()): {0: 1}}
+    for _ in range(count):
+        new: dict = {}
+        for q, pars in out.items():
+            for qs, spars in phys.items():
+                key = _add(q, qs, rule)
+                tgt = new.setdefault(key, {})
+                for p, n in pars.items():
+                    for ps, ns in spars.items():
+                        tgt[p ^ ps] = tgt.get(p ^ ps, 0) + n * ns
+        out = new
+    return out
+
+
+def split_applies(state, sites: tuple[int, ...]) -> bool:
+    """True for spin and boson spaces, and for fermions whose charges fix the parity of every open sector."""
+    if not state.basis.space.fermionic:
+        return True
+    if not _parity_graded(state.basis):
+        return False
+    return all(len(p) == 1 for count in range(len(sites) + 1) for p in _open_tables(state, count).values())
+
+
+def _plan(state, sites: tuple[int, ...]):
+    """The split point with the smallest exact peak of the walks and the join, with its sizes (entries).
+
+    Returns ``(m, walks_and_join, held, n_max, left, right)``: the last site of the left walk, the peak
+    of the two walks and the join at that split, the entries of the blocks of rho, the largest block
+    size, and the entries of the left layer after each site and of the right layer after each site of
+    the mirrored walk (what every step checks against the budget).
+    Every step of a walk holds its input and output layer (the right walk also ``G_L``); a layer
+    ``G[(O, b), (O*, b*)]`` has ``sum_Q n_Q**2`` entries, ``n_Q`` the (open configuration, bond state)
+    pairs of charge Q; the join holds both layers, the blocks and three copies of the largest product
+    of a left and a right layer block.
+    """
+    basis = state.basis
+    rule = basis.rule
+    zero = tuple(rule.zero().tolist())
+    lo, hi = sites[0], sites[-1]
+    t = state.tensors
+    opens = [{q: sum(p.values()) for q, p in _open_tables(state, c).items()} for c in range(len(sites) + 1)]
+
+    def layer(count: int, bond: Leg, sign: int) -> float:
+        table = {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}
+        return float(sum(n * n for n in _fuse_tables(opens[count], table, rule).values()))
+
+    def identity(bond: Leg) -> float:
+        return float(sum(int(n) ** 2 for n in bond.dims.tolist()))
+
+    left = {lo - 1: identity(t[lo].legs[0])}
+    for k in range(lo, hi + 1):
+        left[k] = layer(sum(1 for s in sites if s <= k), t[k].legs[2], 1)
+    right = {hi + 1: identity(t[hi].legs[2])}
+    for k in range(hi, lo, -1):
+        right[k] = layer(sum(1 for s in sites if s >= k), t[k - 1].legs[2], -1)
+    blocks = _label_counts(basis.space, basis.conserve, len(sites))
+    held = float(sum(n * n for n in blocks.values()))
+    n_max = float(max(blocks.values()))
+    default = _default_split(sites)
+    best = None
+    for m in range(lo, hi + 1) if len(sites) > 1 else [lo]:
+        k_left = sum(1 for s in sites if s <= m)
+        if not 0 < k_left < len(sites) and len(sites) > 1:
+            continue
+        walk_left = max(left[k - 1] + left[k] for k in range(lo, m + 1))
+        walk_right = max([left[m] + right[k + 1] + right[k] for k in range(m + 1, hi + 1)], default=0.0)
+        lsz, rsz = opens[k_left], opens[len(sites) - k_left]
+        part = 0.0
+        for ql, nl in lsz.items():
+            for ql2, nl2 in lsz.items():
+                for qr, nr in rsz.items():
+                    nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
+                    part = max(part, float(nl * nl2 * nr * nr2))
+        join = left[m] + right[m + 1] + held + 3.0 * part
+        peak = max(walk_left, walk_right, join)
+        key = (peak, abs(m - default))
+        if best is None or key < best[0]:
+            best = (key, m, peak)
+    return best[1], best[2], held, n_max, left, right
+
+
+def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float:
+    """Peak bytes of the split route, counted exactly from the charge sectors before the walk.
+
+    Parameters
+    ----------
+    state : MPS
+    sites : tuple of int
+    output : {"blocks", "root", "dense"}
+        What the route hands back: the charge blocks of rho, their square root (one
+        eigendecomposition per block on top of the blocks), or the dense ``d**m x d**m`` matrix
+        (assembled from the blocks).
+
+    Notes
+    -----
+    The walks and the join at the split point that minimises this peak (:func:`_plan`), then the
+    output stage, plus the row codes of the blocks.
+    """
+    item = np.dtype(state.dtype).itemsize
+    _, peak, held, n_max, _, _ = _plan(state, sites)
+    n_states = float(state.basis.dim) ** len(sites)
+    if output == "root":
+        # blocks, one eigendecomposition (copy of the block, eigenvectors, the scaled copy)
+        peak = max(peak, held + 3.0 * n_max * n_max)
+    elif output == "dense":
+        peak = max(peak, held + n_states * n_states)
+    return peak * item + 8.0 * n_states
+
+
+def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where: str = "reduced_root",
+                 estimate: float = 0.0) -> BlockedRho:
+    """The charge blocks of ``rho_S`` by two double-layer walks (module notes).
+
+    The left walk carries ``G_L[O_L, b, O_L*, b*]`` from the first site of the set to the split
+    point; the right walk is the same walk on the mirrored chain (every tensor read as
+    ``A[c, s, b]``) from the last site back to the bond after the split point. Outside the span the
+    state is orthonormal towards it, so both walks start from the identity, and
+    ``rho = sum_{b, b*} G_L[O_L, b, O_L*, b*] G_R[O_R, b, O_R*, b*]``, accumulated pair of blocks by pair
+    of blocks into the charge blocks of rho. Every walk step checks its allocation against the
+    budget first.
+
+    Raises
+    ------
+    UngradedParity
+        For a fermionic open sector of mixed parity (``split_applies`` rules this out up front).
+    """
+    basis = state.basis
+    rule = basis.rule
+    d = basis.dim
+    space = basis.space
+    fermionic = space.fermionic
+    bounds = list(zip(basis.leg.offsets[:-1], basis.leg.offsets[1:]))
+    blocked_parity = np.asarray(space.parity)[basis.order] if fermionic else np.zeros(basis.dim, np.int64)
+    phys = _OpenSide([np.asarray(basis.order[a:b], np.int64) for a, b in bounds],
+                     _sector_parity(blocked_parity, basis.leg.offsets))
+    lo, hi = sites[0], sites[-1]
+    m, _, _, _, sizes_left, sizes_right = _plan(state, sites)
+    meter = WalkMeter(budget, f"{where}: the split walk over {len(sites)} sites", np.dtype(state.dtype).itemsize)
+    st = _centred_copy(state, lo, hi)
+
+    def walk(start_bond, tensors, code_of, sizes, step, held: float):
+        g = _bond_identity(start_bond, rule, np.result_type(st.dtype, np.float64))
+        side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
+        for k, a in tensors:
+            is_open = k in sites
+            meter.check(held + sizes[k - step] + sizes[k], k, a.legs[2].dim)  # input and output layers
+            g, side = _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, opened),
+                                         fermionic)
+            opened += is_open
+        return g, side, opened
+
+    left = [(k, st.tensors[k]) for k in range(lo, m + 1)]
+    g_left, side_left, _ = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, sizes_left, 1, 0.0)
+    right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
+    g_right, side_right, k_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o,
+                                        sizes_right, -1, sizes_left[m])
+    del st, left, right
+    names, local, moduli = _grading_of(space, basis.conserve)
+    dtype = np.result_type(g_left.dtype, g_right.dtype)
+    shift = d**k_right
+    # rows of a block of rho: the (left sector, right sector) pairs of one total open charge, one
+    # after the other, so that every product of two layers lands in a contiguous sub-block
+    layout: dict = {}
+    for sl, ql in enumerate(g_left.legs[0].charges.tolist()):
+        for sr, qr in enumerate(g_right.legs[0].charges.tolist()):
+            layout.setdefault(_add(tuple(ql), tuple(qr), rule), []).append((sl, sr))
+    place, sizes = {}, {}
+    for total, pairs in layout.items():
+        off = 0
+        for sl, sr in pairs:
+            n = len(side_left.codes[sl]) * len(side_right.codes[sr])
+            place[(sl, sr)] = (total, off, n)
+            off += n
+        sizes[total] = off
+    left_groups: dict = {}
+    for (sl, bk, slb, bb), blk in g_left.blocks.items():
+        left_groups.setdefault((sl, slb), {})[(bk, bb)] = blk
+    right_groups: dict = {}
+    for (sr, bk, srb, bb), blk in g_right.blocks.items():
+        right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk
+    del g_left, g_right
+    mats: dict = {}
+    for (sl, slb), lefts in left_groups.items():
+        for (sr, srb), rights in right_groups.items():
+            total, r0, rn = place[(sl, sr)]
+            total_b, c0, cn = place[(slb, srb)]
+            if total != total_b:
+                continue  # a pair of charges that rho does not connect: zero by symmetry
+            part = None
+            for key, blk in lefts.items():
+                other = rights.get(key)
+                if other is None:
+                    continue
+                term = np.tensordot(blk, other, axes=([1, 3], [1, 3]))  # (O_L, O_L*, O_R, O_R*)
+                if part is None:
+                    part = term
+                else:
+                    part += term
+                del term
+            if part is None:
+                continue
+            target = mats.get(total)
+            if target is None:
+                target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
+            target[r0:r0 + rn, c0:c0 + cn] += part.transpose(0, 2, 1, 3).reshape(rn, cn)
+            del part
+    del left_groups, right_groups
+    trace = sum(float(np.trace(b).real) for b in mats.values())
+    powers = d ** np.arange(len(sites) - 1, -1, -1, dtype=np.int64)
+    blocks = []
+    for total in sorted(mats):
+        mat = mats.pop(total)
+        if trace > 0:
+            mat /= trace
+        codes = np.concatenate([(side_left.codes[sl][:, None] * shift + side_right.codes[sr][None, :]).ravel()
+                                for sl, sr in layout[total]])
+        label = _labels(local[(codes[0] // powers) % d].sum(axis=0, keepdims=True), moduli)[0]
+        blocks.append(RootBlock(tuple(int(x) for x in label), codes, mat))
+    return BlockedRho(tuple(sites), space, names, local, moduli, tuple(blocks), "mps-split", estimate)
