@@ -103,7 +103,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--eps", type=float, default=1e-12, metavar="EPS",
                    help="relative eigenvalue floor of the modular Hamiltonians (J is also shown at 100 EPS)")
     p.add_argument("--memory-budget", type=options.positive_gigabytes, default=None, metavar="GB",
-                   help="refuse reduced density matrices above this estimate (default a quarter of the memory)")
+                   help="refuse reduced density matrices above this estimate (default half the memory)")
     p.add_argument("--plot", metavar="FILE.png", help="draw the regions (and J against bond dimension)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_probe)
@@ -126,7 +126,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--eps", type=float, default=1e-12, metavar="EPS",
                    help="relative eigenvalue floor of the modular Hamiltonians (default 1e-12)")
     p.add_argument("--memory-budget", type=float, default=None, metavar="GB",
-                   help="leave out regions whose reduced state would exceed this (default a quarter of the memory)")
+                   help="leave out regions whose reduced state would exceed this (default half the memory)")
     p.add_argument("--plot", metavar="FILE.png", help="J, gamma, CMI against size with the fits; J against 1/D")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_assess)

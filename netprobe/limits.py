@@ -1,7 +1,7 @@
 """Size limits as estimates: what a request would need, checked before anything large is built.
 
 Every check estimates the bytes a stage would hold, compares them with the memory budget
-(:func:`netprobe.rdm.default_memory_budget`, a quarter of the physical memory, unless a budget is
+(:func:`netprobe.resources.default_memory_budget`, half the physical memory, unless a budget is
 given) and refuses with one line that carries the estimate and what to shrink.
 
 =======================  ======================================================================
