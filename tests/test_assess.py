@@ -167,3 +167,18 @@ def test_assess_refuses_when_no_region_fits():
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1 and "no three-sector region" in lines[0]
     assert "Traceback" not in proc.stderr
+
+
+def test_study_reports_assessed_c_minus_with_error(tmp_path):
+    # a real study (SQLite ledger, local worker process) with the assessment as a per-point probe;
+    # |C| = 1 in the Haldane phase (Haldane, PRL 61, 2015 (1988))
+    spec = tmp_path / "assess_sweep.toml"
+    spec.write_text('[study]\nname = "assess_sweep"\ndescription = "invented test sweep"\nmodel = "haldane"\n'
+                    'engine = "gaussian"\n\n[set]\nlength = 12\ncircumference = 12\nt2 = 0.3\n\n'
+                    '[grid]\nM = { values = [0.0] }\n\n[measure]\nprobes = ["assessed_c_minus"]\n\n'
+                    '[executor]\nworkers = 1\n')
+    run_cli("study", str(spec), "--out", str(tmp_path / "s"), check=True)
+    out = json.loads(run_cli("report", str(tmp_path / "s"), "--json", check=True).stdout)
+    values = out["points"][0]["values"]
+    assert abs(abs(values["assessed_c_minus"]) - 1.0) <= 0.02 + values["assessed_c_minus_error"]
+    assert 0 < values["assessed_c_minus_error"] <= 0.05

@@ -127,6 +127,11 @@ PROBES: Mapping[str, ProbeKind] = MappingProxyType(
             frozenset({"gaussian"}),
         ),
         "mean:OP": ProbeKind("mean of a local operator OP over the sites", "optional", _ALL),
+        "assessed_c_minus": ProbeKind(
+            "c- from a region-size ladder extrapolated to the infinite region, with its error "
+            "(netprobe assess; regions up to 100 sites for gaussian, 12 otherwise)", "none", _ALL),
+        "assessed_gamma": ProbeKind(
+            "gamma from the same region-size ladder, with its error", "none", _ALL),
     }
 )
 

@@ -444,7 +444,8 @@ def _line_plot(report: StudyReport, probe: str, out: Path, along: str, stem: str
         value = entry["values"].get(probe)
         if _finite(value):
             key = tuple(entry["parameters"].get(n) for n in others)
-            lines.setdefault(key, []).append((entry["parameters"][name], value))
+            error = entry["values"].get(f"{probe}_error")  # assessed probes carry their error bar
+            lines.setdefault(key, []).append((entry["parameters"][name], value, error if _finite(error) else 0.0))
     if not lines:
         return None
     fig = _figure()
@@ -453,13 +454,15 @@ def _line_plot(report: StudyReport, probe: str, out: Path, along: str, stem: str
         pts.sort()
         colour = _LINE[k % len(_LINE)]
         label = ", ".join(f"{n} = {v:g}" for n, v in zip(others, key)) or None
-        ax.plot(
+        ax.errorbar(
             [p[0] for p in pts],
             [p[1] for p in pts],
+            yerr=[p[2] for p in pts],
             color=colour,
             marker="o",
             markersize=3.5,
             linewidth=1.2,
+            capsize=2,
             label=label,
         )
         for b in report.boundaries.get(name, []):
@@ -626,6 +629,12 @@ def _fmt(value) -> str:
     return f"{value:.6g}"
 
 
+def _with_error(values: dict, probe: str) -> str:
+    error = values.get(f"{probe}_error")
+    text = _fmt(values.get(probe))
+    return f"{text} +- {error:.2g}" if _finite(error) else text
+
+
 def summary_lines(report: StudyReport) -> list[str]:
     """A short text summary: counts, one line per point, the transition estimates."""
     d = report.description
@@ -636,12 +645,12 @@ def summary_lines(report: StudyReport) -> list[str]:
     ]
     probes = [p.text for p in d.probes]
     width = max([len("point")] + [len(e["label"]) for e in report.points])
-    cols = [max(10, len(p)) for p in probes]
+    cols = [max(18 if p.startswith("assessed_") else 10, len(p)) for p in probes]
     lines.append(
         "  ".join([f"{'point':<{width}}"] + [f"{p:>{w}}" for p, w in zip(probes, cols)] + ["verdict"])
     )
     for entry, verdict in zip(report.points, report.verdicts):
-        cells = [f"{_fmt(entry['values'].get(p)):>{w}}" for p, w in zip(probes, cols)]
+        cells = [f"{_with_error(entry['values'], p):>{w}}" for p, w in zip(probes, cols)]
         status = verdict.status + (f" ({len(verdict.flags)} flag(s))" if verdict.flags else "")
         lines.append("  ".join([f"{entry['label']:<{width}}"] + cells + [status]))
     for name, found in report.boundaries.items():

@@ -26,6 +26,7 @@ import numpy as np
 from netprobe.dmrg import ConvergenceWarning, SweepSettings
 from netprobe.engines import GroundState, SolveSettings, ground_state
 from netprobe.errors import NetprobeError
+from netprobe.pipeline.assess import assess_states
 from netprobe.pipeline.measure import local_means, measure
 from netprobe.regions import parse_region
 from netprobe.store import load_state, save_state
@@ -84,6 +85,8 @@ def _abc(layout, text: str):
     return layout["A"], layout["B"], layout["C"]
 
 
+_ASSESS_SITES = {"gaussian": 100, "many-body": 12}  # free-fermion regions of 100 sites take seconds
+
 _REGISTRY_NAME = {"J": "J", "c_minus": "J", "cmi": "CMI", "gamma": "TEE", "entropy": "S",
                   "chern_number": "chern_number"}
 """Study probe name (as written in study files) -> the pipeline's probe (:data:`netprobe.pipeline.PROBES`)."""
@@ -116,8 +119,16 @@ def evaluate_probes(description: StudyDescription, ground: GroundState) -> dict:
     values = {region: measure(ground, layouts[region], probes=sorted(names)) for region, names in wanted.items()}
     means: dict[str, np.ndarray] = {}
     out: dict[str, float] = {}
+    assessment = None
     for probe in description.probes:
-        if probe.name == "energy":
+        if probe.name in ("assessed_c_minus", "assessed_gamma"):
+            if assessment is None:
+                assessment = assess_states([ground], max_sites=_ASSESS_SITES.get(ground.kind, 12))
+            key = probe.name.removeprefix("assessed_")
+            value, error = getattr(assessment, key), getattr(assessment, f"{key}_error")
+            out[probe.text] = math.nan if value is None else float(value)
+            out[f"{probe.text}_error"] = math.nan if error is None else float(error)
+        elif probe.name == "energy":
             out[probe.text] = float(ground.energy)
         elif probe.name == "energy_per_site":
             out[probe.text] = float(ground.energy) / model.num_sites
