@@ -114,6 +114,24 @@ class Assessment:
     model: Any = field(repr=False, default=None)
     notes: list = field(default_factory=list)
     seconds: float = 0.0
+    polarization: dict | None = None
+
+    def with_polarization(self, fit: dict) -> "Assessment":
+        """This assessment with the momentum-polarization c- of the cylinder cut beside it.
+
+        ``fit`` is the ``polarization`` object of ``netprobe edge --circumferences`` (vacuum sector:
+        ``c_minus``, ``c_minus_error``, defined mod 24). The two routes agree when they differ by at
+        most twice their combined error, after the polarization value is brought to the multiple of
+        24 nearest the bulk one.
+        """
+        c_pol, e_pol = fit.get("c_minus"), fit.get("c_minus_error")
+        entry = {"c_minus": c_pol, "c_minus_error": e_pol, "circumferences": fit.get("circumferences"),
+                 "agrees": None}
+        if c_pol is not None and self.c_minus is not None:
+            shifted = c_pol + 24 * round((self.c_minus - c_pol) / 24)
+            error = math.hypot(self.c_minus_error or 0.0, e_pol or 0.0)
+            entry.update(c_minus_nearest_bulk=shifted, agrees=bool(abs(shifted - self.c_minus) <= 2 * error))
+        return Assessment(**{**self.__dict__, "polarization": entry})
 
     @property
     def nearest(self) -> dict:
@@ -134,6 +152,8 @@ class Assessment:
                "certify_multiple": CERTIFY_MULTIPLE, "nearest": self.nearest,
                "sizes": [s.to_json() for s in self.sizes], "fits": self.fits, "markov": self.markov,
                "engine": self.engine, "notes": list(self.notes), "seconds": self.seconds}
+        if self.polarization is not None:
+            out["polarization"] = self.polarization
         if self.model is not None:
             out.update(model=self.model.name, sites=self.model.num_sites,
                        parameters=self.model.numeric_parameters())
