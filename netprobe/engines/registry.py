@@ -25,9 +25,10 @@ from pathlib import Path
 from typing import Any, Callable, Mapping, Protocol
 
 from netprobe.dmrg import LadderSettings, SweepSettings, run_ladder
-from netprobe.errors import NetprobeError
+from netprobe.errors import GaussianStateError, NetprobeError
 from netprobe.exact import ground_state as exact_ground_state
 from netprobe.gaussian import gaussian_state
+from netprobe.spec import build_model
 
 __all__ = ["GroundState", "SolveSettings", "Engine", "ENGINES", "get_engine", "solve", "ground_state"]
 
@@ -130,10 +131,43 @@ class GaussianEngine:
     name = "gaussian"
 
     def solve(self, model, settings, visit):
-        state = gaussian_state(model)
-        visit(GroundState("gaussian", "gaussian", state, float(state.energy), model,
-                          info={"state": type(state).__name__}))
-        return {"state": type(state).__name__}
+        info = {}
+        try:
+            state = gaussian_state(model)
+        except GaussianStateError as err:
+            retry = _twisted(model, settings, err)
+            if retry is None:
+                raise
+            model, info["note"] = retry
+            state = gaussian_state(model)
+        info["state"] = type(state).__name__
+        visit(GroundState("gaussian", "gaussian", state, float(state.energy), model, info=info))
+        return info
+
+
+_EDGE_TWIST = 0.3  # radians: lifts edge zero modes of circumferences up to ~20 by a level spacing of ~1e-2
+
+
+def _twisted(model, settings, err):
+    """The model with a small flux through the cylinder, when twist 0 leaves degenerate levels at E_F.
+
+    Edge modes of a chiral free-fermion state cross the Fermi level at allowed momenta of some
+    circumferences, so the Slater determinant is not unique; a flux of 0.3 rad shifts the momenta off
+    the crossing. Bulk probes of a gapped state change only by corrections exponentially small in the
+    circumference, and the note says what was done.
+    """
+    if "degenerate" not in str(err) or "twist" not in model.spec.parameters:
+        return None
+    if model.lattice.geometry != "cylinder" or float(model.parameters.get("twist", 0.0)) != 0.0:
+        return None
+    overrides = dict(settings.overrides) if settings.overrides is not None else {
+        k: str(v) for k, v in model.parameters.items()
+        if k in model.spec.parameters and isinstance(v, (int, float, str)) and not isinstance(v, bool)}
+    overrides["twist"] = repr(_EDGE_TWIST)
+    note = (f"the free-fermion ground state at twist 0 is degenerate (edge zero modes at the Fermi level); "
+            f"solved with twist = {_EDGE_TWIST} (a flux through the cylinder changes bulk probes of a gapped "
+            "state only by corrections exponentially small in the circumference)")
+    return build_model(model.spec, overrides), note
 
 
 class DmrgEngine:

@@ -339,7 +339,7 @@ def assess_states(grounds: Sequence[GroundState], *, max_sites: int = 15, placem
     certified_entries = [e for e in entries if e.certified]
     use_certified = len(certified_entries) >= 3
     used = certified_entries if use_certified else entries
-    notes = []
+    notes = [g.info["note"] for g in grounds[-1:] if g.info.get("note")]
     if not use_certified:
         notes.append("fewer than three certified sizes: the extrapolation uses every size and its error is at "
                      "least the distance from the largest region's value")
