@@ -25,6 +25,7 @@ import numpy as np
 from netprobe.dmrg.engine import ConvergenceWarning, DmrgEngine, SweepRecord, SweepSettings
 from netprobe.dmrg.progress import ProgressWriter
 from netprobe.errors import NetprobeError
+from netprobe.fitting import extrapolate_to_zero
 from netprobe.mpo import build_mpo
 from netprobe.mps import MPS, BlockMPO, SiteBasis, energy_variance, random_state
 from netprobe.store import damaged, load_state, remove_stale_temporaries, save_state
@@ -179,19 +180,6 @@ class Extrapolation:
         return asdict(self)
 
 
-def _line(w, e):
-    """Least-squares line ``e = c0 + c1 w``; returns (c0, c1, standard error of c0 or NaN)."""
-    design = np.column_stack([np.ones_like(w), w])
-    coef, *_ = np.linalg.lstsq(design, e, rcond=None)
-    dof = len(w) - 2
-    if dof <= 0:
-        return float(coef[0]), float(coef[1]), float("nan")
-    resid = e - design @ coef
-    sigma2 = float(resid @ resid) / dof
-    cov = sigma2 * np.linalg.inv(design.T @ design)
-    return float(coef[0]), float(coef[1]), float(np.sqrt(max(cov[0, 0], 0.0)))
-
-
 def extrapolate_energy(discarded_weights, energies) -> Extrapolation:
     """Linear extrapolation of the energy to zero discarded weight, with an error estimate.
 
@@ -230,21 +218,10 @@ def extrapolate_energy(discarded_weights, energies) -> Extrapolation:
     if len(w) < 2:
         raise NetprobeError(
             "extrapolate_energy: needs at least two stages; run a ladder of two or more bond dimensions")
-    if np.ptp(w) <= 1e-300 or np.ptp(w) <= 1e-12 * max(np.max(np.abs(w)), 1e-300):
-        e0 = float(e.min())
-        return Extrapolation(e0, float(np.max(np.abs(e - e0))), 0.0, len(w),
-                             "constant (equal discarded weights)")
-    e0, slope, se = _line(w, e)
-    order = np.argsort(w)
-    if len(w) == 2:
-        return Extrapolation(e0, abs(e0 - float(e[order[0]])), slope, 2, "line through two points")
-    pair = order[:2]
-    if np.ptp(w[pair]) > 0:
-        e0_pair = _line(w[pair], e[pair])[0]
-    else:
-        e0_pair = float(e[pair].mean())
-    error = max(se if math.isfinite(se) else 0.0, abs(e0 - e0_pair))
-    return Extrapolation(e0, error, slope, len(w), "least-squares line")
+    fit = extrapolate_to_zero(w, e, variable="the discarded weight")
+    method = {"constant": "constant (equal discarded weights)"}.get(fit.form) or (
+        "line through two points" if fit.points == 2 else "least-squares line")
+    return Extrapolation(fit.value, fit.error, fit.slope, fit.points, method)
 
 
 @dataclass(frozen=True, eq=False)

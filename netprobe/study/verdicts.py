@@ -16,48 +16,16 @@ The exact and Gaussian engines have one task per point and no ladder; their verd
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from typing import Mapping, Sequence
 
 import numpy as np
 
+from netprobe.fitting import Fit, extrapolate_to_zero
 from netprobe.study.description import StudyDescription
 from netprobe.study.ledger import TaskRow
 
 __all__ = ["Fit", "ProbeVerdict", "EnergyVerdict", "PointVerdict", "inverse_bond_fit", "point_verdict"]
-
-
-@dataclass(frozen=True)
-class Fit:
-    """An extrapolation to infinite bond dimension.
-
-    Attributes
-    ----------
-    value : float
-        Extrapolated value.
-    error : float
-    slope : float
-        Coefficient of 1/D.
-    method : str
-        The fit in words, with the bond dimensions used.
-
-    """
-
-    value: float
-    error: float
-    slope: float
-    method: str
-
-
-def _line(x: np.ndarray, y: np.ndarray):
-    design = np.column_stack([np.ones_like(x), x])
-    coef, *_ = np.linalg.lstsq(design, y, rcond=None)
-    dof = len(x) - 2
-    if dof <= 0:
-        return float(coef[0]), float(coef[1]), 0.0
-    resid = y - design @ coef
-    cov = float(resid @ resid) / dof * np.linalg.inv(design.T @ design)
-    return float(coef[0]), float(coef[1]), float(np.sqrt(max(cov[0, 0], 0.0)))
 
 
 def inverse_bond_fit(
@@ -92,13 +60,10 @@ def inverse_bond_fit(
     v = np.asarray(values, float)[-points:]
     if len(d) < 2:
         return None
-    x = 1.0 / d
     used = ",".join(str(int(c)) for c in d)
-    v_inf, slope, se = _line(x, v)
-    if len(d) == 2:
-        return Fit(v_inf, abs(v_inf - v[-1]), slope, f"line in 1/D through D={used}")
-    v_two = _line(x[-2:], v[-2:])[0]
-    return Fit(v_inf, max(se, abs(v_inf - v_two)), slope, f"least-squares line in 1/D over D={used}")
+    fit = extrapolate_to_zero(1.0 / d, v, variable="1/D")
+    method = (f"line in 1/D through D={used}" if len(d) == 2 else f"least-squares line in 1/D over D={used}")
+    return replace(fit, method=method)
 
 
 @dataclass(frozen=True)
