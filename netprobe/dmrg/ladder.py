@@ -13,7 +13,6 @@ its ``bit_generator.state`` is saved as JSON text in each checkpoint.
 
 from __future__ import annotations
 
-import math
 import numbers
 import time
 import warnings
