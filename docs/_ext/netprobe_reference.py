@@ -250,18 +250,37 @@ def layout_parameters(builder) -> list[tuple[str, object]]:
 
 
 def _parameter_docs(builder) -> dict:
-    from numpydoc.docscrape import FunctionDoc
-
+    try:
+        from numpydoc.docscrape import FunctionDoc
+    except ImportError:  # without the docs extra the reference lacks only the parameter descriptions
+        return {}
     try:
         doc = FunctionDoc(builder)
     except Exception:  # a malformed docstring leaves the descriptions empty, not the build broken
         return {}
-    return {p.name.strip(): " ".join(p.desc).strip() for p in doc["Parameters"]}
+    out = {}
+    for p in doc["Parameters"]:  # "inner, outer" documents two parameters
+        for name in p.name.split(","):
+            out[name.strip()] = " ".join(p.desc).strip()
+    return out
+
+
+def layout_parameter_docs(layouts) -> dict:
+    """kind -> parameter -> description; a parameter left undescribed by its builder takes the description
+    that another builder gives to the same name (``center``, ``radius``)."""
+    docs = {kind: _parameter_docs(builder) for kind, builder in layouts.items()}
+    pool = {}
+    for entries in docs.values():
+        for name, desc in entries.items():
+            pool.setdefault(name, desc) if desc else None
+    return {kind: {name: entries.get(name) or pool.get(name, "") for name, _ in layout_parameters(layouts[kind])}
+            for kind, entries in docs.items()}
 
 
 def regions_rst() -> str:
     module, layouts = find_attribute("LAYOUTS", _REGIONS)
     syntax = vars(module).get("SYNTAX", {})
+    all_docs = layout_parameter_docs(layouts)
     out = title("Region layouts")
     out += [f"Generated from the layout registry of ``{module.__name__}``. The command-line form is "
             "``kind:key=value,key=value`` (``--region`` of ``probe``, ``--layout`` of ``regions``, ``region`` in "
@@ -272,7 +291,7 @@ def regions_rst() -> str:
         out += [text(summary), ""]
         if kind in syntax:
             out += ["Syntax: " + lit(syntax[kind]), ""]
-        docs = _parameter_docs(builder)
+        docs = all_docs[kind]
         rows = []
         for name, default in layout_parameters(builder):
             shown = "required" if default is inspect.Parameter.empty else lit(repr(default))
