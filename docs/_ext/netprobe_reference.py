@@ -288,14 +288,14 @@ def regions_rst() -> str:
     for kind, builder in layouts.items():
         out += title(kind, "-")
         summary = (inspect.getdoc(builder) or "").split("\n\n")[0].replace("\n", " ")
-        out += [text(summary), ""]
+        out += [summary, ""]  # docstring text is reStructuredText already
         if kind in syntax:
             out += ["Syntax: " + lit(syntax[kind]), ""]
         docs = all_docs[kind]
         rows = []
         for name, default in layout_parameters(builder):
             shown = "required" if default is inspect.Parameter.empty else lit(repr(default))
-            rows.append([lit(name), shown, text(docs.get(name, ""))])
+            rows.append([lit(name), shown, docs.get(name, "")])
         out += list_table(["parameter", "default", "meaning"], rows, "15 15 70")
     return "\n".join(out) + "\n"
 
