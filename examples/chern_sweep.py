@@ -9,7 +9,7 @@ length. The scenario is invented; the model and the expectations are published (
 Phys. Rev. B 74, 085308 (2006): |C| = 1 for 0 < |m| < 2, C = 0 for |m| > 2).
 
 Run:  python examples/chern_sweep.py FOLDER [--small]
-Writes FOLDER/chern_sweep.png and prints one line per mass. Uses the free-fermion engine (seconds).
+Writes FOLDER/chern_sweep.png and prints one line per mass. Uses the free-fermion engine (about 30 s of CPU; --small a few seconds).
 """
 
 import argparse
