@@ -17,8 +17,8 @@ both limits and shows them:
 Error bar of c- = 3 J_inf / pi (and of gamma): the fit error, the spread between the two forms, the
 spread between placements at the largest sizes and the bond-dimension error, added in quadrature.
 
-Verdict: ``chiral`` (J of one sign at every size, |J| growing towards its limit, c- nonzero beyond
-three error bars), ``non-chiral`` (c- within three error bars of 0 and |J| falling or negligible),
+Verdict: ``chiral`` (J of one sign at every size, ``|J|`` growing towards its limit, c- nonzero beyond
+three error bars), ``non-chiral`` (c- within three error bars of 0 and ``|J|`` falling or negligible),
 or ``inconclusive`` with the reason in words.
 """
 
@@ -45,7 +45,7 @@ __all__ = ["CERTIFY_MULTIPLE", "GAMMA_CANDIDATES", "SizeEntry", "Assessment", "a
 CERTIFY_MULTIPLE = 5.0
 """A size is certified when its linear size is at least this many Markov lengths. Calibrated with the
 free-fermion engine on 24 x 24 cylinders (Haldane t2 = 0.3: xi_M = 0.75; square Chern insulator m = 1,
-twist 0.3: xi_M about 0.4-0.5, in nearest-neighbour lengths): from five Markov lengths on, |J|/(pi/3) is
+twist 0.3: xi_M about 0.4-0.5, in nearest-neighbour lengths): from five Markov lengths on, ``|J|/(pi/3)`` is
 above 0.94 and its corrections fall exponentially, so that size fits over certified sizes alone land
 within 0.5% of 1 with errors of about 1%; at three Markov lengths they do not yet."""
 
