@@ -370,7 +370,12 @@ def assess_states(grounds: Sequence[GroundState], *, max_sites: int = 15, placem
 def assess_model(model, *, engine: str = "dmrg", settings: SolveSettings | None = None, max_sites: int = 15,
                  placements: int = 3, eps: float = DEFAULT_EPS, memory_budget: int | None = None,
                  progress=None) -> Assessment:
-    """Ground state(s) of ``model`` by ``engine``, then :func:`assess_states`."""
+    """Ground state(s) of ``model`` by ``engine``, then :func:`assess_states`.
+
+    The region ladder is checked before the ground state is sought, so that a lattice on which no
+    region fits is refused at once.
+    """
+    region_ladder(model.lattice, max_sites=max_sites, placements=placements)
     grounds, _ = solve(model, engine, settings)
     return assess_states(grounds, max_sites=max_sites, placements=placements, eps=eps,
                          memory_budget=memory_budget, progress=progress)
