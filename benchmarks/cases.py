@@ -131,8 +131,8 @@ def matvec_rate(ctx: Context) -> list[Figure]:
 
 def symmetry_gain(ctx: Context) -> list[Figure]:
     """Time of one sweep with U(1) charges vs without, from the same state, width-6 cylinder."""
-    from netprobe.dmrg.engine import DmrgEngine
-    from netprobe.mpo import build_mpo
+    from netprobe.engines.dmrg.engine import DmrgEngine
+    from netprobe.engines.mps.mpo import build_mpo
 
     chi = 128 if ctx.quick else 512
     state = ctx.ladder(chi).states[chi]
@@ -177,9 +177,9 @@ def _efficiency_sweep(ctx: Context, engine, name: str):
 
 def kagome_efficiency(ctx: Context) -> list[Figure]:
     """Sweep efficiency (matvec flops at the GEMM rate / wall time) on the width-6 kagome chiral cylinder."""
-    from netprobe.dmrg.engine import DmrgEngine
-    from netprobe.mpo import build_mpo
-    from netprobe.mps import random_state
+    from netprobe.engines.dmrg.engine import DmrgEngine
+    from netprobe.engines.mps.mpo import build_mpo
+    from netprobe.engines.mps import random_state
 
     ham = wl.kagome_cylinder()
     mpo = build_mpo(ham)
@@ -208,7 +208,7 @@ def kagome_efficiency(ctx: Context) -> list[Figure]:
 
 
 def _exact_time(ham) -> tuple[float, float, str, int]:
-    from netprobe.exact import ground_state
+    from netprobe.engines.exact import ground_state
 
     start = time.perf_counter()
     result = ground_state(ham, tol=1e-8)
@@ -218,9 +218,9 @@ def _exact_time(ham) -> tuple[float, float, str, int]:
 
 def _dmrg_time_to(ham, exact_energy: float, relative: float) -> tuple[float, float, int, int]:
     """Seconds until a sweep's energy is within ``relative`` of the exact one (default ramp to 512)."""
-    from netprobe.dmrg.engine import DmrgEngine, SweepSettings
-    from netprobe.mpo import build_mpo
-    from netprobe.mps import random_state
+    from netprobe.engines.dmrg.engine import DmrgEngine, SweepSettings
+    from netprobe.engines.mps.mpo import build_mpo
+    from netprobe.engines.mps import random_state
 
     settings = SweepSettings(bond_dimension=512, max_sweeps=30, noise=1e-5, noise_sweeps=1,
                              energy_tolerance=1e-12, discarded_tolerance=0.0 + 1e-12)
@@ -237,7 +237,7 @@ def _dmrg_time_to(ham, exact_energy: float, relative: float) -> tuple[float, flo
 def exact_crossover(ctx: Context) -> list[Figure]:
     """Time to 1e-6 relative energy error: exact engine vs DMRG, width-4 Heisenberg cylinders."""
     from netprobe.errors import MemoryBudgetError
-    from netprobe.exact import ground_state
+    from netprobe.engines.exact import ground_state
 
     lengths = (4, 5, 6) if ctx.quick else (4, 5, 6, 7)
     ground_state(wl.heisenberg_cylinder(4, 2))  # compile the numba kernels outside the timing
@@ -315,7 +315,7 @@ def _run_measured(args: list[str]) -> tuple[dict, float, int]:
 
 def rdm_and_j(ctx: Context) -> list[Figure]:
     """Time and peak memory of the reduced state and J of 10, 12, 14 sites from a D=512 state."""
-    from netprobe.store import save_state
+    from netprobe.engines.mps.store import save_state
 
     state = ctx.ladder(512).states[512]
     path = ctx.scratch / "heisenberg_w6_L6_D512.h5"
@@ -369,7 +369,7 @@ def large_regions(ctx: Context) -> list[Figure]:
     the charge sectors of the bonds, not on the entanglement), except the square cylinder of the full
     set, which uses the D = 512 ground state of the ladder.
     """
-    from netprobe.store import save_state
+    from netprobe.engines.mps.store import save_state
 
     kagome = ["--model", "kagome_chiral", "--set", "length=6", "--set", "circumference=3"]
     haldane = ["--model", "haldane", "--set", "length=8", "--set", "circumference=3"]
@@ -435,8 +435,8 @@ def _sectors_of_size(lattice, size: int):
 
 def free_fermions(ctx: Context) -> list[Figure]:
     """J and the real-space Chern number of Haldane-model disks of about 100, 400 and 1600 sites."""
-    from netprobe.gaussian import GaussianOptions, gaussian_state
-    from netprobe.spec import load_model
+    from netprobe.engines.gaussian import GaussianOptions, gaussian_state
+    from netprobe.model.spec import load_model
 
     # 44 x 36 zigzag cells (3168 sites) hold a 1600-site disk with margins of several bonds; the twist
     # of 1 rad keeps the two edge modes of the cylinder away from zero energy (a unique ground state).
@@ -537,10 +537,10 @@ def _bond_rank(ham) -> int:
 
 def mpo_compression(ctx: Context) -> list[Figure]:
     """MPO bond dimension against rank + 2, and the DMRG sweep speed-up of the compressed kagome MPO."""
-    from netprobe.dmrg.engine import DmrgEngine
-    from netprobe.mpo import build_mpo
-    from netprobe.mps import random_state
-    from netprobe.spec import build_model, load_model, parse_spec
+    from netprobe.engines.dmrg.engine import DmrgEngine
+    from netprobe.engines.mps.mpo import build_mpo
+    from netprobe.engines.mps import random_state
+    from netprobe.model.spec import build_model, load_model, parse_spec
 
     figures = []
     biquadratic = " + ".join(f"S{a}.S{b} S{a}.S{b}" for a in "xyz" for b in "xyz")

@@ -41,7 +41,7 @@ def _peak_rss() -> int:
 
 def main(argv=None) -> int:
     from netprobe.probes import measure_probes
-    from netprobe.store import load_state
+    from netprobe.engines.mps.store import load_state
     from benchmarks.workloads import heisenberg_cylinder
 
     path, n = argv or sys.argv[1:]

@@ -31,10 +31,10 @@ def _rss(key: str) -> int:
 
 def main(argv=None) -> int:
     from benchmarks.rdm_probe import disk_parts
-    from netprobe.mps import MPS, random_state
+    from netprobe.engines.mps import MPS, random_state
     from netprobe.probes import measure_probes
-    from netprobe.spec import load_model
-    from netprobe.store import load_state
+    from netprobe.model.spec import load_model
+    from netprobe.engines.mps.store import load_state
 
     p = argparse.ArgumentParser(prog="python -m benchmarks.rdm_regions")
     p.add_argument("--model", required=True)

@@ -21,9 +21,9 @@ __all__ = ["main"]
 
 
 def main(argv=None) -> None:
-    from netprobe.dmrg.engine import DmrgEngine
-    from netprobe.mpo import build_mpo
-    from netprobe.mps import random_state
+    from netprobe.engines.dmrg.engine import DmrgEngine
+    from netprobe.engines.mps.mpo import build_mpo
+    from netprobe.engines.mps import random_state
 
     parser = argparse.ArgumentParser(prog="python -m benchmarks.sweep_profile")
     parser.add_argument("model", choices=("square", "kagome"))

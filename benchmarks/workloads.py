@@ -13,13 +13,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from netprobe.dmrg.effective import TwoSiteHamiltonian
-from netprobe.dmrg.engine import DmrgEngine, SweepSettings
-from netprobe.mpo import build_mpo
-from netprobe.mps import MPS, SiteBasis
-from netprobe.spec import load_model
+from netprobe.engines.dmrg.effective import TwoSiteHamiltonian
+from netprobe.engines.dmrg.engine import DmrgEngine, SweepSettings
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.engines.mps import MPS, SiteBasis
+from netprobe.model.spec import load_model
 from netprobe.tensor import BlockLayout, BlockTensor, ChargeRule, Leg, contract
-from netprobe.terms import Hamiltonian
+from netprobe.model.terms import Hamiltonian
 
 __all__ = ["heisenberg_cylinder", "kagome_cylinder", "without_charges_of", "without_charges", "dense_copy", "dense_operator", "LadderRun", "run_ladder_timed",
            "central_operator", "sweep_settings"]
@@ -107,7 +107,7 @@ def run_ladder_timed(ham: Hamiltonian, bond_dimensions, *, log=print, start: MPS
     ``timed`` (default: every rung) lists the rungs that get the timed second sweep; the others
     only grow.
     """
-    from netprobe.mps import random_state
+    from netprobe.engines.mps import random_state
 
     run = previous or LadderRun()
     mpo = build_mpo(ham)

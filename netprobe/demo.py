@@ -32,13 +32,13 @@ from pathlib import Path
 
 import numpy as np
 
-from netprobe.dmrg import ConvergenceWarning, SweepSettings
+from netprobe.engines.dmrg import ConvergenceWarning, SweepSettings
 from netprobe.engines import SolveSettings, solve
 from netprobe.errors import NetprobeError
 from netprobe.pipeline import probe_model
 from netprobe.pipeline.assess import assess_states
-from netprobe.plots import plot_assessment
-from netprobe.spec import load_model
+from netprobe.output.plots import plot_assessment
+from netprobe.model.spec import load_model
 
 __all__ = ["main", "run_demo"]
 
@@ -98,7 +98,7 @@ def _ladders(stream) -> list[dict]:
 
 
 def _flux(stream) -> dict:
-    from netprobe.flux import thread_flux
+    from netprobe.pipeline.flux import thread_flux
 
     _log(stream, f"flux threading at M = 0 (V = {V_INTERACTING}): 6 steps of the twist from 0 to 2 pi")
     result = thread_flux("haldane", {"t2": str(T2), "M": "0", "V": str(V_INTERACTING), **CYLINDER}, steps=6,
@@ -212,7 +212,7 @@ def _plots(out: Path, rows, ladders, flux, predicted):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    from netprobe.plots import PART_COLOURS, plot_flux
+    from netprobe.output.plots import PART_COLOURS, plot_flux
 
     fig = Figure(figsize=(5.6, 3.6), dpi=120)
     FigureCanvasAgg(fig)

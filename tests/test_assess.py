@@ -18,8 +18,8 @@ from conftest import run_cli
 from netprobe.engines import SolveSettings, solve
 from netprobe.fitting import extrapolate_in_size, extrapolate_to_zero
 from netprobe.pipeline.assess import assess_states
-from netprobe.region_ladders import markov_series, region_ladder
-from netprobe.spec import load_model
+from netprobe.regions.ladders import markov_series, region_ladder
+from netprobe.model.spec import load_model
 
 KEYS = ("c_minus", "c_minus_error", "gamma", "gamma_error", "verdict", "reason", "certified", "markov_length",
         "sizes", "fits")
@@ -139,7 +139,7 @@ def test_toric_code_gamma_ln2_at_every_size_and_not_chiral():
     # Kitaev and Preskill, PRL 96, 110404 (2006): gamma = ln 2 for the toric code, exact for any region
     # large enough (zero correlation length); J = 0 for a state real in a product basis
     # (shared/references.md, exact properties of J)
-    from netprobe.dmrg import SweepSettings, find_ground_state
+    from netprobe.engines.dmrg import SweepSettings, find_ground_state
     from netprobe.engines import GroundState
 
     model = load_model("toric_code", {"length": "5", "circumference": "4"})

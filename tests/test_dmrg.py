@@ -12,17 +12,17 @@ import numpy as np
 import pytest
 import scipy.linalg
 
-from netprobe import exact
-from netprobe.dmrg import (CHECKPOINT_NAME, EIGENSOLVERS, ConvergenceWarning, DmrgEngine, LadderSettings,
+from netprobe.engines import exact
+from netprobe.engines.dmrg import (CHECKPOINT_NAME, EIGENSOLVERS, ConvergenceWarning, DmrgEngine, LadderSettings,
                            SweepSettings, extrapolate_energy, find_ground_state, resume_ladder, run_ladder,
                            stage_file_name)
-from netprobe.dmrg.engine import LOCAL_UPDATES
-from netprobe.dmrg.solvers import lanczos_lowest
+from netprobe.engines.dmrg.engine import LOCAL_UPDATES
+from netprobe.engines.dmrg.solvers import lanczos_lowest
 from netprobe.errors import NetprobeError, SectorError
-from netprobe.mpo import build_mpo
-from netprobe.mps import entanglement_entropies, expectation_value, random_state
-from netprobe.spec import load_model
-from netprobe.store import load_state
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.engines.mps import entanglement_entropies, expectation_value, random_state
+from netprobe.model.spec import load_model
+from netprobe.engines.mps.store import load_state
 
 # Catalogue of small cases with a trusted reference (our exact engine), tagged by what they exercise.
 EXACT_CASES = {
@@ -375,10 +375,10 @@ def test_bad_input_raises_our_errors(tmp_path):
 
 def test_one_block_fast_path_equals_the_block_contractions_and_the_exact_energy():
     # charges switched off: every tensor is one dense block and the matvec takes the fast path
-    from netprobe.dmrg.effective import TwoSiteHamiltonian
-    from netprobe.mps import BlockMPO
+    from netprobe.engines.dmrg.effective import TwoSiteHamiltonian
+    from netprobe.engines.mps import BlockMPO
     from netprobe.tensor import BlockLayout, contract
-    from netprobe.terms import Hamiltonian
+    from netprobe.model.terms import Hamiltonian
 
     charged = load_model("kagome_chiral", {}).hamiltonian  # complex couplings
     ham = Hamiltonian(charged.lattice, charged.space, charged.products, conserve=(), sector={})
@@ -390,7 +390,7 @@ def test_one_block_fast_path_equals_the_block_contractions_and_the_exact_energy(
     mpo = BlockMPO.from_mpo(build_mpo(ham), state.basis)
     state.move_centre(5)
     left = [None] * 7
-    from netprobe.mps import left_boundary, left_environment_step, right_boundary, right_environment_step
+    from netprobe.engines.mps import left_boundary, left_environment_step, right_boundary, right_environment_step
     left[0] = left_boundary(state, mpo)
     for i in range(5):
         left[i + 1] = left_environment_step(left[i], state.tensors[i], mpo.tensors[i])

@@ -10,11 +10,11 @@ parts interleave in the MPS order.
 import numpy as np
 import pytest
 
-from netprobe.dmrg import SweepSettings, find_ground_state
-from netprobe.exact import ground_state
-from netprobe.gaussian import FreeFermionState
+from netprobe.engines.dmrg import SweepSettings, find_ground_state
+from netprobe.engines.exact import ground_state
+from netprobe.engines.gaussian import FreeFermionState
 from netprobe.probes import measure_probes
-from netprobe.spec import load_model
+from netprobe.model.spec import load_model
 
 OVERRIDES = {"length": "4", "circumference": "2", "V": "0", "phi": "pi/2", "t2": "0.3", "M": "0.2"}
 

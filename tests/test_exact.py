@@ -16,9 +16,9 @@ import pytest
 import scipy.sparse as sp
 from scipy.special import comb
 
-from netprobe import expr
+from netprobe.model import expr
 from netprobe.errors import HermiticityError, MemoryBudgetError, OperatorError, SectorError, SpecError
-from netprobe.exact import (
+from netprobe.engines.exact import (
     ExactOptions,
     SectorBasis,
     correlation,
@@ -31,10 +31,10 @@ from netprobe.exact import (
     operator_matrix,
     sector_basis,
 )
-from netprobe.lattice import build_lattice
-from netprobe.sites import site_space
-from netprobe.spec import build_model, load_model, load_spec, parse_spec
-from netprobe.terms import Hamiltonian, Term
+from netprobe.model.lattice import build_lattice
+from netprobe.model.sites import site_space
+from netprobe.model.spec import build_model, load_model, load_spec, parse_spec
+from netprobe.model.terms import Hamiltonian, Term
 
 DENSE_TOL = 1e-11  # LAPACK on matrices of norm <~ 30: 1e3 ulps of the norm (common practice)
 LANCZOS_TOL = 1e-8  # ARPACK at tol=1e-10 relative on |E0| <~ 20
@@ -442,7 +442,7 @@ def test_measurements_against_the_full_vector():
 
 
 def _single_site_products(model, name, site):
-    from netprobe.terms import normal_form
+    from netprobe.model.terms import normal_form
     return [normal_form(Term(1.0, ((site, name),)), model.space)]
 
 
@@ -487,7 +487,7 @@ def test_binary_search_lookup_matches_rank_tables(monkeypatch):
     model = build_model(parse_spec(HOPPING), {"Nf": "3"})
     ham = model.hamiltonian
     with_tables = hamiltonian_matrix(ham).toarray()
-    monkeypatch.setattr("netprobe.exact._TABLE_LIMIT", 0)  # force the fallback for every basis
+    monkeypatch.setattr("netprobe.engines.exact._TABLE_LIMIT", 0)  # force the fallback for every basis
     basis = sector_basis(ham)
     assert basis.lookup_tables()[3] is False
     np.testing.assert_array_equal(hamiltonian_matrix(ham, basis).toarray(), with_tables)

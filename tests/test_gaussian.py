@@ -19,9 +19,9 @@ import numpy as np
 import pytest
 from conftest import dense_from_products, kron_all, tol
 
-from netprobe import exact
+from netprobe.engines import exact
 from netprobe.errors import GaussianStateError, LatticeError, NetprobeError, NotQuadraticError
-from netprobe.gaussian import (
+from netprobe.engines.gaussian import (
     FreeFermionState,
     GaussianOptions,
     MajoranaState,
@@ -31,7 +31,7 @@ from netprobe.gaussian import (
     majorana_modular_matrix,
     quadratic_form,
 )
-from netprobe.spec import build_model, load_model, parse_spec
+from netprobe.model.spec import build_model, load_model, parse_spec
 
 ENERGY_TOL = 1e-10  # LAPACK sums on norms ~10-100 (common practice)
 PROBE_TOL = 1e-8  # see the module notes: ARPACK vectors and logarithms of small eigenvalues

@@ -5,10 +5,10 @@ import numpy as np
 import pytest
 from conftest import dense_from_products, tol
 
-from netprobe.dmrg import SweepSettings, find_ground_state
-from netprobe.exact import ground_state
-from netprobe.mpo import build_mpo
-from netprobe.spec import build_model, load_model, parse_spec
+from netprobe.engines.dmrg import SweepSettings, find_ground_state
+from netprobe.engines.exact import ground_state
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.model.spec import build_model, load_model, parse_spec
 
 _BILINEAR = "Sx Sx + Sy Sy + Sz Sz"
 # (S.S)^2 written as a user would: nine on-site products per bond

@@ -3,21 +3,21 @@
 References: dense vectors and Kronecker-product operators built here with NumPy (conftest), the
 Jordan-Wigner definition c_j = F_0 ... F_{j-1} a_j (Jordan and Wigner, Z. Phys. 47, 631 (1928)) for
 fermion correlations, the Schmidt decomposition by numpy.linalg.svd, and our own exact engine
-(netprobe.exact) on small systems.
+(netprobe.engines.exact) on small systems.
 """
 
 import numpy as np
 import pytest
 from conftest import dense_from_products, kron_all, tol
 
-from netprobe import exact
-from netprobe.dmrg import SweepSettings, find_ground_state
+from netprobe.engines import exact
+from netprobe.engines.dmrg import SweepSettings, find_ground_state
 from netprobe.errors import NetprobeError, OperatorError, SectorError
-from netprobe.mpo import build_mpo
-from netprobe.mps import (correlation, energy_variance, entanglement_entropies, entanglement_spectrum,
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.engines.mps import (correlation, energy_variance, entanglement_entropies, entanglement_spectrum,
                           expectation_value, local_expectations, overlap, product_state, random_state,
                           schmidt_spectra)
-from netprobe.spec import load_model
+from netprobe.model.spec import load_model
 from netprobe.tensor import BlockLayout, BlockTensor, ChargeRule, Leg
 
 # small cases: (model, overrides); fermions with hoppings that cross other sites in the 1D order,

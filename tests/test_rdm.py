@@ -12,10 +12,10 @@ from netprobe.rdm import split as split_route
 from netprobe.rdm import tables as rdm_tables
 from netprobe.rdm import zipper as zipper_route
 from netprobe.errors import LatticeError, MemoryBudgetError, NetprobeError, SectorError
-from netprobe.exact import correlation, full_vector, ground_state, hamiltonian_matrix, sector_basis
-from netprobe.mps import random_state
-from netprobe.sites import site_space
-from netprobe.spec import load_model
+from netprobe.engines.exact import correlation, full_vector, ground_state, hamiltonian_matrix, sector_basis
+from netprobe.engines.mps import random_state
+from netprobe.model.sites import site_space
+from netprobe.model.spec import load_model
 
 from conftest import tol
 
@@ -348,7 +348,7 @@ def test_split_route_gives_the_fermionic_rho_of_a_free_fermion_ground_state():
     # A DMRG ground state of free fermions (V = 0) on 8 sites, exact at bond dimension 16; the split
     # route with parity strings against the correlation-matrix entropy (Peschel, J. Phys. A 36, L205
     # (2003)), which the spin-basis partial trace misses for interleaved sets (design notes, section 6)
-    from netprobe.dmrg import SweepSettings, find_ground_state
+    from netprobe.engines.dmrg import SweepSettings, find_ground_state
 
     model = load_model("haldane", {"length": "2", "circumference": "2", "V": "0.0", "phi": "pi/2"})
     result = find_ground_state(model, SweepSettings(bond_dimension=16, max_sweeps=8), seed=3, progress=None)
@@ -423,7 +423,7 @@ def test_split_walks_stay_within_their_estimate():
 
 
 def test_dmrg_ground_state_rdm_matches_exact_engine():
-    from netprobe.dmrg import SweepSettings, find_ground_state
+    from netprobe.engines.dmrg import SweepSettings, find_ground_state
 
     model = load_model("haldane", {"length": "2", "circumference": "2", "V": "1.0"})
     result = find_ground_state(model, SweepSettings(bond_dimension=16, max_sweeps=8), seed=3, progress=None)
@@ -437,7 +437,7 @@ def test_dmrg_ground_state_rdm_matches_exact_engine():
 
 def mps_without_charges(psi, space):
     """An MPS with the trivial charge rule, by successive numpy SVDs of the vector (common practice)."""
-    from netprobe.mps import MPS, SiteBasis
+    from netprobe.engines.mps import MPS, SiteBasis
     from netprobe.tensor import BlockTensor, Leg
 
     basis = SiteBasis.from_space(space, ())

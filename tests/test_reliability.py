@@ -15,11 +15,11 @@ import h5py
 import numpy as np
 import pytest
 
-from netprobe.dmrg import LadderSettings, SweepSettings, run_ladder
+from netprobe.engines.dmrg import LadderSettings, SweepSettings, run_ladder
 from netprobe.errors import StateFileError
-from netprobe.mps import random_state
-from netprobe.spec import load_model, models_directory
-from netprobe import store
+from netprobe.engines.mps import random_state
+from netprobe.model.spec import load_model, models_directory
+from netprobe.engines.mps import store
 
 _MEMORY_LIMIT = 3 * 2**30  # address space per CLI run: far above a small run, far below a runaway one
 _TIMEOUT = 60  # seconds; every refusal here comes before any large computation

@@ -5,8 +5,8 @@ import pytest
 from conftest import dense_from_products, tol
 
 from netprobe.errors import LatticeError, NetprobeError, OperatorError, SectorError, SpecError
-from netprobe.mpo import build_mpo
-from netprobe.spec import build_model, list_models, load_model, parse_spec
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.model.spec import build_model, list_models, load_model, parse_spec
 
 BASE = """
 [model]

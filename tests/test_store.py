@@ -13,10 +13,10 @@ import pytest
 from conftest import tol
 
 from netprobe.errors import NetprobeError, StateFileError
-from netprobe.mpo import build_mpo
-from netprobe.mps import expectation_value, overlap, random_state
-from netprobe.spec import load_model
-from netprobe.store import (FORMAT_NAME, FORMAT_VERSION, atomic_file, load_state, remove_stale_temporaries,
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.engines.mps import expectation_value, overlap, random_state
+from netprobe.model.spec import load_model
+from netprobe.engines.mps.store import (FORMAT_NAME, FORMAT_VERSION, atomic_file, load_state, remove_stale_temporaries,
                             save_state)
 
 OVERRIDES = {"length": "2", "circumference": "2", "V": "1.0"}

@@ -26,7 +26,7 @@ from netprobe.study.verdicts import inverse_bond_fit, point_verdict
 _CLI = """
 import argparse, sys
 import netprobe.cli as cli
-from netprobe.study.commands import add_report_parser, add_study_parser
+from netprobe.cli.study import add_report_parser, add_study_parser
 _build = cli.build_parser
 def _parser():
     parser = _build()

@@ -12,10 +12,10 @@ import pytest
 from conftest import dense_from_products, kron_all, tol
 
 from netprobe.errors import HermiticityError, OperatorError, SpecError
-from netprobe.lattice import build_lattice
-from netprobe.sites import SITE_SPACES, site_space
-from netprobe.spec import load_model, parse_spec, build_model
-from netprobe.terms import Hamiltonian, Term, normal_form
+from netprobe.model.lattice import build_lattice
+from netprobe.model.sites import SITE_SPACES, site_space
+from netprobe.model.spec import load_model, parse_spec, build_model
+from netprobe.model.terms import Hamiltonian, Term, normal_form
 
 
 def physical_operator(space, n, site, name):

@@ -19,11 +19,11 @@ import math
 import numpy as np
 import pytest
 
-from netprobe.dmrg import SweepSettings, find_ground_state
-from netprobe.mps import MPS
+from netprobe.engines.dmrg import SweepSettings, find_ground_state
+from netprobe.engines.mps import MPS
 from netprobe.probes import levin_wen_gamma, measure_probes
 from netprobe.regions import parse_region
-from netprobe.spec import load_model
+from netprobe.model.spec import load_model
 from netprobe.tensor import BlockTensor
 
 LN2 = math.log(2.0)

@@ -26,7 +26,7 @@ import scipy.linalg
 
 from netprobe.rdm.common import BlockedRho, _code_tables, _config_parity, permutation_sign
 from netprobe.rdm.parts import check_parts
-from netprobe.sites import SiteSpace
+from netprobe.model.sites import SiteSpace
 
 __all__ = ["PartBlocks", "SubsetBlocks", "part_blocks", "subset_rho", "prefix_suffix_trace", "blocks_probe_estimate"]
 

@@ -11,8 +11,8 @@ import numpy as np
 import scipy.linalg
 
 from netprobe.errors import LatticeError, NetprobeError
-from netprobe.mps import MPS
-from netprobe.sites import SiteSpace
+from netprobe.engines.mps import MPS
+from netprobe.model.sites import SiteSpace
 from netprobe.tensor import BlockTensor
 
 __all__ = [
@@ -254,7 +254,7 @@ def _check_sites(sites, num_sites: int, where: str) -> tuple[int, ...]:
 
 
 def as_pure_state(state):
-    """The state as a dense vector or an MPS: a :class:`netprobe.exact.ExactResult` becomes its full vector.
+    """The state as a dense vector or an MPS: a :class:`netprobe.engines.exact.ExactResult` becomes its full vector.
 
     Raises
     ------
@@ -264,7 +264,7 @@ def as_pure_state(state):
     if isinstance(state, (np.ndarray, MPS)):
         return state
     if type(state).__name__ == "ExactResult":
-        from netprobe.exact import full_vector  # the exact engine loads numba: only when needed
+        from netprobe.engines.exact import full_vector  # the exact engine loads numba: only when needed
 
         return full_vector(state)
     raise NetprobeError(

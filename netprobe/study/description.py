@@ -62,10 +62,11 @@ from typing import Any, Mapping
 import numpy as np
 
 from netprobe.errors import NetprobeError, SpecError, StudyError
-from netprobe.limits import check_dmrg_model, check_exact_model, check_grid_size
-from netprobe.spec import (LATTICE_KEYS, ModelSpec, _resolve_parameters, bundled_files, check_size, find_model,
+from netprobe.engines.limits import check_dmrg_model, check_exact_model
+from netprobe.model.limits import check_grid_size
+from netprobe.model.spec import (LATTICE_KEYS, ModelSpec, _resolve_parameters, bundled_files, check_size, find_model,
                            find_toml, models_directory, parse_spec)
-from netprobe.tomlio import parse_toml, read_text
+from netprobe.model.tomlio import parse_toml, read_text
 
 __all__ = [
     "ENGINES",
@@ -437,8 +438,8 @@ class StudyDescription:
         return out
 
     def build_model(self, point: StudyPoint):
-        """The model at a point (:class:`netprobe.spec.Model`)."""
-        from netprobe.spec import build_model
+        """The model at a point (:class:`netprobe.model.spec.Model`)."""
+        from netprobe.model.spec import build_model
 
         return build_model(self.model_spec, self.overrides(point))
 
@@ -939,7 +940,7 @@ def _check_parameter(key, parameters, model_name, where, what):
 
 
 def _check_sweep_settings(settings, ladder, where):
-    from netprobe.dmrg import SweepSettings
+    from netprobe.engines.dmrg import SweepSettings
 
     try:
         SweepSettings(bond_dimension=ladder[0], **settings)

@@ -1,0 +1,23 @@
+"""Exact diagonalisation in a charge sector."""
+
+from netprobe.engines.exact.basis import (  # noqa: F401 (re-exported)
+    SectorBasis, sector_basis, ExactOptions, ExactResult, hamiltonian_matrix, hamiltonian_operator,
+    operator_matrix, apply_operator, ground_state, expectation, local_expectations, correlation,
+    full_vector,
+)
+
+__all__ = [
+    "SectorBasis",
+    "sector_basis",
+    "ExactOptions",
+    "ExactResult",
+    "hamiltonian_matrix",
+    "hamiltonian_operator",
+    "operator_matrix",
+    "apply_operator",
+    "ground_state",
+    "expectation",
+    "local_expectations",
+    "correlation",
+    "full_vector",
+]
