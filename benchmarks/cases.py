@@ -426,7 +426,8 @@ def large_regions(ctx: Context) -> list[Figure]:
 
 def _sectors_of_size(lattice, size: int):
     """Three-sector disk about the default centre whose radius takes the ``size`` nearest sites."""
-    from netprobe.regions import _displacements, build_layout, default_center
+    from netprobe.regions import build_layout
+    from netprobe.regions.layout import _displacements, default_center
 
     d = np.sort(np.linalg.norm(_displacements(lattice, default_center(lattice)), axis=1))
     radius = 0.5 * (d[size - 1] + d[size]) if d[size] > d[size - 1] + 1e-6 else d[size - 1] + 1e-6

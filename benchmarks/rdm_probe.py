@@ -19,7 +19,7 @@ import numpy as np
 
 def disk_parts(lattice, n: int) -> dict[str, list[int]]:
     """The ``n`` sites nearest to the default centre, in three counterclockwise 120-degree sectors."""
-    from netprobe.regions import _displacements, default_center
+    from netprobe.regions.layout import _displacements, default_center
 
     d = _displacements(lattice, default_center(lattice))  # minimal image around the cylinder
     dx, dy = d[:, 0], d[:, 1]

@@ -487,7 +487,7 @@ def test_binary_search_lookup_matches_rank_tables(monkeypatch):
     model = build_model(parse_spec(HOPPING), {"Nf": "3"})
     ham = model.hamiltonian
     with_tables = hamiltonian_matrix(ham).toarray()
-    monkeypatch.setattr("netprobe.engines.exact._TABLE_LIMIT", 0)  # force the fallback for every basis
+    monkeypatch.setattr("netprobe.engines.exact.basis._TABLE_LIMIT", 0)  # force the fallback for every basis
     basis = sector_basis(ham)
     assert basis.lookup_tables()[3] is False
     np.testing.assert_array_equal(hamiltonian_matrix(ham, basis).toarray(), with_tables)

@@ -32,7 +32,7 @@ from typing import Any, Sequence
 import numpy as np
 
 from netprobe.engines import GroundState, SolveSettings, solve
-from netprobe.errors import LatticeError, MemoryBudgetError, NetprobeError
+from netprobe.errors import MemoryBudgetError
 from netprobe.fitting import Fit, extrapolate_in_size, extrapolate_to_zero, least_squares_line
 from netprobe.pipeline.measure import measure
 from netprobe.probes import DEFAULT_EPS, c_minus_from_j

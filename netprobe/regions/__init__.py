@@ -1,23 +1,24 @@
-"""Region layouts in real-space coordinates, their syntax, and ladders of growing regions."""
+"""Region layouts in real-space coordinates (``layout``), their shapes and syntax (``shapes``), and ladders of
+growing regions (``ladders``).
+"""
 
 from netprobe.regions.layout import (  # noqa: F401 (re-exported)
-    Layout, RegionLimits, LAYOUTS, SYNTAX, CENTER_OFFSET, build_layout,
-    parse_region, default_center, disk, sectors, annulus, levin_wen,
-    shielded, strips, half,
+    Layout, RegionLimits, CENTER_OFFSET, default_center,
 )
-from netprobe.regions.layout import (  # noqa: F401 (re-exported)
-    _displacements, _face_centres, _is_generic, _nn_length,
+from netprobe.regions.shapes import (  # noqa: F401 (re-exported)
+    LAYOUTS, SYNTAX, build_layout, parse_region, disk, sectors,
+    annulus, levin_wen, shielded, strips, half,
 )
 
 __all__ = [
     "Layout",
     "RegionLimits",
+    "CENTER_OFFSET",
+    "default_center",
     "LAYOUTS",
     "SYNTAX",
-    "CENTER_OFFSET",
     "build_layout",
     "parse_region",
-    "default_center",
     "disk",
     "sectors",
     "annulus",

@@ -25,8 +25,8 @@ import numpy as np
 
 from netprobe.errors import LatticeError
 from netprobe.model.lattice import Lattice
-from netprobe.regions.layout import Layout, _displacements, _face_centres, _is_generic, _nn_length, default_center
-from netprobe.regions.layout import sectors, shielded
+from netprobe.regions.layout import Layout, _displacements, _is_generic, _nn_length, default_center
+from netprobe.regions.shapes import sectors, shielded
 
 __all__ = ["RegionRung", "region_ladder", "markov_series", "linear_size", "nn_length"]
 

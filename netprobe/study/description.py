@@ -61,7 +61,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from netprobe.errors import NetprobeError, SpecError, StudyError
+from netprobe.errors import NetprobeError, SpecError
 from netprobe.engines.limits import check_dmrg_model, check_exact_model
 from netprobe.model.limits import check_grid_size
 from netprobe.model.spec import (LATTICE_KEYS, ModelSpec, _resolve_parameters, bundled_files, check_size, find_model,

@@ -1,15 +1,26 @@
-"""Block-sparse tensors with abelian charges: legs, blocks, contraction and factorisations."""
+"""Block-sparse tensors with abelian charges: charges and legs (``legs``), the block tensor and its index
+plans (``blocks``), contraction and factorisations (``linalg``).
+"""
 
+from netprobe.tensor.legs import (  # noqa: F401 (re-exported)
+    ChargeRule, Leg,
+)
 from netprobe.tensor.blocks import (  # noqa: F401 (re-exported)
-    ChargeRule, Leg, BlockTensor, Spectrum, SvdInfo, contract,
-    svd, qr, lq, eigh, trace, diag_multiply,
-    BlockLayout, plan_cache_info, clear_plan_cache, MatmulTally, matmul_tally,
+    BlockTensor, plan_cache_info, clear_plan_cache, MatmulTally, matmul_tally,
+)
+from netprobe.tensor.linalg import (  # noqa: F401 (re-exported)
+    Spectrum, SvdInfo, contract, svd, qr, lq,
+    eigh, trace, diag_multiply, BlockLayout,
 )
 
 __all__ = [
     "ChargeRule",
     "Leg",
     "BlockTensor",
+    "plan_cache_info",
+    "clear_plan_cache",
+    "MatmulTally",
+    "matmul_tally",
     "Spectrum",
     "SvdInfo",
     "contract",
@@ -20,8 +31,4 @@ __all__ = [
     "trace",
     "diag_multiply",
     "BlockLayout",
-    "plan_cache_info",
-    "clear_plan_cache",
-    "MatmulTally",
-    "matmul_tally",
 ]

@@ -35,7 +35,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from netprobe.errors import GaussianStateError, HermiticityError, NetprobeError, NotQuadraticError
+from netprobe.errors import GaussianStateError, HermiticityError, NotQuadraticError
 
 __all__ = [
     "NotQuadraticError",

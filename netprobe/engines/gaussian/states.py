@@ -52,13 +52,7 @@ from netprobe.engines.gaussian.momentum import (
     momentum_eigh,
     translation_blocks,
 )
-from netprobe.engines.gaussian.quadratic import (
-    GaussianOptions,
-    GaussianStateError,
-    NotQuadraticError,
-    QuadraticForm,
-    quadratic_form,
-)
+from netprobe.engines.gaussian.quadratic import GaussianOptions, GaussianStateError, QuadraticForm, quadratic_form
 
 __all__ = [
     "GaussianOptions",

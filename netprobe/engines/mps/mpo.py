@@ -27,7 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from netprobe.engines.mps.mpo_compression import compress_channels
-from netprobe.model.terms import Hamiltonian, LocalProduct
+from netprobe.model.terms import Hamiltonian
 
 __all__ = ["MPO", "build_mpo", "split_by_charge"]
 
