@@ -39,6 +39,8 @@ from netprobe.pipeline import probe_model
 from netprobe.pipeline.assess import assess_states
 from netprobe.output.plots import plot_assessment
 from netprobe.model.spec import load_model
+from netprobe.pipeline.flux import thread_flux
+from netprobe.output.plots import PART_COLOURS, plot_flux
 
 __all__ = ["main", "run_demo"]
 
@@ -98,8 +100,6 @@ def _ladders(stream) -> list[dict]:
 
 
 def _flux(stream) -> dict:
-    from netprobe.pipeline.flux import thread_flux
-
     _log(stream, f"flux threading at M = 0 (V = {V_INTERACTING}): 6 steps of the twist from 0 to 2 pi")
     result = thread_flux("haldane", {"t2": str(T2), "M": "0", "V": str(V_INTERACTING), **CYLINDER}, steps=6,
                          bond_dimension=48, sweeps=3, seed=2)
@@ -211,8 +211,6 @@ def _write_tables(out: Path, rows):
 def _plots(out: Path, rows, ladders, flux, predicted):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
-
-    from netprobe.output.plots import PART_COLOURS, plot_flux
 
     fig = Figure(figsize=(5.6, 3.6), dpi=120)
     FigureCanvasAgg(fig)

@@ -27,6 +27,9 @@ from pathlib import Path
 from netprobe.errors import StudyError
 from netprobe.cli.options import folder_path, scheduler_address, unwritable
 from netprobe.study.description import StudyDescription, load_study
+from netprobe.study.ledger import Ledger, ledger_path
+from netprobe.study.executors import DaskExecutor, LocalExecutor, run_study
+from netprobe.study.report import build_report, summary_lines, write_report
 
 __all__ = ["add_study_parser", "add_report_parser", "cmd_study", "cmd_report", "default_folder"]
 
@@ -108,8 +111,6 @@ def _print_json(payload) -> None:
 
 
 def _status(description: StudyDescription, folder: Path, as_json: bool) -> int:
-    from netprobe.study.ledger import Ledger, ledger_path
-
     path = ledger_path(folder)
     if path.is_file():
         with Ledger(path) as ledger:
@@ -166,8 +167,6 @@ def _terminate_as_interrupt():
 
 def cmd_study(args) -> int:
     """Run a study, or report its status."""
-    from netprobe.study.executors import DaskExecutor, LocalExecutor, run_study
-
     description = load_study(args.spec)
     folder = Path(args.out) if args.out else default_folder(description)
     if args.status:
@@ -216,8 +215,6 @@ def cmd_study(args) -> int:
 
 def cmd_report(args) -> int:
     """Write a study's tables and figures and print its summary."""
-    from netprobe.study.report import build_report, summary_lines, write_report
-
     report = build_report(args.folder)
     files = write_report(report, args.out, plots=args.plots)
     if args.json:

@@ -20,6 +20,7 @@ from matplotlib.figure import Figure
 
 from netprobe.errors import LatticeError
 from netprobe.regions import Layout
+from netprobe.fitting import SIZE_FORMS
 
 __all__ = ["PART_COLOURS", "plot_layout", "plot_profiles", "plot_flux", "plot_assessment", "plot_cut_spectrum"]
 
@@ -210,8 +211,6 @@ def plot_assessment(assessment, path, *, title=None) -> Path:
     path : str or Path
     title : str, optional
     """
-    from netprobe.fitting import SIZE_FORMS
-
     sizes = assessment.sizes
     fig = Figure(figsize=(11, 7.5))
     FigureCanvasAgg(fig)

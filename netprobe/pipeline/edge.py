@@ -40,6 +40,10 @@ import numpy as np
 
 from netprobe.pipeline.cut import CutSpectrum, column_cut, exact_cut, gaussian_cut, mps_cut
 from netprobe.errors import NetprobeError
+from netprobe.model.spec import build_model
+from netprobe.engines.dmrg import SweepSettings, find_ground_state
+from netprobe.engines.gaussian import gaussian_state
+from netprobe.engines.exact import ground_state
 
 __all__ = ["EDGE_ENGINES", "CHARACTERS", "SectorCount", "PolarizationFit", "count_levels", "fit_polarization",
            "edge_state", "edge_ladder", "charge_label"]
@@ -283,9 +287,6 @@ def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex],
 
 def _thread_flux(model, state, settings, quanta: int, steps: int, seed, progress):
     """Warm-started DMRG while the twist grows by ``2 pi quanta`` (the adiabatic branch of :mod:`netprobe.pipeline.flux`)."""
-    from netprobe.engines.dmrg import find_ground_state
-    from netprobe.model.spec import build_model
-
     if "twist" not in model.spec.parameters or not model.spec.conserve:
         raise NetprobeError(f"--flux-quanta: model '{model.name}' needs a 'twist' parameter and a conserved charge "
                             "to thread flux; choose the sector by its boundary or charge instead")
@@ -311,19 +312,13 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
         raise NetprobeError("--flux-quanta needs --engine dmrg (the adiabatic branch follows a warm-started "
                             "state); with free fermions use the charge sectors of the cut instead")
     if engine == "gaussian":
-        from netprobe.engines.gaussian import gaussian_state
-
         state = gaussian_state(model)
         info["energy"] = float(state.energy)
         return gaussian_cut(state, cut, window=window), info
     if engine == "exact":
-        from netprobe.engines.exact import ground_state
-
         gs = ground_state(model.hamiltonian)
         info["energy"] = float(gs.energy)
         return exact_cut(gs.vector(0), gs.basis, model.space, cut), info
-    from netprobe.engines.dmrg import SweepSettings, find_ground_state
-
     state, rungs, spectrum = None, [], None
     for d in bond_dimensions:
         # the cut needs the state itself, not only its energy: tighter than the engine's defaults
@@ -423,8 +418,6 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
     ``sector_fits`` the fits of ``lambda_Q`` for the charge sectors at fixed offsets from the most
     probable one, whose differences are the topological spins ``h_Q - h_0`` (mod 1).
     """
-    from netprobe.model.spec import build_model
-
     circumferences = [int(c) for c in circumferences]
     if len(circumferences) < 3:
         raise NetprobeError(f"--circumferences needs at least three values, got {circumferences}; "

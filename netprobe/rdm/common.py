@@ -14,6 +14,7 @@ from netprobe.errors import LatticeError, NetprobeError
 from netprobe.engines.mps import MPS
 from netprobe.model.sites import SiteSpace
 from netprobe.tensor import BlockTensor
+from netprobe.engines.exact import full_vector  # the exact engine loads numba: only when needed
 
 __all__ = [
     "RootBlock",
@@ -264,8 +265,6 @@ def as_pure_state(state):
     if isinstance(state, (np.ndarray, MPS)):
         return state
     if type(state).__name__ == "ExactResult":
-        from netprobe.engines.exact import full_vector  # the exact engine loads numba: only when needed
-
         return full_vector(state)
     raise NetprobeError(
         f"expected a state vector (numpy array in the full d**N space), an exact-engine result or an MPS, "

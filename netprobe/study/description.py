@@ -67,6 +67,10 @@ from netprobe.model.limits import check_grid_size
 from netprobe.model.spec import (LATTICE_KEYS, ModelSpec, _resolve_parameters, bundled_files, check_size, find_model,
                            find_toml, models_directory, parse_spec)
 from netprobe.model.tomlio import parse_toml, read_text
+from netprobe.errors import OperatorError
+from netprobe.engines.dmrg import SweepSettings
+from netprobe.model.spec import build_model
+from netprobe.regions import parse_region
 
 __all__ = [
     "ENGINES",
@@ -439,8 +443,6 @@ class StudyDescription:
 
     def build_model(self, point: StudyPoint):
         """The model at a point (:class:`netprobe.model.spec.Model`)."""
-        from netprobe.model.spec import build_model
-
         return build_model(self.model_spec, self.overrides(point))
 
     def lattice_key(self, point: StudyPoint) -> tuple:
@@ -608,8 +610,6 @@ class StudyDescription:
             prefixed with the study file and the point.
 
         """
-        from netprobe.regions import parse_region
-
         where = _where(self.path)
         spec = self.model_spec
         for point in self.points:
@@ -652,8 +652,6 @@ class StudyDescription:
 
 
 def _check_operator(model, probe: ProbeRequest, engine: str) -> None:
-    from netprobe.errors import OperatorError
-
     if engine == "gaussian":
         if probe.operator != "n" or model.space.name != "fermion":
             raise SpecError(
@@ -940,8 +938,6 @@ def _check_parameter(key, parameters, model_name, where, what):
 
 
 def _check_sweep_settings(settings, ladder, where):
-    from netprobe.engines.dmrg import SweepSettings
-
     try:
         SweepSettings(bond_dimension=ladder[0], **settings)
     except NetprobeError as err:

@@ -23,6 +23,7 @@ import numpy as np
 
 from netprobe.study.description import StudyDescription
 from netprobe.study.ledger import TaskRow
+from netprobe.engines.dmrg import extrapolate_energy
 
 __all__ = ["Fit", "ProbeVerdict", "EnergyVerdict", "PointVerdict", "inverse_bond_fit", "point_verdict"]
 
@@ -211,8 +212,6 @@ def point_verdict(description: StudyDescription, rows: Sequence[TaskRow]) -> Poi
             if not info.get("converged", True):
                 flags.append(f"D={r.bond_dimension}: {info.get('message', 'not converged')}")
         if len(done) >= 2:
-            from netprobe.engines.dmrg import extrapolate_energy
-
             change = energies[-1] - energies[-2]
             flagged = abs(change) > settings.energy_threshold * max(1.0, abs(energies[-1]))
             weights = [float(r.result["dmrg"]["discarded_weight"]) for r in done]

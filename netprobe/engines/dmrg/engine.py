@@ -39,6 +39,7 @@ import warnings
 from dataclasses import asdict, dataclass, field, fields
 
 import numpy as np
+
 from threadpoolctl import threadpool_limits
 
 from netprobe.engines.dmrg.effective import OneSiteHamiltonian, TwoSiteHamiltonian
@@ -48,6 +49,7 @@ from netprobe.engines.dmrg.solvers import check_eigensolver, lowest_eigenpair
 from netprobe.errors import NetprobeError
 from netprobe.engines.mps import MPS, BlockMPO, random_state
 from netprobe.tensor import BlockLayout, BlockTensor, Leg, contract, diag_multiply, eigh, lq, matmul_tally, qr, svd
+from netprobe.engines.mps.mpo import build_mpo
 
 __all__ = ["SweepSettings", "SweepRecord", "DmrgResult", "DmrgEngine", "ConvergenceWarning",
            "find_ground_state", "default_ramp", "LOCAL_UPDATES"]
@@ -763,8 +765,6 @@ def find_ground_state(model, settings: SweepSettings | None = None, *, seed=None
     -------
     DmrgResult
     """
-    from netprobe.engines.mps.mpo import build_mpo
-
     ham = getattr(model, "hamiltonian", model)
     settings = settings if settings is not None else SweepSettings()
     rng = np.random.default_rng(seed)

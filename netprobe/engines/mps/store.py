@@ -49,6 +49,7 @@ from netprobe.errors import NetprobeError, StateFileError
 from netprobe.engines.mps import MPS, SiteBasis
 from netprobe.model.sites import site_space
 from netprobe.tensor import BlockTensor, ChargeRule, Leg
+from netprobe.model.spec import build_model, parse_spec
 
 __all__ = [
     "FORMAT_NAME",
@@ -343,8 +344,6 @@ class SavedState:
         StateFileError
             If the file stores no model description.
         """
-        from netprobe.model.spec import build_model, parse_spec
-
         if not self.model_text:
             raise StateFileError(
                 f"state file {self.path} stores no model description; pass the model explicitly")
