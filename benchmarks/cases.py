@@ -616,7 +616,7 @@ attempts = 1
 
 def study_throughput(ctx: Context) -> list[Figure]:
     """Points per second with 2 local workers against 1, on independent DMRG points."""
-    from netprobe.study.description import parse_study
+    from netprobe.study.reading import parse_study
     from netprobe.study.executors import LocalExecutor, run_study
 
     count = 8  # four rounds of two: the start of the worker processes is shared over more points

@@ -21,7 +21,7 @@ from hypothesis import strategies as st
 
 from netprobe.cli import main
 from netprobe.errors import NetprobeError
-from netprobe.study.description import load_study
+from netprobe.study.reading import load_study
 
 _MEMORY_LIMIT = 3 * 2**30  # address space of a subprocess run: a small run needs well under 1 GiB
 _TIMEOUT = 60  # seconds per subprocess run

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from netprobe.errors import SpecError
-from netprobe.study.description import parse_study
+from netprobe.study.reading import parse_study
 from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.report import steepest_change
 from netprobe.study.verdicts import inverse_bond_fit, point_verdict

@@ -26,7 +26,8 @@ from pathlib import Path
 
 from netprobe.errors import StudyError
 from netprobe.cli.options import folder_path, scheduler_address, unwritable
-from netprobe.study.description import StudyDescription, load_study
+from netprobe.study.description import StudyDescription
+from netprobe.study.reading import load_study
 from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.executors import DaskExecutor, LocalExecutor, run_study
 from netprobe.study.report import build_report, summary_lines, write_report
