@@ -131,7 +131,7 @@ def matvec_rate(ctx: Context) -> list[Figure]:
 
 def symmetry_gain(ctx: Context) -> list[Figure]:
     """Time of one sweep with U(1) charges vs without, from the same state, width-6 cylinder."""
-    from netprobe.engines.dmrg.engine import DmrgEngine
+    from netprobe.engines.dmrg.engine import GroundStateSearch
     from netprobe.engines.mps.mpo import build_mpo
 
     chi = 128 if ctx.quick else 512
@@ -141,7 +141,7 @@ def symmetry_gain(ctx: Context) -> list[Figure]:
     for charges in (True, False):
         ham = wl.heisenberg_cylinder(6, 6, charges=charges)
         st = state if charges else wl.without_charges(state, ham)
-        engine = DmrgEngine(build_mpo(ham), st, wl.sweep_settings(chi), progress=None, blas_threads=1)
+        engine = GroundStateSearch(build_mpo(ham), st, wl.sweep_settings(chi), progress=None, blas_threads=1)
         record, figure = _efficiency_sweep(ctx, engine, f"sweep_efficiency_square_{'charges' if charges else 'no_charges'}")
         out[charges] = record
         efficiency.append(figure)
@@ -162,7 +162,7 @@ def _efficiency_sweep(ctx: Context, engine, name: str):
     """
     dtype = engine.dtype
     gemm_before = gemm_rate(dtype, 1024, threads=1)
-    record = engine.sweep()
+    record = engine.step()
     gemm = max(gemm_before, gemm_rate(dtype, 1024, threads=1))
     ratio = record.matvec_flops / gemm / record.seconds
     ctx.log(f"    {name}: D={record.bond_dimension}, {record.seconds:.1f} s, {record.matvecs} matvecs, "
@@ -177,7 +177,7 @@ def _efficiency_sweep(ctx: Context, engine, name: str):
 
 def kagome_efficiency(ctx: Context) -> list[Figure]:
     """Sweep efficiency (matvec flops at the GEMM rate / wall time) on the width-6 kagome chiral cylinder."""
-    from netprobe.engines.dmrg.engine import DmrgEngine
+    from netprobe.engines.dmrg.engine import GroundStateSearch
     from netprobe.engines.mps.mpo import build_mpo
     from netprobe.engines.mps import random_state
 
@@ -188,17 +188,17 @@ def kagome_efficiency(ctx: Context) -> list[Figure]:
     state = random_state(ham, bond_dimension=16, rng=wl.SEED)
     figures = []
     for chi in ladder:
-        engine = DmrgEngine(mpo, state, wl.sweep_settings(chi), progress=None, blas_threads=1)
+        engine = GroundStateSearch(mpo, state, wl.sweep_settings(chi), progress=None, blas_threads=1)
         if chi == ladder[-1]:  # the last rung's sweep (it grows the bonds to D) is the timed one
             figures.insert(0, _efficiency_sweep(ctx, engine, "sweep_efficiency_kagome_charges")[1])
             break
-        record = engine.sweep()
+        record = engine.step()
         ctx.log(f"    kagome ladder D={chi}: growing sweep {record.seconds:.1f} s, {record.matvecs} matvecs, "
                 f"E = {record.energy:.8f}, largest bond {record.max_bond_dimension}")
         state = engine.state
         if chi == uncharged_at:
             plain = wl.without_charges_of(ham)
-            cold = DmrgEngine(build_mpo(plain), wl.without_charges(state, plain), wl.sweep_settings(chi),
+            cold = GroundStateSearch(build_mpo(plain), wl.without_charges(state, plain), wl.sweep_settings(chi),
                               progress=None, blas_threads=1)
             figures.append(_efficiency_sweep(ctx, cold, "sweep_efficiency_kagome_no_charges")[1])
     return figures
@@ -218,17 +218,17 @@ def _exact_time(ham) -> tuple[float, float, str, int]:
 
 def _dmrg_time_to(ham, exact_energy: float, relative: float) -> tuple[float, float, int, int]:
     """Seconds until a sweep's energy is within ``relative`` of the exact one (default ramp to 512)."""
-    from netprobe.engines.dmrg.engine import DmrgEngine, SweepSettings
+    from netprobe.engines.dmrg.engine import GroundStateSearch, SweepSettings
     from netprobe.engines.mps.mpo import build_mpo
     from netprobe.engines.mps import random_state
 
-    settings = SweepSettings(bond_dimension=512, max_sweeps=30, noise=1e-5, noise_sweeps=1,
+    settings = SweepSettings(bond_dimension=512, sweep_limit=30, noise=1e-5, noise_sweeps=1,
                              energy_tolerance=1e-12, discarded_tolerance=0.0 + 1e-12)
     start = time.perf_counter()
-    engine = DmrgEngine(build_mpo(ham), random_state(ham, bond_dimension=16, rng=wl.SEED), settings,
+    engine = GroundStateSearch(build_mpo(ham), random_state(ham, bond_dimension=16, rng=wl.SEED), settings,
                         progress=None)
     while True:
-        record = engine.sweep()
+        record = engine.step()
         error = abs(record.energy - exact_energy) / abs(exact_energy)
         if error <= relative or engine.finished:
             return time.perf_counter() - start, error, len(engine.history), record.max_bond_dimension
@@ -498,7 +498,7 @@ _BLBQ_CHAIN = """
 name = "blbq_benchmark"
 description = "invented benchmark chain: spin-1 bilinear-biquadratic, biquadratic written as nine products"
 site = "spin-1"
-conserve = ["2Sz"]
+conserved = ["twice_sz"]
 
 [parameters]
 lattice = "chain"
@@ -506,7 +506,7 @@ length = {length}
 circumference = 1
 
 [sector]
-2Sz = "0"
+twice_sz = "0"
 
 [[term]]
 on = "nn"
@@ -538,7 +538,7 @@ def _bond_rank(ham) -> int:
 
 def mpo_compression(ctx: Context) -> list[Figure]:
     """MPO bond dimension against rank + 2, and the DMRG sweep speed-up of the compressed kagome MPO."""
-    from netprobe.engines.dmrg.engine import DmrgEngine
+    from netprobe.engines.dmrg.engine import GroundStateSearch
     from netprobe.engines.mps.mpo import build_mpo
     from netprobe.engines.mps import random_state
     from netprobe.model.spec import build_model, load_model, parse_spec
@@ -558,17 +558,17 @@ def mpo_compression(ctx: Context) -> list[Figure]:
     ham = load_model("kagome_chiral", {"length": "6", "circumference": "3"}).hamiltonian
     compressed, plain = build_mpo(ham), build_mpo(ham, compress=False)
     warm_sweeps = 1 if ctx.quick else 2  # grow the bonds to D first (untimed)
-    warm = DmrgEngine(compressed, random_state(ham, bond_dimension=16, rng=wl.SEED),
-                      wl.sweep_settings(chi, max_sweeps=warm_sweeps, min_sweeps=warm_sweeps), progress=None,
+    warm = GroundStateSearch(compressed, random_state(ham, bond_dimension=16, rng=wl.SEED),
+                      wl.sweep_settings(chi, sweep_limit=warm_sweeps, sweep_minimum=warm_sweeps), progress=None,
                       blas_threads=1)
     for _ in range(warm_sweeps):
-        warm.sweep()
+        warm.step()
     seconds = {"compressed": [], "uncompressed": []}
     matvecs = {"compressed": 0, "uncompressed": 0}
     for label in ("compressed", "uncompressed", "uncompressed", "compressed"):  # symmetric order
         op = compressed if label == "compressed" else plain
-        engine = DmrgEngine(op, warm.state.copy(), wl.sweep_settings(chi), progress=None, blas_threads=1)
-        record = engine.sweep()
+        engine = GroundStateSearch(op, warm.state.copy(), wl.sweep_settings(chi), progress=None, blas_threads=1)
+        record = engine.step()
         seconds[label].append(record.seconds)
         matvecs[label] += record.matvecs
         ctx.log(f"    kagome D={chi}, {label} MPO (largest bond {op.max_bond_dimension}): sweep "
@@ -604,7 +604,7 @@ J2 = {{ values = {points} }}
 bond_dimensions = [{chi}]
 variance = false
 noise_sweeps = 0
-max_sweeps = 4
+sweep_limit = 4
 
 [measure]
 probes = ["energy"]

@@ -89,7 +89,7 @@ def _ladders(stream) -> list[dict]:
         cmi_region = f"shielded:a=0.5,b=1.01,c=1.8,center={x:.6f},{y:.6f}"
         _log(stream, f"DMRG ladder D = {', '.join(map(str, LADDER))} at M = {m_value} (V = {V_INTERACTING}), "
                      f"{model.num_sites} sites")
-        settings = SolveSettings(bond_dimensions=LADDER, sweeps=SweepSettings(max_sweeps=4), seed=1, progress=None)
+        settings = SolveSettings(bond_dimensions=LADDER, sweeps=SweepSettings(sweep_limit=4), seed=1, progress=None)
         r = probe_model(model, "disk:radius=1.8", engine="dmrg", settings=settings, cmi_region=cmi_region).to_json()
         for rung in r["ladder"]:
             _log(stream, f"  D = {rung['bond_dimension']:>3}: energy {rung['energy']:.8f}  J = {rung['J']:+.5f}  "
@@ -152,7 +152,7 @@ def _assessment(stream):
     model = load_model("haldane", {"t2": str(T2), "M": "0", "V": str(V_INTERACTING), **ASSESS_CYLINDER})
     _log(stream, f"assessment of the interacting point M = 0, V = {V_INTERACTING} ({model.num_sites} sites, DMRG "
                  f"D = {', '.join(map(str, LADDER))}, regions up to {ASSESS_SITES} sites)")
-    settings = SolveSettings(bond_dimensions=LADDER, sweeps=SweepSettings(max_sweeps=4), seed=3, progress=None)
+    settings = SolveSettings(bond_dimensions=LADDER, sweeps=SweepSettings(sweep_limit=4), seed=3, progress=None)
     grounds, _ = solve(model, "dmrg", settings)
     assessment = assess_states(grounds, max_sites=ASSESS_SITES, placements=2, progress=stream)
     _log(stream, "calibration: the same model at V = 0 with the free-fermion engine, regions up to 100 sites")

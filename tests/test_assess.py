@@ -145,7 +145,7 @@ def test_toric_code_gamma_ln2_at_every_size_and_not_chiral():
     model = load_model("toric_code", {"length": "5", "circumference": "4"})
     best = None
     for seed in range(1, 9):  # the lowest of a few seeded starts avoids one-anyon minima (common practice)
-        run = find_ground_state(model, SweepSettings(bond_dimension=32, max_sweeps=10, solver_tolerance=1e-14),
+        run = find_ground_state(model, SweepSettings(bond_dimension=32, sweep_limit=10, solver_tolerance=1e-14),
                                 seed=seed, progress=None, warn=False)
         best = run if best is None or run.energy < best.energy - 1e-9 else best
         if best.energy < -39.5:

@@ -138,7 +138,7 @@ def test_mps_route_matches_free_fermions():
     model = _chern(length=2, circumference=3, twist=0.3)  # bond dimension 64 = 4^3 holds every state
     cut = column_cut(model.lattice, 1)
     free = gaussian_cut(gaussian_state(model), cut)
-    tight = SweepSettings(bond_dimension=64, energy_tolerance=1e-12, solver_tolerance=1e-11, min_sweeps=4)
+    tight = SweepSettings(bond_dimension=64, energy_tolerance=1e-12, solver_tolerance=1e-11, sweep_minimum=4)
     result = find_ground_state(model, tight, seed=3, progress=None, warn=False)
     mps = mps_cut(result.state, cut)
     assert abs(mps.polarization - free.polarization) < DMRG_LAMBDA_TOL
@@ -158,7 +158,7 @@ def test_mps_route_matches_exact_for_spins_on_the_kagome_lattice():
     cut = column_cut(model.lattice, 1)
     gs = ground_state(model.hamiltonian)
     exact = exact_cut(gs.vector(0), gs.basis, model.space, cut)
-    tight = SweepSettings(bond_dimension=64, energy_tolerance=1e-12, solver_tolerance=1e-11, min_sweeps=4)
+    tight = SweepSettings(bond_dimension=64, energy_tolerance=1e-12, solver_tolerance=1e-11, sweep_minimum=4)
     result = find_ground_state(model, tight, seed=1, progress=None, warn=False)
     mps = mps_cut(result.state, cut)
     assert abs(mps.polarization - exact.polarization) < DMRG_LAMBDA_TOL

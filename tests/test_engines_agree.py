@@ -31,7 +31,7 @@ def states():
     model = load_model("haldane", OVERRIDES)
     exact = ground_state(model.hamiltonian)
     # D = 256 exceeds the largest Schmidt rank needed on 16 sites at 1e-12 (2^8 = 256 at the centre)
-    dmrg = find_ground_state(model, SweepSettings(bond_dimension=256, max_sweeps=12), seed=3, progress=None)
+    dmrg = find_ground_state(model, SweepSettings(bond_dimension=256, sweep_limit=12), seed=3, progress=None)
     free = FreeFermionState.from_model(model)
     return model, exact, dmrg, free
 

@@ -260,7 +260,7 @@ def test_version_1_files_without_checksums_stay_readable(saved_file, tmp_path, m
 ])
 def test_malformed_checkpoint_entries_are_named(tmp_path, info_change, match):
     model = load_model("tfim", OVERRIDES)
-    settings = LadderSettings(bond_dimensions=(2, 4), sweeps=SweepSettings(max_sweeps=2))
+    settings = LadderSettings(bond_dimensions=(2, 4), sweeps=SweepSettings(sweep_limit=2))
     out = tmp_path / "run"
     run_ladder(model, settings, overrides=OVERRIDES, seed=0, out=out, progress=None)
     ckpt = out / "checkpoint.h5"

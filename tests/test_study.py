@@ -169,9 +169,9 @@ def test_description_dmrg_needs_an_increasing_ladder():
         _parse("[grid]\nh = { values = [1.0] }", engine="dmrg")
     with pytest.raises(SpecError, match="must increase"):
         _parse("[grid]\nh = { values = [1.0] }\n[ladder]\nbond_dimensions = [16, 8]", engine="dmrg")
-    with pytest.raises(SpecError, match="max_sweeps"):
+    with pytest.raises(SpecError, match="sweep_limit"):
         _parse(
-            "[grid]\nh = { values = [1.0] }\n[ladder]\nbond_dimensions = [8]\nmax_sweeps = 0", engine="dmrg"
+            "[grid]\nh = { values = [1.0] }\n[ladder]\nbond_dimensions = [8]\nsweep_limit = 0", engine="dmrg"
         )
 
 

@@ -42,7 +42,7 @@ def _bond_dimensions(text: str) -> tuple[int, ...]:
 
 def _solve_settings(args, overrides):
     return SolveSettings(bond_dimensions=_bond_dimensions(args.bond_dimension),
-                         sweeps=SweepSettings(max_sweeps=args.sweeps) if args.sweeps else None,
+                         sweeps=SweepSettings(sweep_limit=args.sweeps) if args.sweeps else None,
                          seed=args.seed, out=getattr(args, "out", None), progress=sys.stderr,
                          overrides=overrides)
 

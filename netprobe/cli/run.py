@@ -22,7 +22,7 @@ def cmd_run(args) -> int:
         raise NetprobeError("--resume needs --out DIR: the folder that holds the checkpoint")
     model = _load(args)
     check_dmrg_model(model, chis[-1], where=f"--bond-dimension {chis[-1]}")
-    sweeps = SweepSettings(max_sweeps=args.sweeps) if args.sweeps else SweepSettings()
+    sweeps = SweepSettings(sweep_limit=args.sweeps) if args.sweeps else SweepSettings()
     settings = LadderSettings(bond_dimensions=chis, sweeps=sweeps)
     result = run_ladder(model, settings, overrides=parse_overrides(args.overrides), seed=args.seed,
                         out=args.out, resume=args.resume, progress=sys.stderr)

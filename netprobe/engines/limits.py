@@ -88,7 +88,7 @@ def check_exact_model(model, *, where: str, num_states: int = 1, budget: int | N
         raise MemoryBudgetError(
             f"{where}: exact diagonalisation of {n} sites needs {space.dim}^{n} basis codes, more than "
             f"{_EXACT_BITS} bits; use fewer sites or the dmrg engine")
-    dim = count_sector_states(space, n, ham.conserve, ham.sector)
+    dim = count_sector_states(space, n, ham.conserved, ham.sector)
     check_exact_size(dim, sites=n, where=where, itemsize=16 if ham.is_complex else 8, num_states=num_states,
                      budget=budget)
     return dim
@@ -105,7 +105,7 @@ def check_dmrg_model(model, bond_dimension: int, *, where: str, budget: int | No
     ham = model.hamiltonian
     check_dmrg_size(model.num_sites, local_dim=model.space.dim,
                     mpo_bond=max(build_mpo(ham).bond_dimensions, default=1), bond_dimension=bond_dimension,
-                    where=where, charge_spans=charge_spans(model.space.charge_values(ham.conserve)),
+                    where=where, charge_spans=charge_spans(model.space.charge_values(ham.conserved)),
                     budget=budget)
 
 

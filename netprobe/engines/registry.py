@@ -136,7 +136,7 @@ class GaussianEngine:
         return {"state": type(state).__name__}
 
 
-class DmrgEngine:
+class LadderEngine:
     """A DMRG ladder (:func:`netprobe.engines.dmrg.run_ladder`); every rung is handed over in memory."""
 
     name = "dmrg"
@@ -160,7 +160,7 @@ class DmrgEngine:
         return ladder.to_dict()
 
 
-ENGINES: dict[str, Engine] = {e.name: e for e in (DmrgEngine(), ExactEngine(), GaussianEngine())}
+ENGINES: dict[str, Engine] = {e.name: e for e in (LadderEngine(), ExactEngine(), GaussianEngine())}
 """The engines by name."""
 
 

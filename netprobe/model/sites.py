@@ -1,12 +1,12 @@
 """Local site spaces: basis states, operator matrices, conserved charges and fermion parity.
 
 A :class:`SiteSpace` is a small finite basis with named operator matrices. Each basis state carries
-a value of every conserved charge the space knows ("N" for particle number, "2Sz" for twice the
+a value of every conserved charge the space knows ("N" for particle number, "twice_sz" for twice the
 spin projection) and a fermion parity (0 even, 1 odd). Operators are plain dense matrices acting
 on the local basis; fermionic operators are the on-site parts ``a_j`` of the Jordan-Wigner form
 ``c_j = F_1 ... F_{j-1} a_j`` with ``F = (-1)^n`` (see :mod:`netprobe.model.terms`).
 
-Registered spaces (by name): ``spin-1/2``, ``spin-1``, ``fermion`` (spinless), ``electron``
+Registered spaces (by name): ``spin-1/2``, ``spin-1``, ``fermion`` (spinless), ``spinful_fermion``
 (spinful fermion), ``hardcore-boson``.
 """
 
@@ -43,7 +43,7 @@ class SiteSpace:
     flux_charge : str or None
         The charge that couples to a vector potential (Peierls phases). ``None`` if none does.
     flux_charge_scale : float
-        Factor turning that charge into the coupling charge (0.5 for "2Sz", so spins couple with Sz).
+        Factor turning that charge into the coupling charge (0.5 for "twice_sz", so spins couple with Sz).
     """
 
     name: str
@@ -90,23 +90,23 @@ class SiteSpace:
             mat = mat @ self.operators[factor]
         return mat
 
-    def charge_values(self, conserve: tuple[str, ...]) -> np.ndarray:
-        """Charges of each basis state for the chosen conserved quantities, shape (d, len(conserve)).
+    def charge_values(self, conserved: tuple[str, ...]) -> np.ndarray:
+        """Charges of each basis state for the chosen conserved quantities, shape (d, len(conserved)).
 
         Raises
         ------
         SpecError
             If a name is not a charge of this space.
         """
-        for name in conserve:
+        for name in conserved:
             if name not in self.charges:
                 valid = ", ".join(sorted(self.charges)) or "none"
                 raise SpecError(
                     f"site space '{self.name}' has no conserved charge '{name}'; valid charges: {valid}"
                 )
-        if not conserve:
+        if not conserved:
             return np.zeros((self.dim, 0), dtype=np.int64)
-        return np.stack([np.asarray(self.charges[c], dtype=np.int64) for c in conserve], axis=1)
+        return np.stack([np.asarray(self.charges[c], dtype=np.int64) for c in conserved], axis=1)
 
     def __repr__(self) -> str:
         charges = ", ".join(self.charges) or "none"
@@ -165,21 +165,21 @@ def _spin_space(twice_s: int) -> SiteSpace:
     sm = sp.T.copy()
     sx = (sp + sm) / 2
     sy = (sp - sm) / 2j
-    ops = {"Id": np.eye(d), "Sz": sz, "Sp": sp, "Sm": sm, "Sx": sx, "Sy": sy}
+    ops = {"one": np.eye(d), "Sz": sz, "Sp": sp, "Sm": sm, "Sx": sx, "Sy": sy}
     if twice_s == 1:
         ops.update({"X": 2 * sx, "Y": 2 * sy, "Z": 2 * sz})  # Pauli matrices
         states = ("up", "down")
     else:
         ops.update({"Sz2": sz @ sz})
         states = tuple(f"m={mk:+g}" for mk in m)
-    charges = {"2Sz": np.rint(2 * m).astype(np.int64)}
+    charges = {"twice_sz": np.rint(2 * m).astype(np.int64)}
     return SiteSpace(
         name=f"spin-{'1/2' if twice_s == 1 else int(s)}",
         states=states,
         operators=_freeze(ops),
         charges=_freeze(charges),
         parity=np.zeros(d, dtype=np.int64),
-        flux_charge="2Sz",
+        flux_charge="twice_sz",
         flux_charge_scale=0.5,
         description="spin operators Sx, Sy, Sz, Sp, Sm (S = sigma/2)"
         + ("; Pauli X, Y, Z" if twice_s == 1 else "; Sz2 = Sz^2"),
@@ -189,19 +189,19 @@ def _spin_space(twice_s: int) -> SiteSpace:
 def _fermion_space() -> SiteSpace:
     # basis |0>, |1>; c|1> = |0>
     c = np.array([[0.0, 1.0], [0.0, 0.0]])
-    ops = {"Id": np.eye(2), "c": c, "cdag": c.T.copy(), "n": np.diag([0.0, 1.0]), "F": np.diag([1.0, -1.0])}
+    ops = {"one": np.eye(2), "c": c, "cdag": c.T.copy(), "n": np.diag([0.0, 1.0]), "parity": np.diag([1.0, -1.0])}
     return SiteSpace(
         name="fermion",
-        states=("empty", "full"),
+        states=("empty", "occupied"),
         operators=_freeze(ops),
         charges=_freeze({"N": np.array([0, 1])}),
         parity=np.array([0, 1]),
         flux_charge="N",
-        description="spinless fermion: c, cdag, n, F = (-1)^n",
+        description="spinless fermion: c, cdag, n, parity = (-1)^n",
     )
 
 
-def _electron_space() -> SiteSpace:
+def _spinful_fermion_space() -> SiteSpace:
     # basis |0>, |up>, |dn>, |up dn> = cdag_up cdag_dn |0> (up before down inside a site)
     c1 = np.array([[0.0, 1.0], [0.0, 0.0]])
     f1 = np.diag([1.0, -1.0])
@@ -216,7 +216,7 @@ def _electron_space() -> SiteSpace:
     n_up = c_up.T @ c_up
     n_dn = c_dn.T @ c_dn
     ops = {
-        "Id": np.eye(4),
+        "one": np.eye(4),
         "c_up": c_up,
         "c_dn": c_dn,
         "cdag_up": c_up.T.copy(),
@@ -224,31 +224,31 @@ def _electron_space() -> SiteSpace:
         "n_up": n_up,
         "n_dn": n_dn,
         "n": n_up + n_dn,
-        "n_updn": n_up @ n_dn,
+        "n_pair": n_up @ n_dn,
         "Sz": (n_up - n_dn) / 2,
         "Sp": c_up.T @ c_dn,
         "Sm": c_dn.T @ c_up,
-        "F": np.diag([1.0, -1.0, -1.0, 1.0]),
+        "parity": np.diag([1.0, -1.0, -1.0, 1.0]),
     }
     ops["Sx"] = (ops["Sp"] + ops["Sm"]) / 2
     ops["Sy"] = (ops["Sp"] - ops["Sm"]) / 2j
     return SiteSpace(
-        name="electron",
+        name="spinful_fermion",
         states=("empty", "up", "down", "double"),
         operators=_freeze(ops),
-        charges=_freeze({"N": np.array([0, 1, 1, 2]), "2Sz": np.array([0, 1, -1, 0])}),
+        charges=_freeze({"N": np.array([0, 1, 1, 2]), "twice_sz": np.array([0, 1, -1, 0])}),
         parity=np.array([0, 1, 1, 0]),
         flux_charge="N",
-        description="spinful fermion: c_up, c_dn, cdag_up, cdag_dn, n_up, n_dn, n, n_updn, Sx, Sy, Sz, Sp, Sm, F",
+        description="spinful fermion: c_up, c_dn, cdag_up, cdag_dn, n_up, n_dn, n, n_pair, Sx, Sy, Sz, Sp, Sm, parity",
     )
 
 
 def _hardcore_boson_space() -> SiteSpace:
     b = np.array([[0.0, 1.0], [0.0, 0.0]])
-    ops = {"Id": np.eye(2), "b": b, "bdag": b.T.copy(), "n": np.diag([0.0, 1.0])}
+    ops = {"one": np.eye(2), "b": b, "bdag": b.T.copy(), "n": np.diag([0.0, 1.0])}
     return SiteSpace(
         name="hardcore-boson",
-        states=("empty", "full"),
+        states=("empty", "occupied"),
         operators=_freeze(ops),
         charges=_freeze({"N": np.array([0, 1])}),
         parity=np.zeros(2, dtype=np.int64),
@@ -262,7 +262,7 @@ SITE_SPACES: Mapping[str, SiteSpace] = MappingProxyType(
         "spin-1/2": _spin_space(1),
         "spin-1": _spin_space(2),
         "fermion": _fermion_space(),
-        "electron": _electron_space(),
+        "spinful_fermion": _spinful_fermion_space(),
         "hardcore-boson": _hardcore_boson_space(),
     }
 )
@@ -284,14 +284,14 @@ def site_space(name: str) -> SiteSpace:
         ) from None
 
 
-def count_sector_states(space: SiteSpace, num_sites: int, conserve: tuple[str, ...], sector: Mapping[str, int]) -> int:
+def count_sector_states(space: SiteSpace, num_sites: int, conserved: tuple[str, ...], sector: Mapping[str, int]) -> int:
     """Number of basis states of ``num_sites`` sites whose total charges equal ``sector``.
 
     Counted by convolving the local charge distribution site by site (no enumeration), so it is
     cheap for any size.
     """
-    values = [tuple(row) for row in space.charge_values(conserve)]
-    counts: dict[tuple[int, ...], int] = {(0,) * len(conserve): 1}
+    values = [tuple(row) for row in space.charge_values(conserved)]
+    counts: dict[tuple[int, ...], int] = {(0,) * len(conserved): 1}
     for _ in range(num_sites):
         nxt: dict[tuple[int, ...], int] = {}
         for total, n in counts.items():
@@ -299,4 +299,4 @@ def count_sector_states(space: SiteSpace, num_sites: int, conserve: tuple[str, .
                 key = tuple(a + b for a, b in zip(total, q))
                 nxt[key] = nxt.get(key, 0) + n
         counts = nxt
-    return counts.get(tuple(int(sector[c]) for c in conserve), 0)
+    return counts.get(tuple(int(sector[c]) for c in conserved), 0)

@@ -8,7 +8,7 @@ Layout
     name = "haldane"                  # required
     description = "..."               # one line, shown by `netprobe models`
     site = "fermion"                  # a registered site space
-    conserve = ["N"]                  # conserved charges used to block the problem (may be [])
+    conserved = ["N"]                  # conserved charges used to block the problem (may be [])
 
     [parameters]                      # every entry can be overridden with --set name=value
     lattice = "honeycomb"             # lattice keys: lattice, geometry, orientation, length,
@@ -57,7 +57,7 @@ __all__ = ["ModelSpec", "Model", "load_spec", "parse_spec", "parse_overrides", "
 
 LATTICE_KEYS = {"lattice": str, "geometry": str, "orientation": str, "length": int, "circumference": int,
                 "flux": float, "twist": float}
-_MODEL_KEYS = {"name", "description", "site", "conserve", "source"}
+_MODEL_KEYS = {"name", "description", "site", "conserved", "source"}
 _TERM_KEYS = {"on", "ops", "coupling", "conjugate", "peierls"}
 _TOP_KEYS = {"model", "parameters", "sector", "term"}
 _SITE_VARIABLES = ("x", "y", "sublattice", "eps")
@@ -131,7 +131,7 @@ class ModelSpec:
     description: str
     source: str
     site: str
-    conserve: tuple[str, ...]
+    conserved: tuple[str, ...]
     parameters: Mapping[str, Any]
     sector: Mapping[str, expr.Expression]
     terms: tuple[TermSpec, ...]
@@ -227,9 +227,9 @@ def parse_spec(text: str, *, path: str = "") -> ModelSpec:
     for key in ("name", "site"):
         if not isinstance(model.get(key), str):
             raise SpecError(f"{where}: [model] needs a string '{key}'")
-    conserve = model.get("conserve", [])
-    if not isinstance(conserve, list) or not all(isinstance(c, str) for c in conserve):
-        raise SpecError(f"{where}: [model] conserve must be a list of charge names, e.g. [\"N\"] or []")
+    conserved = model.get("conserved", [])
+    if not isinstance(conserved, list) or not all(isinstance(c, str) for c in conserved):
+        raise SpecError(f"{where}: [model] conserved must be a list of charge names, e.g. [\"N\"] or []")
     params = raw.get("parameters", {})
     if not isinstance(params, dict):
         raise SpecError(f"{where}: [parameters] must be a table")
@@ -248,12 +248,12 @@ def parse_spec(text: str, *, path: str = "") -> ModelSpec:
         raise SpecError(f"{where}: [sector] must be a table of charge = value")
     sector = {}
     for key, value in sector_raw.items():
-        if key not in conserve:
+        if key not in conserved:
             raise SpecError(
-                f"{where}: [sector] names charge '{key}' that is not conserved; conserved: {', '.join(conserve) or 'none'}"
+                f"{where}: [sector] names charge '{key}' that is not conserved; conserved: {', '.join(conserved) or 'none'}"
             )
         sector[key] = _as_expression(value, where, f"[sector] {key}")
-    missing = [c for c in conserve if c not in sector]
+    missing = [c for c in conserved if c not in sector]
     if missing:
         raise SpecError(f"{where}: [sector] needs a value for conserved charge(s) {', '.join(missing)}")
     terms_raw = raw.get("term", [])
@@ -278,7 +278,7 @@ def parse_spec(text: str, *, path: str = "") -> ModelSpec:
                               str(entry["ops"])))
     return ModelSpec(
         name=model["name"], description=str(model.get("description", "")), source=str(model.get("source", "")),
-        site=model["site"], conserve=tuple(conserve), parameters=dict(params), sector=sector,
+        site=model["site"], conserved=tuple(conserved), parameters=dict(params), sector=sector,
         terms=tuple(terms), path=path, text=text,
     )
 
@@ -432,7 +432,7 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None, *,
         geometry=params.get("geometry", "cylinder"), orientation=params.get("orientation", "zigzag"),
     )
     space = site_space(spec.site)
-    space.charge_values(spec.conserve)  # validates the charge names
+    space.charge_values(spec.conserved)  # validates the charge names
     env = _numeric_env(params)
     flux = float(np.real(params.get("flux", 0.0)))
     twist = float(np.real(params.get("twist", 0.0)))
@@ -491,7 +491,7 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None, *,
     sector = _resolve_sector(spec, params, lattice.num_sites, space)
     try:
         ham = Hamiltonian.from_terms(lattice, space, terms, add_conjugate=conjugated,
-                                     conserve=spec.conserve, sector=sector)
+                                     conserved=spec.conserved, sector=sector)
     except NetprobeError as err:
         raise type(err)(f"{where}: {err}") from None
     if not ham.products:
@@ -549,8 +549,8 @@ def _resolve_sector(spec: ModelSpec, params, num_sites: int, space: SiteSpace) -
     where = _where(spec.path)
     env = _numeric_env(params) | {"sites": num_sites}
     sector = {}
-    values = space.charge_values(spec.conserve)
-    for k, name in enumerate(spec.conserve):
+    values = space.charge_values(spec.conserved)
+    for k, name in enumerate(spec.conserved):
         try:
             value = spec.sector[name].evaluate(env)
         except ExpressionError as err:

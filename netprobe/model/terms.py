@@ -159,18 +159,18 @@ class Hamiltonian:
     space : SiteSpace
     products : sequence of LocalProduct
         Terms in normal form.
-    conserve : tuple of str
+    conserved : tuple of str
         Names of the conserved charges used to block the problem (may be empty).
     sector : dict of str to int
         Target value of each conserved charge.
     """
 
     def __init__(self, lattice, space: SiteSpace, products: Sequence[LocalProduct], *,
-                 conserve: tuple[str, ...] = (), sector: dict[str, int] | None = None):
+                 conserved: tuple[str, ...] = (), sector: dict[str, int] | None = None):
         self.lattice = lattice
         self.space = space
         self.products = tuple(products)
-        self.conserve = tuple(conserve)
+        self.conserved = tuple(conserved)
         self.sector = dict(sector or {})
         self.is_complex = any(
             abs(np.imag(p.coefficient)) > 0 or any(np.iscomplexobj(m) and np.any(np.imag(m)) for m in p.matrices)
@@ -192,12 +192,12 @@ class Hamiltonian:
 
     def with_sector(self, sector: dict[str, int]) -> "Hamiltonian":
         """The same Hamiltonian targeting another charge sector (e.g. N + 1 for a charge gap)."""
-        unknown = set(sector) - set(self.conserve)
+        unknown = set(sector) - set(self.conserved)
         if unknown:
             raise SectorError(
-                f"charge(s) {', '.join(sorted(unknown))} not conserved; conserved: {', '.join(self.conserve) or 'none'}"
+                f"charge(s) {', '.join(sorted(unknown))} not conserved; conserved: {', '.join(self.conserved) or 'none'}"
             )
-        return Hamiltonian(self.lattice, self.space, self.products, conserve=self.conserve,
+        return Hamiltonian(self.lattice, self.space, self.products, conserved=self.conserved,
                            sector={**self.sector, **sector})
 
     @property

@@ -282,13 +282,13 @@ def plot_cut_spectrum(result: dict, path, *, title=None, sectors: int = 5, heigh
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    by_charge: dict = {}
+    per_charge: dict = {}
     for entry in result["spectrum"]:
         key = "none" if entry["charge"] is None else (",".join(map(str, entry["charge"]))
                                                       if isinstance(entry["charge"], list) else str(entry["charge"]))
-        by_charge.setdefault(key, []).append((entry["momentum"], entry["level"]))
+        per_charge.setdefault(key, []).append((entry["momentum"], entry["level"]))
     details = {s["charge"]: s for s in result["counting_details"]["sectors"]}
-    keys = sorted(by_charge, key=lambda k: min(level for _, level in by_charge[k]))[:sectors]
+    keys = sorted(per_charge, key=lambda k: min(level for _, level in per_charge[k]))[:sectors]
     keys = sorted(keys, key=lambda k: [int(x) for x in k.split(",")] if k != "none" else [0])
     w = int(result["circumference"])
     fig = Figure(figsize=(2.4 * len(keys) + 0.8, 3.6), dpi=120)
@@ -297,7 +297,7 @@ def plot_cut_spectrum(result: dict, path, *, title=None, sectors: int = 5, heigh
     for n, key in enumerate(keys):
         ax = fig.add_subplot(1, len(keys), n + 1, sharey=axes[0] if axes else None)
         axes.append(ax)
-        points = np.array(by_charge[key], dtype=float)
+        points = np.array(per_charge[key], dtype=float)
         low = points[:, 1].min()
         keep = points[:, 1] <= low + height
         ax.scatter(points[keep, 0], points[keep, 1], s=22, marker="_", linewidths=1.6,

@@ -453,7 +453,7 @@ def mps_cut(state, cut: ColumnCut, *, tol: float = DEGENERACY_TOL) -> CutSpectru
     centre = work.tensors[cut.bond]
     dense = _dense_site(centre, order)
     mat = dense.reshape(dense.shape[0], -1)
-    bond_charges = centre.legs[0].basis_charges()[:, : len(work.basis.conserve)]
+    bond_charges = centre.legs[0].basis_charges()[:, : len(work.basis.conserved)]
     blocks = []
     for charge in np.unique(bond_charges, axis=0):
         rows = np.nonzero(np.all(bond_charges == charge, axis=1))[0]
@@ -464,7 +464,7 @@ def mps_cut(state, cut: ColumnCut, *, tol: float = DEGENERACY_TOL) -> CutSpectru
         u, s = u[:, keep], s[keep]
         t = u.conj().T @ env[np.ix_(rows, rows)] @ u
         blocks.append((tuple(int(c) for c in charge), s, t))
-    return cut_from_schmidt(blocks, cut.circumference, work.basis.conserve, tol)
+    return cut_from_schmidt(blocks, cut.circumference, work.basis.conserved, tol)
 
 
 # --------------------------------------------------------------------------------------------------

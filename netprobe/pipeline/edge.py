@@ -287,7 +287,7 @@ def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex],
 
 def _thread_flux(model, state, settings, quanta: int, steps: int, seed, progress):
     """Warm-started DMRG while the twist grows by ``2 pi quanta`` (the adiabatic branch of :mod:`netprobe.pipeline.flux`)."""
-    if "twist" not in model.spec.parameters or not model.spec.conserve:
+    if "twist" not in model.spec.parameters or not model.spec.conserved:
         raise NetprobeError(f"--flux-quanta: model '{model.name}' needs a 'twist' parameter and a conserved charge "
                             "to thread flux; choose the sector by its boundary or charge instead")
     overrides = {k: repr(v) if isinstance(v, float) else str(v) for k, v in model.parameters.items()
@@ -324,7 +324,7 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
         # the cut needs the state itself, not only its energy: tighter than the engine's defaults
         kwargs = {"bond_dimension": int(d), "energy_tolerance": 1e-12, "solver_tolerance": 1e-10}
         if sweeps:
-            kwargs["max_sweeps"] = int(sweeps)
+            kwargs["sweep_limit"] = int(sweeps)
         if state is not None:
             kwargs["ramp"] = ()
         result = find_ground_state(model, SweepSettings(**kwargs), seed=seed, state=state,

@@ -10,7 +10,7 @@ from the Schmidt spectrum at the central cut: <Q_L> = sum_a lambda_a^2 q_a.
 
 The model must have a ``twist`` parameter (the lattice key that puts the phase theta on every
 charge-moving bond around the cylinder) and a conserved charge. For spin models with Sz conservation
-the pumped quantity is the spin analogue (2Sz, reported in units of Sz).
+the pumped quantity is the spin analogue (twice_sz, reported in units of Sz).
 """
 
 from __future__ import annotations
@@ -93,17 +93,17 @@ def thread_flux(spec, overrides: dict | None = None, *, steps: int = 8, bond_dim
     if steps < 2:
         raise NetprobeError(f"flux threading needs at least 2 steps, got {steps}")
     spec = load_spec(spec) if isinstance(spec, str) else spec
-    if not spec.conserve:
+    if not spec.conserved:
         raise SpecError(f"model '{spec.name}' conserves no charge; flux threading needs a U(1) charge to pump")
     if "twist" not in spec.parameters:
         raise SpecError(f"model '{spec.name}' has no 'twist' parameter; add twist = 0.0 to its [parameters]")
     overrides = dict(overrides or {})
-    charge = spec.conserve[0]
+    charge = spec.conserved[0]
     start = time.perf_counter()
     thetas = np.linspace(0.0, 2 * math.pi, steps + 1)
     state = None
     charges, energies, spectra = [], [], []
-    sweep_settings = SweepSettings(bond_dimension=bond_dimension, max_sweeps=sweeps)
+    sweep_settings = SweepSettings(bond_dimension=bond_dimension, sweep_limit=sweeps)
     bond = None
     for k, theta in enumerate(thetas):
         model = build_model(spec, {**overrides, "twist": repr(float(theta))})

@@ -325,8 +325,8 @@ def _config_labels(local: np.ndarray, moduli, m: int) -> np.ndarray:
     return _labels(sums, moduli)
 
 
-def _root_from_rho(rho: np.ndarray, space: SiteSpace, sites, conserve, route: str) -> GradedRoot:
-    names, local, moduli = _grading_of(space, conserve)
+def _root_from_rho(rho: np.ndarray, space: SiteSpace, sites, conserved, route: str) -> GradedRoot:
+    names, local, moduli = _grading_of(space, conserved)
     labels = _config_labels(local, moduli, len(sites))
     uniq, inverse = (np.unique(labels, axis=0, return_inverse=True) if labels.shape[1]
                      else (np.zeros((1, 0), np.int64), np.zeros(rho.shape[0], np.int64)))
@@ -341,9 +341,9 @@ def _root_from_rho(rho: np.ndarray, space: SiteSpace, sites, conserve, route: st
     return GradedRoot(tuple(sites), space, names, local, moduli, tuple(blocks), route)
 
 
-def _code_tables(space, conserve, m: int):
+def _code_tables(space, conserved, m: int):
     """Grading labels, the block of every configuration code and its position inside the block."""
-    names, local, moduli = _grading_of(space, conserve)
+    names, local, moduli = _grading_of(space, conserved)
     labels = _config_labels(local, moduli, m)
     if labels.shape[1]:
         uniq, inverse = np.unique(labels, axis=0, return_inverse=True)

@@ -24,7 +24,7 @@ Layout
     # h = 0.5
 
     [ladder]                          # dmrg: bond dimensions, increasing; any sweep setting below
-    bond_dimensions = [8, 16]         #   (max_sweeps, min_sweeps, energy_tolerance, noise, ...)
+    bond_dimensions = [8, 16]         #   (sweep_limit, sweep_minimum, energy_tolerance, noise, ...)
     variance = false                  #   energy variance of every state (costs about one sweep)
 
     [measure]
@@ -62,8 +62,7 @@ from typing import Any, Mapping
 from netprobe.errors import NetprobeError, SpecError
 from netprobe.engines.limits import check_dmrg_model, check_exact_model
 from netprobe.model.spec import (
-    LATTICE_KEYS, ModelSpec, _resolve_parameters, bundled_files, check_size, find_toml, models_directory,
-    parse_spec,
+    LATTICE_KEYS, ModelSpec, _resolve_parameters, check_size, find_toml, models_directory, parse_spec,
 )
 from netprobe.errors import OperatorError
 from netprobe.model.spec import build_model
@@ -82,7 +81,6 @@ __all__ = [
     "StudyDescription",
     "studies_directory",
     "find_study",
-    "list_studies",
     "parse_probe",
 ]
 
@@ -136,8 +134,8 @@ _AXIS_KEYS = {"start", "stop", "num", "values"}
 _MEASURE_KEYS = {"region", "regions", "probes"}
 _LADDER_ONLY = {"bond_dimensions", "variance"}
 _SWEEP_KEYS = {
-    "max_sweeps",
-    "min_sweeps",
+    "sweep_limit",
+    "sweep_minimum",
     "energy_tolerance",
     "discarded_tolerance",
     "truncation_weight",
@@ -157,11 +155,6 @@ _DECIMALS = 12  # grid values are rounded so that 0.1 * 3 prints as 0.3 in label
 def studies_directory() -> Path:
     """The folder of bundled study files (``models/studies/`` beside the package)."""
     return models_directory() / "studies"
-
-
-def list_studies() -> list[Path]:
-    """Bundled study files, sorted by name."""
-    return bundled_files(studies_directory())
 
 
 def find_study(name_or_path: str) -> Path:

@@ -381,7 +381,7 @@ class BlockTensor:
         Raises
         ------
         ValueError
-            If an entry outside the allowed blocks exceeds ``atol`` (the array does not conserve the
+            If an entry outside the allowed blocks exceeds ``atol`` (the array does not conserved the
             charge, or legs, directions or total charge are wrong).
         """
         legs, qkey = _check_structure(legs, charge, rule, "BlockTensor.from_dense")

@@ -3,7 +3,7 @@
 Modules
 -------
 ``engine``
-    :class:`SweepSettings`, the steppable :class:`DmrgEngine`, :class:`SweepRecord`, :class:`DmrgResult`,
+    :class:`SweepSettings`, the steppable :class:`GroundStateSearch`, :class:`SweepRecord`, :class:`DmrgResult`,
     :func:`find_ground_state`.
 ``environments``
     Left and right environments, updated one site at a time.
@@ -18,13 +18,13 @@ Modules
     energy-versus-discarded-weight extrapolation.
 """
 
-from netprobe.engines.dmrg.engine import (ConvergenceWarning, DmrgEngine, DmrgResult, SweepRecord, SweepSettings,
+from netprobe.engines.dmrg.engine import (ConvergenceWarning, GroundStateSearch, DmrgResult, SweepRecord, SweepSettings,
                                   default_ramp, find_ground_state)
 from netprobe.engines.dmrg.ladder import (CHECKPOINT_NAME, Extrapolation, LadderResult, LadderSettings, StageResult,
                                   extrapolate_energy, resume_ladder, run_ladder, stage_file_name)
 from netprobe.engines.dmrg.solvers import EIGENSOLVERS
 
-__all__ = ["SweepSettings", "SweepRecord", "DmrgResult", "DmrgEngine", "ConvergenceWarning",
+__all__ = ["SweepSettings", "SweepRecord", "DmrgResult", "GroundStateSearch", "ConvergenceWarning",
            "find_ground_state", "default_ramp", "EIGENSOLVERS", "LadderSettings", "StageResult",
            "Extrapolation", "LadderResult", "extrapolate_energy", "run_ladder", "resume_ladder",
            "CHECKPOINT_NAME", "stage_file_name"]

@@ -7,7 +7,7 @@ For the bond between sites ``i`` and ``i + 1`` the wavefunction is ``theta[a, s1
 
 contracted one tensor at a time (cost about ``chi^3 D d^2`` per product); the matrix is never formed.
 The same partial products give the perturbation terms of the density-matrix noise.
-:class:`OneSiteHamiltonian` is the single-site analogue (cost about ``chi^3 D d``).
+:class:`SiteOperator` is the single-site analogue (cost about ``chi^3 D d``).
 """
 
 from __future__ import annotations
@@ -16,10 +16,10 @@ import numpy as np
 
 from netprobe.tensor import BlockLayout, BlockTensor, contract, matmul_tally
 
-__all__ = ["TwoSiteHamiltonian", "OneSiteHamiltonian"]
+__all__ = ["PairOperator", "SiteOperator"]
 
 
-class TwoSiteHamiltonian:
+class PairOperator:
     """``H_eff`` on the two-site space of one bond.
 
     Parameters
@@ -112,7 +112,7 @@ class TwoSiteHamiltonian:
         return contract(x, self.w2, ([2, 3], [2, 3]))  # (a, s1, b*, u, s2')
 
 
-class OneSiteHamiltonian:
+class SiteOperator:
     """``H_eff`` on the tensor of one site.
 
     ``(H A)[a*, s', b*] = sum L[a*, a, w] W[w, s', s, v] R[b, v, b*] A[a, s, b]``.

@@ -42,7 +42,7 @@ import numpy as np
 
 from threadpoolctl import threadpool_limits
 
-from netprobe.engines.dmrg.effective import OneSiteHamiltonian, TwoSiteHamiltonian
+from netprobe.engines.dmrg.effective import SiteOperator, PairOperator
 from netprobe.engines.dmrg.environments import Environments
 from netprobe.engines.dmrg.progress import ProgressWriter
 from netprobe.engines.dmrg.solvers import check_eigensolver, lowest_eigenpair
@@ -51,7 +51,7 @@ from netprobe.engines.mps import MPS, BlockMPO, random_state
 from netprobe.tensor import BlockLayout, BlockTensor, Leg, contract, diag_multiply, eigh, lq, matmul_tally, qr, svd
 from netprobe.engines.mps.mpo import build_mpo
 
-__all__ = ["SweepSettings", "SweepRecord", "DmrgResult", "DmrgEngine", "ConvergenceWarning",
+__all__ = ["SweepSettings", "SweepRecord", "DmrgResult", "GroundStateSearch", "ConvergenceWarning",
            "find_ground_state", "default_ramp", "LOCAL_UPDATES"]
 
 _RAMP_START = 16  # first bond dimension of the default ramp
@@ -106,9 +106,9 @@ class SweepSettings:
     ramp : tuple of int or None
         Bond dimensions of the first sweeps, each at most ``bond_dimension``; ``None`` gives
         :func:`default_ramp`, ``()`` starts at ``bond_dimension`` (e.g. from a converged smaller state).
-    max_sweeps : int
+    sweep_limit : int
         Stop after this many sweeps (the result then says ``converged=False``).
-    min_sweeps : int
+    sweep_minimum : int
         Never stop before this many sweeps.
     energy_tolerance : float
         Converged when the energy change between two noise-free sweeps at the final bond dimension is
@@ -154,8 +154,8 @@ class SweepSettings:
 
     bond_dimension: int = 64
     ramp: tuple[int, ...] | None = None
-    max_sweeps: int = 20
-    min_sweeps: int = 2
+    sweep_limit: int = 20
+    sweep_minimum: int = 2
     energy_tolerance: float = 1e-9
     discarded_tolerance: float = 1e-5
     truncation_weight: float = 1e-12
@@ -185,8 +185,8 @@ class SweepSettings:
                         "the ramp climbs towards the final bond dimension"
                     )
             object.__setattr__(self, "ramp", tuple(int(c) for c in ramp))
-        _positive_int("max_sweeps", self.max_sweeps)
-        _positive_int("min_sweeps", self.min_sweeps)
+        _positive_int("sweep_limit", self.sweep_limit)
+        _positive_int("sweep_minimum", self.sweep_minimum)
         _fraction("energy_tolerance", self.energy_tolerance)
         _fraction("discarded_tolerance", self.discarded_tolerance, closed=True)
         _fraction("truncation_weight", self.truncation_weight)
@@ -406,8 +406,8 @@ def _entropy(values) -> float:
     return float(-np.sum(p * np.log(p)))
 
 
-class DmrgEngine:
-    """A two-site DMRG run that can be stepped one sweep at a time or run to convergence.
+class GroundStateSearch:
+    """A two-site DMRG ground-state search: :meth:`step` does one sweep, :meth:`finish` sweeps to convergence.
 
     Parameters
     ----------
@@ -434,10 +434,10 @@ class DmrgEngine:
     >>> from netprobe.engines.mps.mpo import build_mpo
     >>> from netprobe.engines.mps import random_state
     >>> ham = load_model("heisenberg", {"length": "8"}).hamiltonian
-    >>> engine = DmrgEngine(build_mpo(ham), random_state(ham, rng=1),
+    >>> engine = GroundStateSearch(build_mpo(ham), random_state(ham, rng=1),
     ...                     SweepSettings(bond_dimension=16), progress=None)
-    >>> record = engine.sweep()
-    >>> result = engine.run()
+    >>> record = engine.step()
+    >>> result = engine.finish()
     >>> print(f"{result.energy:.10f}", result.converged)
     -3.3749325987 True
     """
@@ -446,13 +446,13 @@ class DmrgEngine:
                  progress="stderr", history=(), blas_threads: int | None = 1):
         self.settings = settings if settings is not None else SweepSettings()
         if not isinstance(self.settings, SweepSettings):
-            raise NetprobeError("DmrgEngine: settings must be a SweepSettings")
+            raise NetprobeError("GroundStateSearch: settings must be a SweepSettings")
         if state.num_sites < 2:
-            raise NetprobeError("DmrgEngine: two-site DMRG needs at least 2 sites; use the exact engine")
+            raise NetprobeError("GroundStateSearch: two-site DMRG needs at least 2 sites; use the exact engine")
         self.mpo = BlockMPO.from_mpo(mpo, state.basis)
         if self.mpo.num_sites != state.num_sites:
             raise NetprobeError(
-                f"DmrgEngine: the MPO has {self.mpo.num_sites} sites, the state {state.num_sites}")
+                f"GroundStateSearch: the MPO has {self.mpo.num_sites} sites, the state {state.num_sites}")
         state = state.copy()
         dtype = np.result_type(state.dtype, self.mpo.dtype)
         if state.dtype != dtype:
@@ -468,7 +468,7 @@ class DmrgEngine:
         if blas_threads is not None and (isinstance(blas_threads, bool) or not isinstance(blas_threads, int)
                                          or blas_threads < 1):
             raise NetprobeError(
-                f"DmrgEngine: blas_threads={blas_threads!r} must be a positive integer or None")
+                f"GroundStateSearch: blas_threads={blas_threads!r} must be a positive integer or None")
         self.blas_threads = blas_threads
         with self.blas_limit():
             self._env = Environments(state, self.mpo)
@@ -478,7 +478,7 @@ class DmrgEngine:
 
     @property
     def finished(self) -> bool:
-        """True once the run has converged or has given up (``max_sweeps``)."""
+        """True once the run has converged or has given up (``sweep_limit``)."""
         return self._outcome is not None
 
     @property
@@ -496,7 +496,7 @@ class DmrgEngine:
         k = len(self.history)
         last = self.history[-1]
         tol = s.energy_tolerance * max(1.0, abs(last.energy))
-        ready = k >= max(s.min_sweeps, s.first_clean_sweep + 2)
+        ready = k >= max(s.sweep_minimum, s.first_clean_sweep + 2)
         if ready and abs(last.energy_change) <= tol:
             if last.discarded_weight <= s.discarded_tolerance:
                 return (True, f"converged after {k} sweeps: energy change {last.energy_change:+.2e}, "
@@ -504,11 +504,11 @@ class DmrgEngine:
             return (False, f"energy settled after {k} sweeps (change {last.energy_change:+.2e}) but the "
                            f"discarded weight {last.discarded_weight:.2e} exceeds discarded_tolerance="
                            f"{s.discarded_tolerance:g}; raise the bond dimension")
-        if k >= s.max_sweeps:
+        if k >= s.sweep_limit:
             change = "n/a" if math.isnan(last.energy_change) else f"{last.energy_change:+.2e}"
-            return (False, f"not converged after {k} sweeps (max_sweeps): energy change {change} against "
+            return (False, f"not converged after {k} sweeps (sweep_limit): energy change {change} against "
                            f"tolerance {tol:.1e}, discarded weight {last.discarded_weight:.2e}; "
-                           "raise max_sweeps")
+                           "raise sweep_limit")
         return None
 
     # ---- one bond --------------------------------------------------------------------------------
@@ -557,7 +557,7 @@ class DmrgEngine:
         tensors = self.state.tensors
         theta = contract(tensors[i], tensors[i + 1], ([2], [0]))
         layout = BlockLayout(theta.legs, None, self.state.basis.rule, self.dtype)
-        op = TwoSiteHamiltonian(self._env.left[i], self.mpo.tensors[i], self.mpo.tensors[i + 1],
+        op = PairOperator(self._env.left[i], self.mpo.tensors[i], self.mpo.tensors[i + 1],
                                 self._env.right[i + 2], layout)
         v0 = layout.pack(theta)
         if not np.any(v0):
@@ -626,7 +626,7 @@ class DmrgEngine:
         tensors = self.state.tensors
         a = tensors[i]
         layout = BlockLayout(a.legs, None, self.state.basis.rule, self.dtype)
-        op = OneSiteHamiltonian(self._env.left[i], self.mpo.tensors[i], self._env.right[i + 1], layout)
+        op = SiteOperator(self._env.left[i], self.mpo.tensors[i], self._env.right[i + 1], layout)
         v0 = layout.pack(a)
         flops = matmul_tally().flops
         pair = lowest_eigenpair(s.eigensolver, op, v0, tol=stats["tolerance"],
@@ -670,7 +670,7 @@ class DmrgEngine:
             return contextlib.nullcontext()
         return threadpool_limits(limits=self.blas_threads)
 
-    def sweep(self) -> SweepRecord:
+    def step(self) -> SweepRecord:
         """Run one sweep (left to right and back, ending with the centre at site 0) and return its record.
 
         Returns
@@ -708,8 +708,8 @@ class DmrgEngine:
         self.progress.sweep(record)
         return record
 
-    def run(self, *, on_sweep=None, warn: bool = True) -> DmrgResult:
-        """Sweep until converged or ``max_sweeps``; return the result (never raises on non-convergence).
+    def finish(self, *, on_sweep=None, warn: bool = True) -> DmrgResult:
+        """Sweep until converged or ``sweep_limit``; return the result (never raises on non-convergence).
 
         Parameters
         ----------
@@ -719,7 +719,7 @@ class DmrgEngine:
             Emit a :class:`ConvergenceWarning` if the run stops without converging.
         """
         while not self.finished:
-            record = self.sweep()
+            record = self.step()
             if on_sweep is not None:
                 on_sweep(self, record)
         result = self.result()
@@ -759,7 +759,7 @@ def find_ground_state(model, settings: SweepSettings | None = None, *, seed=None
     warn : bool
         Warn if the run does not converge.
     blas_threads : int or None
-        See :class:`DmrgEngine`.
+        See :class:`GroundStateSearch`.
 
     Returns
     -------
@@ -770,7 +770,7 @@ def find_ground_state(model, settings: SweepSettings | None = None, *, seed=None
     rng = np.random.default_rng(seed)
     if state is None:
         state = random_state(ham, bond_dimension=min(settings.bond_dimension_at(0), _RAMP_START), rng=rng)
-    engine = DmrgEngine(build_mpo(ham), state, settings, rng=rng, progress=progress,
+    engine = GroundStateSearch(build_mpo(ham), state, settings, rng=rng, progress=progress,
                         blas_threads=blas_threads)
-    return engine.run(warn=warn)
+    return engine.finish(warn=warn)
 

@@ -22,7 +22,7 @@ from pathlib import Path
 
 import numpy as np
 
-from netprobe.engines.dmrg.engine import ConvergenceWarning, DmrgEngine, SweepRecord, SweepSettings
+from netprobe.engines.dmrg.engine import ConvergenceWarning, GroundStateSearch, SweepRecord, SweepSettings
 from netprobe.engines.dmrg.progress import ProgressWriter
 from netprobe.errors import NetprobeError
 from netprobe.engines.mps.mpo import build_mpo
@@ -383,7 +383,7 @@ def run_ladder(model, settings: LadderSettings, *, overrides=None, seed: int | N
     progress : file-like, "stderr" or None
     blas_threads : int or None
         Threads of the BLAS/LAPACK libraries during sweeps and variances (see
-        :class:`netprobe.engines.dmrg.DmrgEngine`); None leaves them as they are.
+        :class:`netprobe.engines.dmrg.GroundStateSearch`); None leaves them as they are.
     initial : MPS, optional
         Start the first stage from this state instead of a random one (a warm start; the seed still
         drives the noise).
@@ -469,7 +469,7 @@ def run_ladder(model, settings: LadderSettings, *, overrides=None, seed: int | N
         if not history:
             writer.line(f"ladder | stage {k + 1}/{len(chis)}: bond dimension {chi}"
                         + (f", warm start from D={chis[k - 1]}" if k else ", random initial state"))
-        engine = DmrgEngine(mpo, state, stage_settings, rng=rng, progress=stage_writer, history=history,
+        engine = GroundStateSearch(mpo, state, stage_settings, rng=rng, progress=stage_writer, history=history,
                             blas_threads=blas_threads)
         start = time.perf_counter() - elapsed
 
@@ -478,7 +478,7 @@ def run_ladder(model, settings: LadderSettings, *, overrides=None, seed: int | N
                 write_checkpoint(k, eng.state, {"history": [r.to_dict() for r in eng.history],
                                                 "elapsed": time.perf_counter() - start})
 
-        result = engine.run(on_sweep=on_sweep, warn=False)
+        result = engine.finish(on_sweep=on_sweep, warn=False)
         variance = None
         if settings.variance:
             with engine.blas_limit():

@@ -316,7 +316,7 @@ class SectorBasis:
     Parameters
     ----------
     local_charges : array_like of int, shape (d, k)
-        Charge values of each local basis state (``SiteSpace.charge_values(conserve)``); ``k = 0``
+        Charge values of each local basis state (``SiteSpace.charge_values(conserved)``); ``k = 0``
         gives the full space.
     num_sites : int
         Number of sites N.
@@ -489,24 +489,24 @@ def sector_basis(ham: Hamiltonian, sector: Mapping[str, int] | None = None, *,
     Raises
     ------
     SectorError
-        If ``sector`` names a charge the Hamiltonian does not conserve, or the sector is empty.
+        If ``sector`` names a charge the Hamiltonian does not conserved, or the sector is empty.
     """
     target = dict(ham.sector)
     if sector:
-        unknown = set(sector) - set(ham.conserve)
+        unknown = set(sector) - set(ham.conserved)
         if unknown:
             raise SectorError(
-                f"sector names charge(s) {', '.join(sorted(unknown))} that the model does not conserve; "
-                f"conserved: {', '.join(ham.conserve) or 'none'}"
+                f"sector names charge(s) {', '.join(sorted(unknown))} that the model does not conserved; "
+                f"conserved: {', '.join(ham.conserved) or 'none'}"
             )
         target.update({k: int(v) for k, v in sector.items()})
-    missing = [c for c in ham.conserve if c not in target]
+    missing = [c for c in ham.conserved if c not in target]
     if missing:
         raise SectorError(
             f"no target value for conserved charge(s) {', '.join(missing)}; give them in the sector"
         )
-    return SectorBasis(ham.space.charge_values(ham.conserve), ham.num_sites,
-                       [target[c] for c in ham.conserve], names=ham.conserve, memory_budget=memory_budget)
+    return SectorBasis(ham.space.charge_values(ham.conserved), ham.num_sites,
+                       [target[c] for c in ham.conserved], names=ham.conserved, memory_budget=memory_budget)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -728,9 +728,9 @@ def _check_conserving(action: _Action, ham: Hamiltonian):
     action.counts()
     if action.leaked.size:
         prod = ham.products[int(action.leaked[0])]
-        charges = ", ".join(ham.conserve)
+        charges = ", ".join(ham.conserved)
         raise SpecError(
-            f"term {prod.origin or prod.sites} does not conserve {charges}; fix the term or drop the charge "
-            "from conserve"
+            f"term {prod.origin or prod.sites} does not conserved {charges}; fix the term or drop the charge "
+            "from conserved"
         )
 

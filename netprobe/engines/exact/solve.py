@@ -314,7 +314,7 @@ def _charge_change(space, names, matrix, label):
             raise OperatorError(
                 f"operator {label} mixes different changes of the conserved charge {name}; in a fixed-{name} "
                 "state only its charge-conserving part counts: measure that part, or drop the charge from "
-                "conserve"
+                "conserved"
             )
         changes.append(delta)
     return np.array(changes, dtype=np.int64)

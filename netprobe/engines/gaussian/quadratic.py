@@ -1,6 +1,6 @@
 """Quadratic forms of fermion Hamiltonians: the first stage of the free-fermion engine.
 
-A Hamiltonian built from local products (:mod:`netprobe.model.terms`) on fermion, electron, spin-1/2 or
+A Hamiltonian built from local products (:mod:`netprobe.model.terms`) on fermion, spinful_fermion, spin-1/2 or
 hard-core boson sites is written in fermion modes (Jordan-Wigner in MPS order) and reduced to
 ``H = sum_ij c_i^dag h_ij c_j + (1/2) sum_ij (Delta_ij c_i^dag c_j^dag + h.c.) + constant``, or
 refused with the term that is not quadratic. The engine's settings and error classes live here
@@ -10,7 +10,7 @@ them.
 Extraction
 ----------
 Each local matrix of a :class:`~netprobe.model.terms.LocalProduct` is written in the qubit basis of its
-modes (one mode per ``fermion`` site; ``up`` then ``dn`` for ``electron`` sites; one for
+modes (one mode per ``fermion`` site; ``up`` then ``dn`` for ``spinful_fermion`` sites; one for
 ``spin-1/2`` and ``hardcore-boson`` sites) and split into single-mode monomials I, F, a, a^dag
 (``F = 1 - 2n``, ``a|1> = |0>``). A product of monomials with odd letters on modes
 ``m_1 < ... < m_k`` and F letters on a set T equals, with ``c_m = F_0 ... F_{m-1} a_m``,
@@ -129,18 +129,18 @@ def _pauli_axis_map(axis: str) -> _ModeMap:
 def _mode_maps(space, options: GaussianOptions) -> list[_ModeMap]:
     if space.name == "fermion":
         return [_ModeMap(1, np.eye(2), "fermion", False)]
-    if space.name == "electron":
+    if space.name == "spinful_fermion":
         perm = [0, 2, 1, 3]  # site basis (0, up, dn, updn) -> Kronecker basis (n_up, n_dn)
         v = np.zeros((4, 4))
         v[perm, np.arange(4)] = 1.0
-        return [_ModeMap(2, v, "electron (modes up, dn)", False)]
+        return [_ModeMap(2, v, "spinful_fermion (modes up, dn)", False)]
     if space.name == "hardcore-boson":
         return [_ModeMap(1, np.eye(2), "hard-core boson", True)]
     if space.name == "spin-1/2":
         axes = _SPIN_AXES if options.spin_axis == "auto" else (options.spin_axis,)
         return [_pauli_axis_map(a) for a in axes]
     raise NotQuadraticError(
-        f"site space '{space.name}' has no free-fermion form; the Gaussian engine takes fermion, electron, "
+        f"site space '{space.name}' has no free-fermion form; the Gaussian engine takes fermion, spinful_fermion, "
         "spin-1/2 and hardcore-boson sites (use the exact or DMRG engine)"
     )
 
@@ -367,7 +367,7 @@ def quadratic_form(hamiltonian, *, name: str = "", options: GaussianOptions | No
     Parameters
     ----------
     hamiltonian : Hamiltonian
-        Terms in normal form (:mod:`netprobe.model.terms`), on fermion, electron, spin-1/2 or hard-core
+        Terms in normal form (:mod:`netprobe.model.terms`), on fermion, spinful_fermion, spin-1/2 or hard-core
         boson sites.
     name : str
         Model name for messages.
@@ -396,11 +396,11 @@ def quadratic_form(hamiltonian, *, name: str = "", options: GaussianOptions | No
     label = f"model '{name}'" if name else "the Hamiltonian"
     space = hamiltonian.space
     maps = _mode_maps(space, options)
-    if space.name == "spin-1/2" and "2Sz" in getattr(hamiltonian, "conserve", ()):
-        maps = [m for m in maps if m.label.endswith("along z")]  # 2Sz must be the particle number
+    if space.name == "spin-1/2" and "twice_sz" in getattr(hamiltonian, "conserved", ()):
+        maps = [m for m in maps if m.label.endswith("along z")]  # twice_sz must be the particle number
         if not maps:
             raise GaussianStateError(
-                f"{label} conserves 2Sz, which is a particle number only with occupation along z; "
+                f"{label} conserves twice_sz, which is a particle number only with occupation along z; "
                 "use spin_axis='z' or 'auto'")
     failures = []
     for mode_map in maps:

@@ -320,25 +320,25 @@ class _Probes:
 
 def _sector_blocks(form: QuadraticForm, hamiltonian, label: str):
     """(modes, particle number or None) for each block the conserved charges fix separately."""
-    conserve = tuple(getattr(hamiltonian, "conserve", ()))
+    conserved = tuple(getattr(hamiltonian, "conserved", ()))
     sector = dict(getattr(hamiltonian, "sector", {}))
     n = form.num_modes
     space = hamiltonian.space.name
-    if space == "electron":
-        if "2Sz" in conserve:
-            if "N" not in conserve:
+    if space == "spinful_fermion":
+        if "twice_sz" in conserved:
+            if "N" not in conserved:
                 raise GaussianStateError(
-                    f"{label} conserves 2Sz but not N; add N to conserve for the Gaussian engine")
-            total, twice_sz = sector["N"], sector["2Sz"]
+                    f"{label} conserves twice_sz but not N; add N to conserved for the Gaussian engine")
+            total, twice_sz = sector["N"], sector["twice_sz"]
             up, dn = np.arange(0, n, 2), np.arange(1, n, 2)
             if np.any(form.hopping[np.ix_(up, dn)] != 0):
                 raise GaussianStateError(
-                    f"{label} conserves 2Sz but its hopping flips spins; drop 2Sz from conserve")
+                    f"{label} conserves twice_sz but its hopping flips spins; drop twice_sz from conserved")
             return [(up, (total + twice_sz) // 2), (dn, (total - twice_sz) // 2)]
-        return [(np.arange(n), sector["N"] if "N" in conserve else None)]
-    if space == "spin-1/2" and "2Sz" in conserve:
-        return [(np.arange(n), (form.num_sites - sector["2Sz"]) // 2)]  # occupied = spin down
-    if space in ("fermion", "hardcore-boson") and "N" in conserve:
+        return [(np.arange(n), sector["N"] if "N" in conserved else None)]
+    if space == "spin-1/2" and "twice_sz" in conserved:
+        return [(np.arange(n), (form.num_sites - sector["twice_sz"]) // 2)]  # occupied = spin down
+    if space in ("fermion", "hardcore-boson") and "N" in conserved:
         return [(np.arange(n), sector["N"])]
     return [(np.arange(n), None)]
 
@@ -374,7 +374,7 @@ def _filling(e: np.ndarray, count: int | None, tol: float, label: str) -> tuple[
         if e.size and np.min(np.abs(e)) < tol:
             raise GaussianStateError(
                 f"{label} has a single-particle level at zero energy ({np.min(np.abs(e)):.3g}); the "
-                "ground state is not unique: fix the particle number in conserve/[sector]")
+                "ground state is not unique: fix the particle number in conserved/[sector]")
         count = int(np.sum(e < 0))
     if not 0 <= count <= e.size:
         raise GaussianStateError(f"{label}: cannot place {count} particles in {e.size} modes")
@@ -640,10 +640,10 @@ class MajoranaState(_Probes):
             blocks = _sector_blocks(form, hamiltonian, label)
             return cls.from_free_fermion(FreeFermionState.from_form(form, blocks=blocks, options=options,
                                                                     lattice=lattice))
-        if getattr(hamiltonian, "conserve", ()):
+        if getattr(hamiltonian, "conserved", ()):
             raise GaussianStateError(
-                f"{label} has pairing terms but conserves {', '.join(hamiltonian.conserve)}; "
-                "set conserve = []")
+                f"{label} has pairing terms but conserves {', '.join(hamiltonian.conserved)}; "
+                "set conserved = []")
         return cls.from_form(form, options=options, lattice=lattice)
 
     @classmethod
@@ -751,10 +751,10 @@ def gaussian_state(model, *, options: GaussianOptions | None = None) -> FreeFerm
     form = quadratic_form(model.hamiltonian, name=model.name, options=options, model=model)
     label = f"model '{form.name}'"
     if form.has_pairing:
-        if model.hamiltonian.conserve:
+        if model.hamiltonian.conserved:
             raise GaussianStateError(
-                f"{label} has pairing terms but conserves {', '.join(model.hamiltonian.conserve)}; "
-                "set conserve = []")
+                f"{label} has pairing terms but conserves {', '.join(model.hamiltonian.conserved)}; "
+                "set conserved = []")
         return MajoranaState.from_form(form, options=options, lattice=model.lattice)
     blocks = _sector_blocks(form, model.hamiltonian, label)
     return FreeFermionState.from_form(form, blocks=blocks, options=options, lattice=model.lattice)

@@ -186,7 +186,7 @@ def _check_measurable(basis: SiteBasis, ops: Sequence[tuple[int, str]], label: s
     if odd:
         raise OperatorError(f"operator {label} is fermion-odd, so its expectation vanishes; pair it with "
                             "another odd operator")
-    for charge in basis.conserve:
+    for charge in basis.conserved:
         total = 0
         for _, name in ops:
             delta = operator_charge_change(space, space.operator(name), charge)
@@ -194,7 +194,7 @@ def _check_measurable(basis: SiteBasis, ops: Sequence[tuple[int, str]], label: s
                 raise OperatorError(
                     f"operator {label} mixes different changes of the conserved charge {charge}; in a "
                     f"fixed-{charge} state only its charge-conserving part counts: measure that part, "
-                    "or drop the charge from conserve"
+                    "or drop the charge from conserved"
                 )
             total += delta
         if total:
@@ -322,7 +322,7 @@ class SchmidtSpectrum:
         p = self.weights[self.weights > 0]
         return float(np.log(np.sum(p**alpha)) / (1 - alpha))
 
-    def by_charge(self) -> dict[tuple[int, ...], np.ndarray]:
+    def per_charge(self) -> dict[tuple[int, ...], np.ndarray]:
         """Schmidt values grouped by the charge of the left part (descending in each group)."""
         out: dict = {}
         for v, q in zip(self.values, map(tuple, self.charges.tolist())):
@@ -341,8 +341,8 @@ def _spectrum(bond: int, s, basis: SiteBasis) -> SchmidtSpectrum:
     values = np.asarray(s.values, float)
     total = np.sqrt(np.sum(values**2))
     values = values / total if total > 0 else values
-    charges = np.asarray(s.charges)[:, : len(basis.conserve)]
-    return SchmidtSpectrum(bond, values, charges, basis.conserve)
+    charges = np.asarray(s.charges)[:, : len(basis.conserved)]
+    return SchmidtSpectrum(bond, values, charges, basis.conserved)
 
 
 def schmidt_spectra(state: MPS) -> list[SchmidtSpectrum]:

@@ -45,7 +45,7 @@ class MPO:
         Charges of the virtual channels on bonds 0..N (bond b sits left of site b).
     site_charges : ndarray of int, shape (d, k)
         Charges of the local basis states for the conserved quantities.
-    conserve : tuple of str
+    conserved : tuple of str
     uncompressed_bond_dimensions : tuple of int
         Inner bond dimensions of the finite-state machine before the exact compression
         (:mod:`netprobe.engines.mps.mpo_compression`); empty if it was not compressed.
@@ -54,7 +54,7 @@ class MPO:
     tensors: tuple[np.ndarray, ...]
     bond_charges: tuple[np.ndarray, ...]
     site_charges: np.ndarray
-    conserve: tuple[str, ...]
+    conserved: tuple[str, ...]
     uncompressed_bond_dimensions: tuple[int, ...] = ()
 
     @property
@@ -137,7 +137,7 @@ def build_mpo(ham: Hamiltonian, *, dtype=None, compress: bool = True) -> MPO:
     """
     n, d = ham.num_sites, ham.space.dim
     dtype = np.dtype(dtype or ham.dtype)
-    charges = ham.space.charge_values(ham.conserve)
+    charges = ham.space.charge_values(ham.conserved)
     k = charges.shape[1]
     matrices: dict[bytes, int] = {}
     mats: list[np.ndarray] = []
@@ -228,7 +228,7 @@ def build_mpo(ham: Hamiltonian, *, dtype=None, compress: bool = True) -> MPO:
                 arr[idx] = charge_of[b][key]
             bond_charges.append(arr)
     if not compress:
-        return MPO(tuple(tensors), tuple(bond_charges), charges, tuple(ham.conserve))
+        return MPO(tuple(tensors), tuple(bond_charges), charges, tuple(ham.conserved))
     before = tuple(w.shape[3] for w in tensors[:-1])
     tensors, bond_charges = compress_channels(tensors, bond_charges)
-    return MPO(tuple(tensors), tuple(bond_charges), charges, tuple(ham.conserve), before)
+    return MPO(tuple(tensors), tuple(bond_charges), charges, tuple(ham.conserved), before)

@@ -64,7 +64,7 @@ class SiteBasis:
     Attributes
     ----------
     space : SiteSpace
-    conserve : tuple of str
+    conserved : tuple of str
         Conserved charges (may be empty: then the rule is trivial).
     rule : ChargeRule
     leg : Leg
@@ -76,17 +76,17 @@ class SiteBasis:
     """
 
     space: SiteSpace
-    conserve: tuple[str, ...]
+    conserved: tuple[str, ...]
     rule: ChargeRule
     leg: Leg
     order: np.ndarray
     charges: np.ndarray
 
     @classmethod
-    def from_space(cls, space: SiteSpace, conserve: Sequence[str] = ()) -> SiteBasis:
-        """Group the basis of ``space`` by the charges in ``conserve``."""
-        conserve = tuple(conserve)
-        values = space.charge_values(conserve)
+    def from_space(cls, space: SiteSpace, conserved: Sequence[str] = ()) -> SiteBasis:
+        """Group the basis of ``space`` by the charges in ``conserved``."""
+        conserved = tuple(conserved)
+        values = space.charge_values(conserved)
         if values.shape[1] == 0:
             rule = ChargeRule.trivial()
             values = np.zeros((space.dim, 1), np.int64)
@@ -95,12 +95,12 @@ class SiteBasis:
         leg, order = Leg.from_basis_charges(values, rule, 1)
         order.setflags(write=False)
         values.setflags(write=False)
-        return cls(space, conserve, rule, leg, order, values)
+        return cls(space, conserved, rule, leg, order, values)
 
     @classmethod
     def from_hamiltonian(cls, ham: Hamiltonian) -> SiteBasis:
         """The basis of a Hamiltonian's site space and conserved charges."""
-        return cls.from_space(ham.space, ham.conserve)
+        return cls.from_space(ham.space, ham.conserved)
 
     @property
     def dim(self) -> int:
@@ -116,22 +116,22 @@ class SiteBasis:
             If a conserved charge has no value or an unknown charge is named.
         """
         sector = dict(sector or {})
-        unknown = sorted(set(sector) - set(self.conserve))
+        unknown = sorted(set(sector) - set(self.conserved))
         if unknown:
             raise SectorError(
                 f"sector names {', '.join(unknown)}, which is not conserved; conserved: "
-                f"{', '.join(self.conserve) or 'none'}"
+                f"{', '.join(self.conserved) or 'none'}"
             )
-        missing = [c for c in self.conserve if c not in sector]
+        missing = [c for c in self.conserved if c not in sector]
         if missing:
             raise SectorError(f"sector needs a value for the conserved charge(s) {', '.join(missing)}")
-        if not self.conserve:
+        if not self.conserved:
             return self.rule.zero()
-        return np.array([int(sector[c]) for c in self.conserve], np.int64)
+        return np.array([int(sector[c]) for c in self.conserved], np.int64)
 
     def sector_of(self, charge) -> dict[str, int]:
         """The sector dictionary of a charge vector."""
-        return {name: int(v) for name, v in zip(self.conserve, np.asarray(charge).tolist())}
+        return {name: int(v) for name, v in zip(self.conserved, np.asarray(charge).tolist())}
 
     def blocked(self, matrix) -> np.ndarray:
         """A matrix of the site space's basis in the blocked basis."""
@@ -233,11 +233,11 @@ class BlockMPO:
         if basis is None:
             raise NetprobeError("BlockMPO.from_mpo: pass the SiteBasis of the state")
         site_q = np.asarray(mpo.site_charges)
-        fits = site_q.shape == (basis.dim, len(basis.conserve))
-        if not fits or (basis.conserve and not np.array_equal(site_q, basis.charges)):
+        fits = site_q.shape == (basis.dim, len(basis.conserved))
+        if not fits or (basis.conserved and not np.array_equal(site_q, basis.charges)):
             raise SectorError(
                 "BlockMPO.from_mpo: the MPO's site charges do not match the state's conserved charges "
-                f"({', '.join(basis.conserve) or 'none'}); build both from the same Hamiltonian"
+                f"({', '.join(basis.conserved) or 'none'}); build both from the same Hamiltonian"
             )
         rule, order = basis.rule, basis.order
         phys = basis.leg

@@ -1,15 +1,15 @@
 """State files: matrix product states in HDF5, in a versioned layout of our own.
 
-Layout (format ``netprobe-state``, version 2)
+Layout (format ``netprobe-state``, version 3)
 -----------------------------------------------
 ::
 
-    /                       attributes: format = "netprobe-state", format_version = 2,
+    /                       attributes: format = "netprobe-state", format_version = 3,
                             package_version, kind ("state" or "checkpoint"), created (UTC, ISO 8601),
                             seed (JSON: an integer or null), model_text (the model file),
                             overrides (JSON object of the --set values), info (JSON object),
                             rng_state (JSON of numpy's bit_generator.state, or "")
-    /mps                    attributes: num_sites, centre (-1: none), site_space, conserve (JSON list),
+    /mps                    attributes: num_sites, centre (-1: none), site_space, conserved (JSON list),
                             charge_moduli, basis_order
     /mps/site_00000 ...     one block tensor per site (below)
 
@@ -21,6 +21,12 @@ A block tensor is a group with attributes ``charge``, ``charge_moduli``, ``dtype
 Version 2 writes the tensor data (every ``data`` dataset) with HDF5's Fletcher-32 checksum filter,
 so a damaged byte in a tensor is detected when it is read; version 1 (no checksums, otherwise the
 same) is still read.
+
+Version 3 renamed things of the model-file language: the ``/mps`` attribute ``conserve`` became
+``conserved``, the charge label ``2Sz`` became ``twice_sz`` and the site space ``electron`` became
+``spinful_fermion`` (its operator ``n_updn`` became ``n_pair``). Files of versions 1 and 2 are still
+read: their attribute, labels and space name, and the model text stored in them, are translated to
+the new names on reading (:func:`upgrade_model_text`); nothing else differs.
 Every read is validated against the layout (shapes, sector indices in range, finite data, a known
 random-generator state), and anything that does not fit is reported as a damaged file, in one line
 that names the file and what is wrong.
@@ -54,6 +60,7 @@ from netprobe.model.spec import build_model, parse_spec
 __all__ = [
     "FORMAT_NAME",
     "FORMAT_VERSION",
+    "upgrade_model_text",
     "SavedState",
     "save_state",
     "load_state",
@@ -68,8 +75,8 @@ __all__ = [
 ]
 
 FORMAT_NAME = "netprobe-state"
-FORMAT_VERSION = 2
-_READABLE_VERSIONS = (1, 2)
+FORMAT_VERSION = 3
+_READABLE_VERSIONS = (1, 2, 3)
 _DTYPES = ("float64", "complex128")
 _BIT_GENERATORS = ("PCG64", "PCG64DXSM", "MT19937", "Philox", "SFC64")
 
@@ -77,6 +84,26 @@ _BIT_GENERATORS = ("PCG64", "PCG64DXSM", "MT19937", "Philox", "SFC64")
 # --------------------------------------------------------------------------------------------------
 # Low level: block tensors and states inside an open HDF5 group
 # --------------------------------------------------------------------------------------------------
+
+
+# Names of layout versions 1 and 2, read and translated (see the module notes).
+_OLD_SPACES = {"electron": "spinful_fermion"}
+_OLD_LABELS = {"2Sz": "twice_sz"}
+_OLD_MODEL_WORDS = ((re.compile(r"^(\s*)conserve(\s*=)", re.M), r"\1conserved\2"),
+                    (re.compile(r"2Sz"), "twice_sz"),
+                    (re.compile(r"(['\"])electron\1"), r"\1spinful_fermion\1"),
+                    (re.compile(r"\bn_updn\b"), "n_pair"))
+
+
+def upgrade_model_text(text: str) -> str:
+    """The model file stored by layout version 1 or 2, in today's names (unchanged if already new).
+
+    Renames the key ``conserve`` to ``conserved``, the charge label ``2Sz`` to ``twice_sz``, the site
+    space ``electron`` to ``spinful_fermion`` and its operator ``n_updn`` to ``n_pair``.
+    """
+    for pattern, new in _OLD_MODEL_WORDS:
+        text = pattern.sub(new, text)
+    return text
 
 
 def write_block_tensor(group: h5py.Group, tensor: BlockTensor) -> None:
@@ -189,7 +216,7 @@ def write_mps(group: h5py.Group, state: MPS) -> None:
     group.attrs["num_sites"] = state.num_sites
     group.attrs["centre"] = -1 if state.centre is None else int(state.centre)
     group.attrs["site_space"] = basis.space.name
-    group.attrs["conserve"] = json.dumps(list(basis.conserve))
+    group.attrs["conserved"] = json.dumps(list(basis.conserved))
     group.attrs["charge_moduli"] = np.asarray(basis.rule.moduli, np.int64)
     group.attrs["basis_order"] = np.asarray(basis.order, np.int64)
     for i, t in enumerate(state.tensors):
@@ -204,11 +231,15 @@ def read_mps(group: h5py.Group) -> MPS:
     ValueError, NetprobeError
         For a damaged group or an unknown site space.
     """
-    space = site_space(_attribute_text(group.attrs, "site_space"))
-    conserve = json.loads(_attribute_text(group.attrs, "conserve"))
-    if not isinstance(conserve, list) or not all(isinstance(c, str) for c in conserve):
-        raise ValueError(f"{group.name}: conserve {conserve!r} is not a list of charge names")
-    basis = SiteBasis.from_space(space, conserve)
+    name = _attribute_text(group.attrs, "site_space")
+    space = site_space(_OLD_SPACES.get(name, name))
+    key = "conserved" if "conserved" in group.attrs or "conserve" not in group.attrs else "conserve"  # v1, v2
+    conserved = json.loads(_attribute_text(group.attrs, key))
+    if isinstance(conserved, list):
+        conserved = [_OLD_LABELS.get(c, c) if isinstance(c, str) else c for c in conserved]
+    if not isinstance(conserved, list) or not all(isinstance(c, str) for c in conserved):
+        raise ValueError(f"{group.name}: conserved {conserved!r} is not a list of charge names")
+    basis = SiteBasis.from_space(space, conserved)
     if not np.array_equal(np.asarray(group.attrs.get("basis_order")), basis.order) or \
             tuple(int(m) for m in _int_attribute(group.attrs, "charge_moduli")) != basis.rule.moduli:
         raise ValueError("the stored local basis differs from the site space's")
@@ -500,7 +531,7 @@ def load_state(path) -> SavedState:
             if rng_state is not None:
                 check_rng_state(rng_state)
             return SavedState(
-                path=path, kind=kind, state=state, model_text=_text(f.attrs, "model_text"),
+                path=path, kind=kind, state=state, model_text=upgrade_model_text(_text(f.attrs, "model_text")),
                 overrides=_json_attribute(f.attrs, "overrides", (dict,)), seed=seed,
                 info=_json_attribute(f.attrs, "info", (dict,)), rng_state=rng_state,
                 package_version=_text(f.attrs, "package_version"), format_version=int(version),
