@@ -18,8 +18,8 @@ import time
 from pathlib import Path
 
 import netprobe
-from netprobe.dmrg import SweepSettings
-from netprobe.plots import plot_assessment
+from netprobe.engines.dmrg import SweepSettings
+from netprobe.output.plots import plot_assessment
 
 MODEL = ("kagome_chiral", {"length": "6", "circumference": "3"})
 
@@ -35,7 +35,7 @@ def main(argv=None) -> int:
     dims = tuple(int(d) for d in args.bond_dimensions.split(","))
     start = time.perf_counter()
     model = netprobe.load_model(MODEL[0], MODEL[1])
-    settings = netprobe.SolveSettings(bond_dimensions=dims, sweeps=SweepSettings(max_sweeps=args.sweeps), seed=1,
+    settings = netprobe.SolveSettings(bond_dimensions=dims, sweeps=SweepSettings(sweep_limit=args.sweeps), seed=1,
                                       progress=sys.stderr)
     grounds, ladder = netprobe.solve(model, "dmrg", settings)
     dmrg_seconds = time.perf_counter() - start

@@ -131,8 +131,8 @@ def matvec_rate(ctx: Context) -> list[Figure]:
 
 def symmetry_gain(ctx: Context) -> list[Figure]:
     """Time of one sweep with U(1) charges vs without, from the same state, width-6 cylinder."""
-    from netprobe.dmrg.engine import DmrgEngine
-    from netprobe.mpo import build_mpo
+    from netprobe.engines.dmrg.engine import GroundStateSearch
+    from netprobe.engines.mps.mpo import build_mpo
 
     chi = 128 if ctx.quick else 512
     state = ctx.ladder(chi).states[chi]
@@ -141,7 +141,7 @@ def symmetry_gain(ctx: Context) -> list[Figure]:
     for charges in (True, False):
         ham = wl.heisenberg_cylinder(6, 6, charges=charges)
         st = state if charges else wl.without_charges(state, ham)
-        engine = DmrgEngine(build_mpo(ham), st, wl.sweep_settings(chi), progress=None, blas_threads=1)
+        engine = GroundStateSearch(build_mpo(ham), st, wl.sweep_settings(chi), progress=None, blas_threads=1)
         record, figure = _efficiency_sweep(ctx, engine, f"sweep_efficiency_square_{'charges' if charges else 'no_charges'}")
         out[charges] = record
         efficiency.append(figure)
@@ -162,7 +162,7 @@ def _efficiency_sweep(ctx: Context, engine, name: str):
     """
     dtype = engine.dtype
     gemm_before = gemm_rate(dtype, 1024, threads=1)
-    record = engine.sweep()
+    record = engine.step()
     gemm = max(gemm_before, gemm_rate(dtype, 1024, threads=1))
     ratio = record.matvec_flops / gemm / record.seconds
     ctx.log(f"    {name}: D={record.bond_dimension}, {record.seconds:.1f} s, {record.matvecs} matvecs, "
@@ -177,9 +177,9 @@ def _efficiency_sweep(ctx: Context, engine, name: str):
 
 def kagome_efficiency(ctx: Context) -> list[Figure]:
     """Sweep efficiency (matvec flops at the GEMM rate / wall time) on the width-6 kagome chiral cylinder."""
-    from netprobe.dmrg.engine import DmrgEngine
-    from netprobe.mpo import build_mpo
-    from netprobe.mps import random_state
+    from netprobe.engines.dmrg.engine import GroundStateSearch
+    from netprobe.engines.mps.mpo import build_mpo
+    from netprobe.engines.mps import random_state
 
     ham = wl.kagome_cylinder()
     mpo = build_mpo(ham)
@@ -188,17 +188,17 @@ def kagome_efficiency(ctx: Context) -> list[Figure]:
     state = random_state(ham, bond_dimension=16, rng=wl.SEED)
     figures = []
     for chi in ladder:
-        engine = DmrgEngine(mpo, state, wl.sweep_settings(chi), progress=None, blas_threads=1)
+        engine = GroundStateSearch(mpo, state, wl.sweep_settings(chi), progress=None, blas_threads=1)
         if chi == ladder[-1]:  # the last rung's sweep (it grows the bonds to D) is the timed one
             figures.insert(0, _efficiency_sweep(ctx, engine, "sweep_efficiency_kagome_charges")[1])
             break
-        record = engine.sweep()
+        record = engine.step()
         ctx.log(f"    kagome ladder D={chi}: growing sweep {record.seconds:.1f} s, {record.matvecs} matvecs, "
                 f"E = {record.energy:.8f}, largest bond {record.max_bond_dimension}")
         state = engine.state
         if chi == uncharged_at:
             plain = wl.without_charges_of(ham)
-            cold = DmrgEngine(build_mpo(plain), wl.without_charges(state, plain), wl.sweep_settings(chi),
+            cold = GroundStateSearch(build_mpo(plain), wl.without_charges(state, plain), wl.sweep_settings(chi),
                               progress=None, blas_threads=1)
             figures.append(_efficiency_sweep(ctx, cold, "sweep_efficiency_kagome_no_charges")[1])
     return figures
@@ -208,7 +208,7 @@ def kagome_efficiency(ctx: Context) -> list[Figure]:
 
 
 def _exact_time(ham) -> tuple[float, float, str, int]:
-    from netprobe.exact import ground_state
+    from netprobe.engines.exact import ground_state
 
     start = time.perf_counter()
     result = ground_state(ham, tol=1e-8)
@@ -218,17 +218,17 @@ def _exact_time(ham) -> tuple[float, float, str, int]:
 
 def _dmrg_time_to(ham, exact_energy: float, relative: float) -> tuple[float, float, int, int]:
     """Seconds until a sweep's energy is within ``relative`` of the exact one (default ramp to 512)."""
-    from netprobe.dmrg.engine import DmrgEngine, SweepSettings
-    from netprobe.mpo import build_mpo
-    from netprobe.mps import random_state
+    from netprobe.engines.dmrg.engine import GroundStateSearch, SweepSettings
+    from netprobe.engines.mps.mpo import build_mpo
+    from netprobe.engines.mps import random_state
 
-    settings = SweepSettings(bond_dimension=512, max_sweeps=30, noise=1e-5, noise_sweeps=1,
+    settings = SweepSettings(bond_dimension=512, sweep_limit=30, noise=1e-5, noise_sweeps=1,
                              energy_tolerance=1e-12, discarded_tolerance=0.0 + 1e-12)
     start = time.perf_counter()
-    engine = DmrgEngine(build_mpo(ham), random_state(ham, bond_dimension=16, rng=wl.SEED), settings,
+    engine = GroundStateSearch(build_mpo(ham), random_state(ham, bond_dimension=16, rng=wl.SEED), settings,
                         progress=None)
     while True:
-        record = engine.sweep()
+        record = engine.step()
         error = abs(record.energy - exact_energy) / abs(exact_energy)
         if error <= relative or engine.finished:
             return time.perf_counter() - start, error, len(engine.history), record.max_bond_dimension
@@ -237,7 +237,7 @@ def _dmrg_time_to(ham, exact_energy: float, relative: float) -> tuple[float, flo
 def exact_crossover(ctx: Context) -> list[Figure]:
     """Time to 1e-6 relative energy error: exact engine vs DMRG, width-4 Heisenberg cylinders."""
     from netprobe.errors import MemoryBudgetError
-    from netprobe.exact import ground_state
+    from netprobe.engines.exact import ground_state
 
     lengths = (4, 5, 6) if ctx.quick else (4, 5, 6, 7)
     ground_state(wl.heisenberg_cylinder(4, 2))  # compile the numba kernels outside the timing
@@ -315,7 +315,7 @@ def _run_measured(args: list[str]) -> tuple[dict, float, int]:
 
 def rdm_and_j(ctx: Context) -> list[Figure]:
     """Time and peak memory of the reduced state and J of 10, 12, 14 sites from a D=512 state."""
-    from netprobe.store import save_state
+    from netprobe.engines.mps.store import save_state
 
     state = ctx.ladder(512).states[512]
     path = ctx.scratch / "heisenberg_w6_L6_D512.h5"
@@ -369,7 +369,7 @@ def large_regions(ctx: Context) -> list[Figure]:
     the charge sectors of the bonds, not on the entanglement), except the square cylinder of the full
     set, which uses the D = 512 ground state of the ladder.
     """
-    from netprobe.store import save_state
+    from netprobe.engines.mps.store import save_state
 
     kagome = ["--model", "kagome_chiral", "--set", "length=6", "--set", "circumference=3"]
     haldane = ["--model", "haldane", "--set", "length=8", "--set", "circumference=3"]
@@ -426,7 +426,8 @@ def large_regions(ctx: Context) -> list[Figure]:
 
 def _sectors_of_size(lattice, size: int):
     """Three-sector disk about the default centre whose radius takes the ``size`` nearest sites."""
-    from netprobe.regions import _displacements, build_layout, default_center
+    from netprobe.regions import build_layout
+    from netprobe.regions.layout import _displacements, default_center
 
     d = np.sort(np.linalg.norm(_displacements(lattice, default_center(lattice)), axis=1))
     radius = 0.5 * (d[size - 1] + d[size]) if d[size] > d[size - 1] + 1e-6 else d[size - 1] + 1e-6
@@ -435,8 +436,8 @@ def _sectors_of_size(lattice, size: int):
 
 def free_fermions(ctx: Context) -> list[Figure]:
     """J and the real-space Chern number of Haldane-model disks of about 100, 400 and 1600 sites."""
-    from netprobe.gaussian import GaussianOptions, gaussian_state
-    from netprobe.spec import load_model
+    from netprobe.engines.gaussian import GaussianOptions, gaussian_state
+    from netprobe.model.spec import load_model
 
     # 44 x 36 zigzag cells (3168 sites) hold a 1600-site disk with margins of several bonds; the twist
     # of 1 rad keeps the two edge modes of the cylinder away from zero energy (a unique ground state).
@@ -497,7 +498,7 @@ _BLBQ_CHAIN = """
 name = "blbq_benchmark"
 description = "invented benchmark chain: spin-1 bilinear-biquadratic, biquadratic written as nine products"
 site = "spin-1"
-conserve = ["2Sz"]
+conserved = ["twice_sz"]
 
 [parameters]
 lattice = "chain"
@@ -505,7 +506,7 @@ length = {length}
 circumference = 1
 
 [sector]
-2Sz = "0"
+twice_sz = "0"
 
 [[term]]
 on = "nn"
@@ -537,10 +538,10 @@ def _bond_rank(ham) -> int:
 
 def mpo_compression(ctx: Context) -> list[Figure]:
     """MPO bond dimension against rank + 2, and the DMRG sweep speed-up of the compressed kagome MPO."""
-    from netprobe.dmrg.engine import DmrgEngine
-    from netprobe.mpo import build_mpo
-    from netprobe.mps import random_state
-    from netprobe.spec import build_model, load_model, parse_spec
+    from netprobe.engines.dmrg.engine import GroundStateSearch
+    from netprobe.engines.mps.mpo import build_mpo
+    from netprobe.engines.mps import random_state
+    from netprobe.model.spec import build_model, load_model, parse_spec
 
     figures = []
     biquadratic = " + ".join(f"S{a}.S{b} S{a}.S{b}" for a in "xyz" for b in "xyz")
@@ -557,17 +558,17 @@ def mpo_compression(ctx: Context) -> list[Figure]:
     ham = load_model("kagome_chiral", {"length": "6", "circumference": "3"}).hamiltonian
     compressed, plain = build_mpo(ham), build_mpo(ham, compress=False)
     warm_sweeps = 1 if ctx.quick else 2  # grow the bonds to D first (untimed)
-    warm = DmrgEngine(compressed, random_state(ham, bond_dimension=16, rng=wl.SEED),
-                      wl.sweep_settings(chi, max_sweeps=warm_sweeps, min_sweeps=warm_sweeps), progress=None,
+    warm = GroundStateSearch(compressed, random_state(ham, bond_dimension=16, rng=wl.SEED),
+                      wl.sweep_settings(chi, sweep_limit=warm_sweeps, sweep_minimum=warm_sweeps), progress=None,
                       blas_threads=1)
     for _ in range(warm_sweeps):
-        warm.sweep()
+        warm.step()
     seconds = {"compressed": [], "uncompressed": []}
     matvecs = {"compressed": 0, "uncompressed": 0}
     for label in ("compressed", "uncompressed", "uncompressed", "compressed"):  # symmetric order
         op = compressed if label == "compressed" else plain
-        engine = DmrgEngine(op, warm.state.copy(), wl.sweep_settings(chi), progress=None, blas_threads=1)
-        record = engine.sweep()
+        engine = GroundStateSearch(op, warm.state.copy(), wl.sweep_settings(chi), progress=None, blas_threads=1)
+        record = engine.step()
         seconds[label].append(record.seconds)
         matvecs[label] += record.matvecs
         ctx.log(f"    kagome D={chi}, {label} MPO (largest bond {op.max_bond_dimension}): sweep "
@@ -603,7 +604,7 @@ J2 = {{ values = {points} }}
 bond_dimensions = [{chi}]
 variance = false
 noise_sweeps = 0
-max_sweeps = 4
+sweep_limit = 4
 
 [measure]
 probes = ["energy"]
@@ -615,7 +616,7 @@ attempts = 1
 
 def study_throughput(ctx: Context) -> list[Figure]:
     """Points per second with 2 local workers against 1, on independent DMRG points."""
-    from netprobe.study.description import parse_study
+    from netprobe.study.reading import parse_study
     from netprobe.study.executors import LocalExecutor, run_study
 
     count = 8  # four rounds of two: the start of the worker processes is shared over more points

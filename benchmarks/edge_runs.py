@@ -1,6 +1,6 @@
 """End-to-end cut diagnostics on two interacting chiral phases (not part of the default suite).
 
-Runs ``netprobe.edge.edge_ladder`` (DMRG at each circumference, the momentum-resolved Schmidt
+Runs ``netprobe.pipeline.edge.edge_ladder`` (DMRG at each circumference, the momentum-resolved Schmidt
 spectrum at the central cut, level counting and the momentum-polarization fit) for
 
 - the kagome Heisenberg model with scalar chirality (``models/kagome_chiral.toml``), expected in the
@@ -26,8 +26,8 @@ import sys
 import time
 from pathlib import Path
 
-from netprobe.edge import edge_ladder
-from netprobe.spec import load_spec
+from netprobe.pipeline.edge import edge_ladder
+from netprobe.model.spec import load_spec
 
 __all__ = ["RUNS", "run", "main"]
 

@@ -54,7 +54,7 @@ def main(which) -> None:
             dw, d = 20, 2
             for chi, c in ((256, False), (512, False), (256, True)):
                 L, A, W = R((chi, chi, dw), c), R((chi, d, chi), c), R((dw, d, d, dw), False)
-                def hand(L, A, W, Ac):  # the order of netprobe.mps.left_environment_step
+                def hand(L, A, W, Ac):  # the order of netprobe.engines.mps.left_environment_step
                     t = np.tensordot(L, A, ([1], [0]))
                     t = np.tensordot(t, W, ([1, 2], [0, 2]))
                     return np.tensordot(Ac, t, ([0, 1], [0, 2]))

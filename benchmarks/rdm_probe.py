@@ -19,7 +19,7 @@ import numpy as np
 
 def disk_parts(lattice, n: int) -> dict[str, list[int]]:
     """The ``n`` sites nearest to the default centre, in three counterclockwise 120-degree sectors."""
-    from netprobe.regions import _displacements, default_center
+    from netprobe.regions.layout import _displacements, default_center
 
     d = _displacements(lattice, default_center(lattice))  # minimal image around the cylinder
     dx, dy = d[:, 0], d[:, 1]
@@ -41,7 +41,7 @@ def _peak_rss() -> int:
 
 def main(argv=None) -> int:
     from netprobe.probes import measure_probes
-    from netprobe.store import load_state
+    from netprobe.engines.mps.store import load_state
     from benchmarks.workloads import heisenberg_cylinder
 
     path, n = argv or sys.argv[1:]

@@ -5,7 +5,7 @@
 the model's lattice in three counterclockwise 120-degree sectors A, B, C (as ``benchmarks.rdm_probe``),
 and measures the reduced state with J, CMI and the entropies (``measure_probes``). The state is a saved
 one (``--state``) or a seeded random MPS of bond dimension ``--bond`` in the model's sector.
-``--spin-twin`` replaces the model by a spin-1/2 chain (2Sz conserved) of as many sites, same MPS site
+``--spin-twin`` replaces the model by a spin-1/2 chain (twice_sz conserved) of as many sites, same MPS site
 indices and bond dimension, complex if the model is: the spin state of the same geometry that a
 fermionic region is compared with. Prints the time, the route, the memory estimate, the resident
 memory before the measurement and the peak (VmHWM), and the CPU seconds of the process (on a
@@ -31,10 +31,10 @@ def _rss(key: str) -> int:
 
 def main(argv=None) -> int:
     from benchmarks.rdm_probe import disk_parts
-    from netprobe.mps import MPS, random_state
+    from netprobe.engines.mps import MPS, random_state
     from netprobe.probes import measure_probes
-    from netprobe.spec import load_model
-    from netprobe.store import load_state
+    from netprobe.model.spec import load_model
+    from netprobe.engines.mps.store import load_state
 
     p = argparse.ArgumentParser(prog="python -m benchmarks.rdm_regions")
     p.add_argument("--model", required=True)

@@ -21,9 +21,9 @@ __all__ = ["main"]
 
 
 def main(argv=None) -> None:
-    from netprobe.dmrg.engine import DmrgEngine
-    from netprobe.mpo import build_mpo
-    from netprobe.mps import random_state
+    from netprobe.engines.dmrg.engine import GroundStateSearch
+    from netprobe.engines.mps.mpo import build_mpo
+    from netprobe.engines.mps import random_state
 
     parser = argparse.ArgumentParser(prog="python -m benchmarks.sweep_profile")
     parser.add_argument("model", choices=("square", "kagome"))
@@ -36,8 +36,8 @@ def main(argv=None) -> None:
     chi = 32
     while True:
         chi = min(chi, args.bond_dimension)
-        engine = DmrgEngine(build_mpo(ham), state, wl.sweep_settings(chi), progress=None)
-        record = engine.sweep()
+        engine = GroundStateSearch(build_mpo(ham), state, wl.sweep_settings(chi), progress=None)
+        record = engine.step()
         print(f"grown to D={chi}: {record.seconds:.1f} s, E = {record.energy:.8f}", flush=True)
         state = engine.state
         if chi == args.bond_dimension:
@@ -46,12 +46,12 @@ def main(argv=None) -> None:
     if args.no_charges:
         ham = wl.without_charges_of(ham)
         state = wl.without_charges(state, ham)
-    engine = DmrgEngine(build_mpo(ham), state, wl.sweep_settings(chi), progress=None)
+    engine = GroundStateSearch(build_mpo(ham), state, wl.sweep_settings(chi), progress=None)
     gemm = gemm_rate(engine.dtype, 1024)
     profiler = cProfile.Profile() if args.profile else None
     if profiler:
         profiler.enable()
-    record = engine.sweep()
+    record = engine.step()
     if profiler:
         profiler.disable()
     gemm = max(gemm, gemm_rate(engine.dtype, 1024))

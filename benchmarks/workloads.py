@@ -13,13 +13,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from netprobe.dmrg.effective import TwoSiteHamiltonian
-from netprobe.dmrg.engine import DmrgEngine, SweepSettings
-from netprobe.mpo import build_mpo
-from netprobe.mps import MPS, SiteBasis
-from netprobe.spec import load_model
+from netprobe.engines.dmrg.effective import PairOperator
+from netprobe.engines.dmrg.engine import GroundStateSearch, SweepSettings
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.engines.mps import MPS, SiteBasis
+from netprobe.model.spec import load_model
 from netprobe.tensor import BlockLayout, BlockTensor, ChargeRule, Leg, contract
-from netprobe.terms import Hamiltonian
+from netprobe.model.terms import Hamiltonian
 
 __all__ = ["heisenberg_cylinder", "kagome_cylinder", "without_charges_of", "without_charges", "dense_copy", "dense_operator", "LadderRun", "run_ladder_timed",
            "central_operator", "sweep_settings"]
@@ -28,12 +28,12 @@ SEED = 20261202
 
 
 def heisenberg_cylinder(circumference: int, length: int, *, charges: bool = True) -> Hamiltonian:
-    """``models/heisenberg.toml`` on a square cylinder; ``charges=False`` drops the 2Sz conservation."""
+    """``models/heisenberg.toml`` on a square cylinder; ``charges=False`` drops the twice_sz conservation."""
     model = load_model("heisenberg", {"lattice": "square", "circumference": str(circumference),
                                       "length": str(length)})
     ham = model.hamiltonian
     if not charges:
-        ham = Hamiltonian(ham.lattice, ham.space, ham.products, conserve=(), sector={})
+        ham = Hamiltonian(ham.lattice, ham.space, ham.products, conserved=(), sector={})
     return ham
 
 
@@ -44,12 +44,12 @@ def kagome_cylinder(length: int = 6, circumference: int = 3) -> Hamiltonian:
 
 def without_charges_of(ham: Hamiltonian) -> Hamiltonian:
     """The same Hamiltonian without conserved charges."""
-    return Hamiltonian(ham.lattice, ham.space, ham.products, conserve=(), sector={})
+    return Hamiltonian(ham.lattice, ham.space, ham.products, conserved=(), sector={})
 
 
 def sweep_settings(bond_dimension: int, **extra) -> SweepSettings:
     """One fixed-bond-dimension, noise-free sweep setting, the same for every timed run."""
-    base = dict(bond_dimension=bond_dimension, ramp=(), max_sweeps=1, min_sweeps=1, noise=0.0,
+    base = dict(bond_dimension=bond_dimension, ramp=(), sweep_limit=1, sweep_minimum=1, noise=0.0,
                 noise_sweeps=0, truncation_weight=0.0, solver_tolerance=1e-7, ramp_solver_tolerance=1e-7)
     base.update(extra)
     return SweepSettings(**base)
@@ -78,7 +78,7 @@ def dense_copy(t: BlockTensor) -> BlockTensor:
     return BlockTensor.from_dense(t.to_dense(), legs, None, rule, atol=0.0)
 
 
-def dense_operator(op: TwoSiteHamiltonian, theta: BlockTensor):
+def dense_operator(op: PairOperator, theta: BlockTensor):
     """The same effective Hamiltonian and two-site tensor with every tensor one dense block.
 
     Values are unchanged (the blocked basis order is kept on every leg), so this is the
@@ -86,7 +86,7 @@ def dense_operator(op: TwoSiteHamiltonian, theta: BlockTensor):
     """
     theta = dense_copy(theta)
     layout = BlockLayout(theta.legs, None, theta.rule, theta.dtype)
-    return TwoSiteHamiltonian(dense_copy(op.left), dense_copy(op.w1), dense_copy(op.w2), dense_copy(op.right),
+    return PairOperator(dense_copy(op.left), dense_copy(op.w1), dense_copy(op.w2), dense_copy(op.right),
                               layout), theta
 
 
@@ -107,7 +107,7 @@ def run_ladder_timed(ham: Hamiltonian, bond_dimensions, *, log=print, start: MPS
     ``timed`` (default: every rung) lists the rungs that get the timed second sweep; the others
     only grow.
     """
-    from netprobe.mps import random_state
+    from netprobe.engines.mps import random_state
 
     run = previous or LadderRun()
     mpo = build_mpo(ham)
@@ -117,11 +117,11 @@ def run_ladder_timed(ham: Hamiltonian, bond_dimensions, *, log=print, start: MPS
             state = run.states[chi]
             continue
         two = timed is None or chi in timed
-        engine = DmrgEngine(mpo, state, sweep_settings(chi, max_sweeps=2, min_sweeps=2), progress=None,
+        engine = GroundStateSearch(mpo, state, sweep_settings(chi, sweep_limit=2, sweep_minimum=2), progress=None,
                             blas_threads=1)
-        record = engine.sweep()
+        record = engine.step()
         if two:
-            record = engine.sweep()
+            record = engine.step()
         state = engine.state
         run.states[chi] = state
         run.sweep_seconds[chi] = record.seconds
@@ -138,7 +138,7 @@ def central_operator(state: MPS, ham: Hamiltonian, dtype=None):
     state = state.copy()
     if dtype is not None:
         state.tensors = [t.astype(dtype) for t in state.tensors]
-    engine = DmrgEngine(mpo, state, sweep_settings(max(state.bond_dimensions)), progress=None, blas_threads=1)
+    engine = GroundStateSearch(mpo, state, sweep_settings(max(state.bond_dimensions)), progress=None, blas_threads=1)
     i = state.num_sites // 2 - 1
     engine.state.move_centre(i)
     for j in range(i):
@@ -146,6 +146,6 @@ def central_operator(state: MPS, ham: Hamiltonian, dtype=None):
     t = engine.state.tensors
     theta = contract(t[i], t[i + 1], ([2], [0]))
     layout = BlockLayout(theta.legs, None, engine.state.basis.rule, theta.dtype)
-    op = TwoSiteHamiltonian(engine._env.left[i], engine.mpo.tensors[i], engine.mpo.tensors[i + 1],
+    op = PairOperator(engine._env.left[i], engine.mpo.tensors[i], engine.mpo.tensors[i + 1],
                             engine._env.right[i + 2], layout)
     return op, theta

@@ -38,7 +38,7 @@ from netprobe.engines import SolveSettings, ground_state, solve
 from netprobe.errors import NetprobeError
 from netprobe.pipeline import probe_model
 from netprobe.pipeline.assess import assess_model, assess_states
-from netprobe.spec import load_model
+from netprobe.model.spec import load_model
 
 __all__ = ["NetprobeError", "__version__", "load_model", "SolveSettings", "solve", "ground_state", "probe_model",
            "assess_model", "assess_states"]

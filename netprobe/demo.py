@@ -32,13 +32,15 @@ from pathlib import Path
 
 import numpy as np
 
-from netprobe.dmrg import ConvergenceWarning, SweepSettings
+from netprobe.engines.dmrg import ConvergenceWarning, SweepSettings
 from netprobe.engines import SolveSettings, solve
 from netprobe.errors import NetprobeError
 from netprobe.pipeline import probe_model
 from netprobe.pipeline.assess import assess_states
-from netprobe.plots import plot_assessment
-from netprobe.spec import load_model
+from netprobe.output.plots import plot_assessment
+from netprobe.model.spec import load_model
+from netprobe.pipeline.flux import thread_flux
+from netprobe.output.plots import PART_COLOURS, plot_flux
 
 __all__ = ["main", "run_demo"]
 
@@ -87,7 +89,7 @@ def _ladders(stream) -> list[dict]:
         cmi_region = f"shielded:a=0.5,b=1.01,c=1.8,center={x:.6f},{y:.6f}"
         _log(stream, f"DMRG ladder D = {', '.join(map(str, LADDER))} at M = {m_value} (V = {V_INTERACTING}), "
                      f"{model.num_sites} sites")
-        settings = SolveSettings(bond_dimensions=LADDER, sweeps=SweepSettings(max_sweeps=4), seed=1, progress=None)
+        settings = SolveSettings(bond_dimensions=LADDER, sweeps=SweepSettings(sweep_limit=4), seed=1, progress=None)
         r = probe_model(model, "disk:radius=1.8", engine="dmrg", settings=settings, cmi_region=cmi_region).to_json()
         for rung in r["ladder"]:
             _log(stream, f"  D = {rung['bond_dimension']:>3}: energy {rung['energy']:.8f}  J = {rung['J']:+.5f}  "
@@ -98,8 +100,6 @@ def _ladders(stream) -> list[dict]:
 
 
 def _flux(stream) -> dict:
-    from netprobe.flux import thread_flux
-
     _log(stream, f"flux threading at M = 0 (V = {V_INTERACTING}): 6 steps of the twist from 0 to 2 pi")
     result = thread_flux("haldane", {"t2": str(T2), "M": "0", "V": str(V_INTERACTING), **CYLINDER}, steps=6,
                          bond_dimension=48, sweeps=3, seed=2)
@@ -152,7 +152,7 @@ def _assessment(stream):
     model = load_model("haldane", {"t2": str(T2), "M": "0", "V": str(V_INTERACTING), **ASSESS_CYLINDER})
     _log(stream, f"assessment of the interacting point M = 0, V = {V_INTERACTING} ({model.num_sites} sites, DMRG "
                  f"D = {', '.join(map(str, LADDER))}, regions up to {ASSESS_SITES} sites)")
-    settings = SolveSettings(bond_dimensions=LADDER, sweeps=SweepSettings(max_sweeps=4), seed=3, progress=None)
+    settings = SolveSettings(bond_dimensions=LADDER, sweeps=SweepSettings(sweep_limit=4), seed=3, progress=None)
     grounds, _ = solve(model, "dmrg", settings)
     assessment = assess_states(grounds, max_sites=ASSESS_SITES, placements=2, progress=stream)
     _log(stream, "calibration: the same model at V = 0 with the free-fermion engine, regions up to 100 sites")
@@ -211,8 +211,6 @@ def _write_tables(out: Path, rows):
 def _plots(out: Path, rows, ladders, flux, predicted):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
-
-    from netprobe.plots import PART_COLOURS, plot_flux
 
     fig = Figure(figsize=(5.6, 3.6), dpi=120)
     FigureCanvasAgg(fig)

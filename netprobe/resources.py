@@ -34,11 +34,15 @@ def resolve_budget(budget: int | None) -> int:
 
 
 def format_bytes(nbytes: float) -> str:
-    """Bytes for a person: ``"1.5 GiB"``, ``"312 MiB"``, ``"20 KiB"``, ``"512 B"`` (three digits)."""
+    """Bytes for a person: ``"1.5 GiB"``, ``"312 MiB"``, ``"20 KiB"``, ``"512 B"`` (three digits).
+
+    Beyond a million TiB the number switches to exponent form (``"3.00e+08 TiB"``).
+    """
     value = float(nbytes)
-    for unit, size in (("GiB", 2**30), ("MiB", 2**20), ("KiB", 2**10)):
+    for unit, size in (("TiB", 2**40), ("GiB", 2**30), ("MiB", 2**20), ("KiB", 2**10)):
         if abs(value) >= size:
-            return f"{value / size:.3g} {unit}"
+            scaled = value / size
+            return f"{scaled:.3g} {unit}" if abs(scaled) < 1e6 else f"{scaled:.2e} {unit}"
     return f"{value:.0f} B"
 
 

@@ -18,8 +18,8 @@ from conftest import run_cli
 from netprobe.engines import SolveSettings, solve
 from netprobe.fitting import extrapolate_in_size, extrapolate_to_zero
 from netprobe.pipeline.assess import assess_states
-from netprobe.region_ladders import markov_series, region_ladder
-from netprobe.spec import load_model
+from netprobe.regions.ladders import markov_series, region_ladder
+from netprobe.model.spec import load_model
 
 KEYS = ("c_minus", "c_minus_error", "gamma", "gamma_error", "verdict", "reason", "certified", "markov_length",
         "sizes", "fits")
@@ -144,13 +144,13 @@ def test_toric_code_gamma_ln2_at_every_size_and_not_chiral():
     # Kitaev and Preskill, PRL 96, 110404 (2006): gamma = ln 2 for the toric code, exact for any region
     # large enough (zero correlation length); J = 0 for a state real in a product basis
     # (shared/references.md, exact properties of J)
-    from netprobe.dmrg import SweepSettings, find_ground_state
+    from netprobe.engines.dmrg import SweepSettings, find_ground_state
     from netprobe.engines import GroundState
 
     model = load_model("toric_code", {"length": "5", "circumference": "4"})
     best = None
     for seed in range(1, 9):  # the lowest of a few seeded starts avoids one-anyon minima (common practice)
-        run = find_ground_state(model, SweepSettings(bond_dimension=32, max_sweeps=10, solver_tolerance=1e-14),
+        run = find_ground_state(model, SweepSettings(bond_dimension=32, sweep_limit=10, solver_tolerance=1e-14),
                                 seed=seed, progress=None, warn=False)
         best = run if best is None or run.energy < best.energy - 1e-9 else best
         if best.energy < -39.5:

@@ -30,6 +30,24 @@ def test_check_reports_dimensions():
     assert max(info["mpo_bond_dimensions"]) == 5  # Heisenberg chain MPO: 2 + 3 channels (common practice)
 
 
+def test_check_summarises_huge_spaces_and_long_profiles():
+    # 120 spins-1/2: 2^120 basis states, far beyond 62-bit basis codes; 119 MPO bonds
+    args = ("check", "heisenberg", "--set", "lattice=square", "--set", "length=20", "--set", "circumference=6")
+    text = run_cli(*args, check=True).stdout
+    full = run_cli(*args, "--json", check=True).stdout
+    info = json.loads(full)
+    assert info["exact_dimension"] is None
+    assert len(info["mpo_bond_dimensions"]) == info["sites"] - 1 == 119
+    mantissa, exponent = f"{2.0 ** 120:.1e}".split("e+")  # 1.3e+36, by float arithmetic
+    assert f"about {mantissa}e{int(exponent)} basis states" in text
+    assert "far beyond exact diagonalisation" in text
+    profile = info["mpo_bond_dimensions"]
+    mpo_line = next(line for line in text.splitlines() if line.startswith("MPO"))
+    assert f"max bond dimension {max(profile)} at bonds" in mpo_line
+    assert " ".join(map(str, profile[:3])) + " ... " + " ".join(map(str, profile[-3:])) in mpo_line
+    assert max(len(line) for line in text.splitlines()) < 140  # a terminal line, not 119 numbers
+
+
 def test_exact_json_keys_and_value():
     proc = run_cli("exact", "tfim", "--set", "length=8", "--json", check=True)
     out = json.loads(proc.stdout)
@@ -70,7 +88,7 @@ def test_malformed_model_file(tmp_path):
     assert_one_line_error(run_cli("check", str(bad)), "not valid TOML")
     nonherm = tmp_path / "nonherm.toml"
     nonherm.write_text(
-        '[model]\nname = "nh"\nsite = "fermion"\nconserve = ["N"]\n'
+        '[model]\nname = "nh"\nsite = "fermion"\nconserved = ["N"]\n'
         '[parameters]\nlattice = "chain"\nlength = 4\ncircumference = 1\n[sector]\nN = 2\n'
         '[[term]]\non = "nn"\nops = "cdag c"\ncoupling = "1j"\n'
     )

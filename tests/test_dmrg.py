@@ -12,17 +12,17 @@ import numpy as np
 import pytest
 import scipy.linalg
 
-from netprobe import exact
-from netprobe.dmrg import (CHECKPOINT_NAME, EIGENSOLVERS, ConvergenceWarning, DmrgEngine, LadderSettings,
+from netprobe.engines import exact
+from netprobe.engines.dmrg import (CHECKPOINT_NAME, EIGENSOLVERS, ConvergenceWarning, GroundStateSearch, LadderSettings,
                            SweepSettings, extrapolate_energy, find_ground_state, resume_ladder, run_ladder,
                            stage_file_name)
-from netprobe.dmrg.engine import LOCAL_UPDATES
-from netprobe.dmrg.solvers import lanczos_lowest
+from netprobe.engines.dmrg.engine import LOCAL_UPDATES
+from netprobe.engines.dmrg.solvers import lanczos_lowest
 from netprobe.errors import NetprobeError, SectorError
-from netprobe.mpo import build_mpo
-from netprobe.mps import entanglement_entropies, expectation_value, random_state
-from netprobe.spec import load_model
-from netprobe.store import load_state
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.engines.mps import entanglement_entropies, expectation_value, random_state
+from netprobe.model.spec import load_model
+from netprobe.engines.mps.store import load_state
 
 # Catalogue of small cases with a trusted reference (our exact engine), tagged by what they exercise.
 EXACT_CASES = {
@@ -179,12 +179,12 @@ def _norm_bound(ham):
 def test_single_site_sweeps_never_raise_the_energy():
     model = load_model("haldane", {"length": "3", "circumference": "2", "V": "1.0"})
     mpo = build_mpo(model.hamiltonian)
-    warm = DmrgEngine(mpo, random_state(model.hamiltonian, bond_dimension=10, rng=4),
+    warm = GroundStateSearch(mpo, random_state(model.hamiltonian, bond_dimension=10, rng=4),
                       SweepSettings(bond_dimension=10, ramp=()), **_quiet())
-    warm.sweep()
-    engine = DmrgEngine(mpo, warm.state, SweepSettings(bond_dimension=10, local_update="single-site",
-                                                       max_sweeps=50), **_quiet())
-    energies = [engine.sweep().energy for _ in range(6)]
+    warm.step()
+    engine = GroundStateSearch(mpo, warm.state, SweepSettings(bond_dimension=10, local_update="single-site",
+                                                       sweep_limit=50), **_quiet())
+    energies = [engine.step().energy for _ in range(6)]
     # variational: each local update minimises over a space that contains the current state, and the QR
     # gauge moves are exact, so only rounding (a few ulps of |E| per sweep) can raise the energy
     assert max(np.diff(energies)) <= 100 * np.finfo(float).eps * abs(energies[-1])
@@ -194,9 +194,9 @@ def test_single_site_sweeps_never_raise_the_energy():
 def test_two_site_energy_rises_at_most_by_the_truncation():
     model = load_model("heisenberg", {"length": "24"})
     ham = model.hamiltonian
-    engine = DmrgEngine(build_mpo(ham), random_state(ham, bond_dimension=8, rng=4),
-                        SweepSettings(bond_dimension=8, ramp=(), noise=0.0, max_sweeps=50), **_quiet())
-    records = [engine.sweep() for _ in range(6)]
+    engine = GroundStateSearch(build_mpo(ham), random_state(ham, bond_dimension=8, rng=4),
+                        SweepSettings(bond_dimension=8, ramp=(), noise=0.0, sweep_limit=50), **_quiet())
+    records = [engine.step() for _ in range(6)]
     width = _norm_bound(ham)
     steps = 2 * (ham.num_sites - 1)
     for before, after in zip(records, records[1:]):
@@ -210,14 +210,14 @@ def test_two_site_energy_rises_at_most_by_the_truncation():
 def test_engine_steps_and_reports_each_sweep():
     model = load_model("heisenberg", {"length": "10"})
     stream = io.StringIO()
-    engine = DmrgEngine(build_mpo(model.hamiltonian), random_state(model.hamiltonian, rng=1),
+    engine = GroundStateSearch(build_mpo(model.hamiltonian), random_state(model.hamiltonian, rng=1),
                         SweepSettings(bond_dimension=16, discarded_tolerance=1e-3), progress=stream)
-    first = engine.sweep()
+    first = engine.step()
     assert first.sweep == 1 and math.isnan(first.energy_change) and first.bond_dimension == 16
     assert first.centre_entropy > 0 and first.seconds > 0 and first.matvecs > 0
-    second = engine.sweep()
+    second = engine.step()
     assert second.sweep == 2 and second.energy_change == pytest.approx(second.energy - first.energy)
-    result = engine.run()
+    result = engine.finish()
     assert result.converged and result.sweeps == len(result.energies) == len(result.history) >= 3
     lines = stream.getvalue().splitlines()
     assert len(lines) == result.sweeps and all(line.startswith("sweep ") for line in lines)
@@ -233,9 +233,9 @@ class _Terminal(io.StringIO):
 def test_live_indicator_on_terminals():
     model = load_model("heisenberg", {"length": "8"})
     stream = _Terminal()
-    engine = DmrgEngine(build_mpo(model.hamiltonian), random_state(model.hamiltonian, rng=1),
+    engine = GroundStateSearch(build_mpo(model.hamiltonian), random_state(model.hamiltonian, rng=1),
                         SweepSettings(bond_dimension=8), progress=stream)
-    engine.sweep()
+    engine.step()
     text = stream.getvalue()
     assert "\r" in text and "sweep 1: bond 14/14" in text
     assert text.endswith("\n") and "\rsweep   1 |" not in text and "sweep   1 | D" in text
@@ -244,7 +244,7 @@ def test_live_indicator_on_terminals():
 def test_non_convergence_keeps_the_work_and_warns():
     model = load_model("heisenberg", {"length": "10"})
     with pytest.warns(ConvergenceWarning, match="not converged after 2 sweeps"):
-        result = find_ground_state(model, SweepSettings(bond_dimension=16, max_sweeps=2), seed=1, **_quiet())
+        result = find_ground_state(model, SweepSettings(bond_dimension=16, sweep_limit=2), seed=1, **_quiet())
     assert not result.converged and result.sweeps == 2 and math.isfinite(result.energy)
     with pytest.warns(ConvergenceWarning, match="discarded weight .* exceeds discarded_tolerance"):
         result = find_ground_state(model, SweepSettings(bond_dimension=4, discarded_tolerance=1e-12), seed=1,
@@ -271,7 +271,7 @@ def test_ladder_extrapolation_brackets_the_exact_energy(tmp_path):
     overrides = {"lattice": "square", "circumference": "4", "length": "4"}
     model = load_model("heisenberg", overrides)
     reference = exact.ground_state(model.hamiltonian).energy  # our exact engine (reference)
-    settings = LadderSettings(bond_dimensions=(16, 24, 32, 40), sweeps=SweepSettings(max_sweeps=6),
+    settings = LadderSettings(bond_dimensions=(16, 24, 32, 40), sweeps=SweepSettings(sweep_limit=6),
                               variance=True)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
@@ -300,7 +300,7 @@ class _Interrupt(Exception):
 
 
 def _interrupt_after(monkeypatch, sweeps):
-    original = DmrgEngine.sweep
+    original = GroundStateSearch.step
     count = {"n": 0}
 
     def sweep(self):
@@ -309,7 +309,7 @@ def _interrupt_after(monkeypatch, sweeps):
         count["n"] += 1
         return original(self)
 
-    monkeypatch.setattr(DmrgEngine, "sweep", sweep)
+    monkeypatch.setattr(GroundStateSearch, "step", sweep)
 
 
 def test_resume_from_a_mid_run_checkpoint_reproduces_the_uninterrupted_run(tmp_path, monkeypatch):
@@ -338,7 +338,7 @@ def test_resume_from_a_mid_run_checkpoint_reproduces_the_uninterrupted_run(tmp_p
     def no_sweeps(self):
         raise AssertionError("a finished stage was recomputed")
 
-    monkeypatch.setattr(DmrgEngine, "sweep", no_sweeps)
+    monkeypatch.setattr(GroundStateSearch, "step", no_sweeps)
     again = run_ladder(model, settings, overrides=overrides, seed=7, out=tmp_path / "b", resume=True,
                        progress=None)
     assert [s.energy for s in again.stages] == [s.energy for s in resumed.stages]
@@ -361,10 +361,10 @@ def test_bad_input_raises_our_errors(tmp_path):
     with pytest.raises(NetprobeError, match="unknown setting.* chi"):
         SweepSettings.from_dict({"chi": 4})
     ham = load_model("heisenberg", {"length": "8"}).hamiltonian
-    with pytest.raises(SectorError, match="sector 2Sz = 3 has no states on 8 sites"):
-        find_ground_state(ham.with_sector({"2Sz": 3}), **_quiet())
-    with pytest.raises(SectorError, match="sector 2Sz = 10 has no states"):
-        find_ground_state(ham.with_sector({"2Sz": 10}), **_quiet())
+    with pytest.raises(SectorError, match="sector twice_sz = 3 has no states on 8 sites"):
+        find_ground_state(ham.with_sector({"twice_sz": 3}), **_quiet())
+    with pytest.raises(SectorError, match="sector twice_sz = 10 has no states"):
+        find_ground_state(ham.with_sector({"twice_sz": 10}), **_quiet())
     with pytest.raises(NetprobeError, match="resume needs the output folder"):
         run_ladder(load_model("heisenberg", {"length": "8"}), LadderSettings(bond_dimensions=(4,)),
                    resume=True)
@@ -375,14 +375,14 @@ def test_bad_input_raises_our_errors(tmp_path):
 
 def test_one_block_fast_path_equals_the_block_contractions_and_the_exact_energy():
     # charges switched off: every tensor is one dense block and the matvec takes the fast path
-    from netprobe.dmrg.effective import TwoSiteHamiltonian
-    from netprobe.mps import BlockMPO
+    from netprobe.engines.dmrg.effective import PairOperator
+    from netprobe.engines.mps import BlockMPO
     from netprobe.tensor import BlockLayout, contract
-    from netprobe.terms import Hamiltonian
+    from netprobe.model.terms import Hamiltonian
 
     charged = load_model("kagome_chiral", {}).hamiltonian  # complex couplings
-    ham = Hamiltonian(charged.lattice, charged.space, charged.products, conserve=(), sector={})
-    result = find_ground_state(ham, SweepSettings(bond_dimension=64, max_sweeps=12), seed=4, progress=None)
+    ham = Hamiltonian(charged.lattice, charged.space, charged.products, conserved=(), sector={})
+    result = find_ground_state(ham, SweepSettings(bond_dimension=64, sweep_limit=12), seed=4, progress=None)
     reference = exact.ground_state(charged).energies[0]
     # two-site DMRG at a bond dimension that truncates nothing on 12 sites: energy to the solver tolerance
     assert abs(result.energy - reference) < 1e-8 * abs(reference)
@@ -390,7 +390,7 @@ def test_one_block_fast_path_equals_the_block_contractions_and_the_exact_energy(
     mpo = BlockMPO.from_mpo(build_mpo(ham), state.basis)
     state.move_centre(5)
     left = [None] * 7
-    from netprobe.mps import left_boundary, left_environment_step, right_boundary, right_environment_step
+    from netprobe.engines.mps import left_boundary, left_environment_step, right_boundary, right_environment_step
     left[0] = left_boundary(state, mpo)
     for i in range(5):
         left[i + 1] = left_environment_step(left[i], state.tensors[i], mpo.tensors[i])
@@ -398,7 +398,7 @@ def test_one_block_fast_path_equals_the_block_contractions_and_the_exact_energy(
     for i in range(state.num_sites - 1, 6, -1):
         right = right_environment_step(right, state.tensors[i], mpo.tensors[i])
     theta = contract(state.tensors[5], state.tensors[6], ([2], [0]))
-    op = TwoSiteHamiltonian(left[5], mpo.tensors[5], mpo.tensors[6], right,
+    op = PairOperator(left[5], mpo.tensors[5], mpo.tensors[6], right,
                             BlockLayout(theta.legs, None, state.basis.rule, theta.dtype))
     assert op._dense_factors() is not None
     fast = op.apply(theta).to_dense()

@@ -97,8 +97,8 @@ def test_model_file_reference_matches_the_parser(ref):
     for group in keys.values():
         for key in group:
             assert f"``{key}``" in rst
-    lattices = ref.find_attribute("LATTICES", ("netprobe.lattice",))[1]
-    spaces = ref.find_attribute("SITE_SPACES", ("netprobe.sites",))[1]
+    lattices = ref.find_attribute("LATTICES", ("netprobe.model.lattice",))[1]
+    spaces = ref.find_attribute("SITE_SPACES", ("netprobe.model.sites",))[1]
     for name in (*lattices, *spaces):
         assert name in rst
 

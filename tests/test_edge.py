@@ -8,13 +8,13 @@ import numpy as np
 import pytest
 from conftest import kron_all, run_cli, tol
 
-from netprobe.cut import (_mode_permutation, column_cut, exact_cut, gaussian_cut, mps_cut, signed_permutation,
+from netprobe.pipeline.cut import (_mode_permutation, column_cut, exact_cut, gaussian_cut, mps_cut, signed_permutation,
                           translation_expectation_gaussian)
-from netprobe.edge import CHARACTERS, count_levels, edge_ladder, edge_state, fit_polarization
+from netprobe.pipeline.edge import CHARACTERS, count_levels, edge_ladder, edge_state, fit_polarization
 from netprobe.errors import LatticeError
-from netprobe.exact import ground_state
-from netprobe.gaussian import gaussian_state
-from netprobe.spec import load_model, load_spec
+from netprobe.engines.exact import ground_state
+from netprobe.engines.gaussian import gaussian_state
+from netprobe.model.spec import load_model, load_spec
 from test_cli import assert_one_line_error
 
 # DMRG at a bond dimension that holds the whole Schmidt spectrum of the small cylinders below, with
@@ -69,7 +69,7 @@ def test_signed_permutation_conjugates_creation_operators():
 
 def test_column_cut_describes_a_cyclic_shift_in_every_lattice():
     for name, extra in (("square", {}), ("honeycomb", {}), ("kagome", {}), ("toric", {}), ("triangular", {})):
-        from netprobe.lattice import build_lattice
+        from netprobe.model.lattice import build_lattice
 
         lat = build_lattice(name, length=4, circumference=3, **extra)
         cut = column_cut(lat)
@@ -89,7 +89,7 @@ def test_column_cut_describes_a_cyclic_shift_in_every_lattice():
     ("cylinder", 3, 0, "outside 1..3"),
 ])
 def test_column_cut_refuses_bad_cuts(geometry, circ, column, match):
-    from netprobe.lattice import build_lattice
+    from netprobe.model.lattice import build_lattice
 
     lat = build_lattice("square", length=4, circumference=circ, geometry=geometry)
     with pytest.raises(LatticeError, match=match):
@@ -133,12 +133,12 @@ def test_gaussian_polarization_is_the_exact_expectation_value(circumference):
 
 
 def test_mps_route_matches_free_fermions():
-    from netprobe.dmrg import SweepSettings, find_ground_state
+    from netprobe.engines.dmrg import SweepSettings, find_ground_state
 
     model = _chern(length=2, circumference=3, twist=0.3)  # bond dimension 64 = 4^3 holds every state
     cut = column_cut(model.lattice, 1)
     free = gaussian_cut(gaussian_state(model), cut)
-    tight = SweepSettings(bond_dimension=64, energy_tolerance=1e-12, solver_tolerance=1e-11, min_sweeps=4)
+    tight = SweepSettings(bond_dimension=64, energy_tolerance=1e-12, solver_tolerance=1e-11, sweep_minimum=4)
     result = find_ground_state(model, tight, seed=3, progress=None, warn=False)
     mps = mps_cut(result.state, cut)
     assert abs(mps.polarization - free.polarization) < DMRG_LAMBDA_TOL
@@ -152,13 +152,13 @@ def test_mps_route_matches_free_fermions():
 
 def test_mps_route_matches_exact_for_spins_on_the_kagome_lattice():
     # a bosonic model with three sites per cell: the MPS contraction against the exact reshaping
-    from netprobe.dmrg import SweepSettings, find_ground_state
+    from netprobe.engines.dmrg import SweepSettings, find_ground_state
 
     model = load_model("kagome_chiral", {"length": "2", "circumference": "2"})
     cut = column_cut(model.lattice, 1)
     gs = ground_state(model.hamiltonian)
     exact = exact_cut(gs.vector(0), gs.basis, model.space, cut)
-    tight = SweepSettings(bond_dimension=64, energy_tolerance=1e-12, solver_tolerance=1e-11, min_sweeps=4)
+    tight = SweepSettings(bond_dimension=64, energy_tolerance=1e-12, solver_tolerance=1e-11, sweep_minimum=4)
     result = find_ground_state(model, tight, seed=1, progress=None, warn=False)
     mps = mps_cut(result.state, cut)
     assert abs(mps.polarization - exact.polarization) < DMRG_LAMBDA_TOL

@@ -10,11 +10,11 @@ parts interleave in the MPS order.
 import numpy as np
 import pytest
 
-from netprobe.dmrg import SweepSettings, find_ground_state
-from netprobe.exact import ground_state
-from netprobe.gaussian import FreeFermionState
+from netprobe.engines.dmrg import SweepSettings, find_ground_state
+from netprobe.engines.exact import ground_state
+from netprobe.engines.gaussian import FreeFermionState
 from netprobe.probes import measure_probes
-from netprobe.spec import load_model
+from netprobe.model.spec import load_model
 
 OVERRIDES = {"length": "4", "circumference": "2", "V": "0", "phi": "pi/2", "t2": "0.3", "M": "0.2"}
 
@@ -31,7 +31,7 @@ def states():
     model = load_model("haldane", OVERRIDES)
     exact = ground_state(model.hamiltonian)
     # D = 256 exceeds the largest Schmidt rank needed on 16 sites at 1e-12 (2^8 = 256 at the centre)
-    dmrg = find_ground_state(model, SweepSettings(bond_dimension=256, max_sweeps=12), seed=3, progress=None)
+    dmrg = find_ground_state(model, SweepSettings(bond_dimension=256, sweep_limit=12), seed=3, progress=None)
     free = FreeFermionState.from_model(model)
     return model, exact, dmrg, free
 

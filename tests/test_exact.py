@@ -16,9 +16,9 @@ import pytest
 import scipy.sparse as sp
 from scipy.special import comb
 
-from netprobe import expr
+from netprobe.model import expr
 from netprobe.errors import HermiticityError, MemoryBudgetError, OperatorError, SectorError, SpecError
-from netprobe.exact import (
+from netprobe.engines.exact import (
     ExactOptions,
     SectorBasis,
     correlation,
@@ -31,10 +31,10 @@ from netprobe.exact import (
     operator_matrix,
     sector_basis,
 )
-from netprobe.lattice import build_lattice
-from netprobe.sites import site_space
-from netprobe.spec import build_model, load_model, load_spec, parse_spec
-from netprobe.terms import Hamiltonian, Term
+from netprobe.model.lattice import build_lattice
+from netprobe.model.sites import site_space
+from netprobe.model.spec import build_model, load_model, load_spec, parse_spec
+from netprobe.model.terms import Hamiltonian, Term
 
 DENSE_TOL = 1e-11  # LAPACK on matrices of norm <~ 30: 1e3 ulps of the norm (common practice)
 LANCZOS_TOL = 1e-8  # ARPACK at tol=1e-10 relative on |E0| <~ 20
@@ -57,7 +57,7 @@ def kron_op(local: dict, n: int, d: int = 2) -> sp.csr_matrix:
 
 
 def spin_half_2sz(n: int) -> np.ndarray:
-    """2Sz of every full-space index (digit 0 = up), computed from the bits."""
+    """twice_sz of every full-space index (digit 0 = up), computed from the bits."""
     idx = np.arange(2**n)
     downs = sum((idx >> (n - 1 - j)) & 1 for j in range(n))
     return n - 2 * downs
@@ -89,7 +89,7 @@ def with_sector(spec, **sector):
 @pytest.mark.parametrize("n", [6, 7, 8, 9, 10])
 def test_heisenberg_open_chain_against_kronecker(n):
     twice_sz = n % 2
-    model = build_model(with_sector(load_spec("heisenberg"), **{"2Sz": twice_sz}), {"length": str(n)})
+    model = build_model(with_sector(load_spec("heisenberg"), **{"twice_sz": twice_sz}), {"length": str(n)})
     ham = model.hamiltonian
     bonds = [(i, i + 1) for i in range(n - 1)]
     # numpy eigvalsh of the Kronecker-built block (common practice)
@@ -115,10 +115,10 @@ def test_four_site_ring_is_minus_two_j():
 @pytest.mark.parametrize("n", [10, 11, 12])
 def test_xx_chain_free_fermion_levels(n):
     twice_sz = n % 2
-    model = build_model(with_sector(load_spec("heisenberg"), **{"2Sz": twice_sz}),
+    model = build_model(with_sector(load_spec("heisenberg"), **{"twice_sz": twice_sz}),
                         {"length": str(n), "Delta": "0"})
     # levels J cos(pi m/(N+1)) (Lieb, Schultz, Mattis, Ann. Phys. 16, 407 (1961)); N/2 particles fill
-    # the negative ones; for odd N (2Sz = 1) the zero mode m = (N+1)/2 makes (N-1)/2 and (N+1)/2 equal
+    # the negative ones; for odd N (twice_sz = 1) the zero mode m = (N+1)/2 makes (N-1)/2 and (N+1)/2 equal
     levels = np.cos(np.pi * np.arange(1, n + 1) / (n + 1))
     exact = levels[levels < -1e-12].sum()
     result = ground_state(model.hamiltonian)
@@ -128,7 +128,7 @@ def test_xx_chain_free_fermion_levels(n):
 @pytest.mark.parametrize("n", [6, 10, 14])
 def test_critical_ising_open_chain(n):
     model = load_model("tfim", {"length": str(n)})
-    assert model.hamiltonian.conserve == ()
+    assert model.hamiltonian.conserved == ()
     result = ground_state(model.hamiltonian)
     assert result.basis.dim == 2**n
     # E0 = J [1 - 1/sin(pi/(4N+2))] at h = J (Pfeuty, Ann. Phys. 57, 79 (1970))
@@ -148,37 +148,37 @@ def test_two_site_hubbard_closed_form():
 
 @pytest.mark.parametrize("n", [11, 12])
 def test_spin_half_sector_dimensions_are_binomial(n):
-    q = site_space("spin-1/2").charge_values(("2Sz",))
+    q = site_space("spin-1/2").charge_values(("twice_sz",))
     for ups in range(n + 1):
-        basis = SectorBasis(q, n, [2 * ups - n], names=["2Sz"])
+        basis = SectorBasis(q, n, [2 * ups - n], names=["twice_sz"])
         assert basis.dim == comb(n, ups, exact=True)  # scipy.special.comb (common practice)
         assert np.all(np.diff(basis.codes) > 0)
 
 
-def test_spin_one_and_electron_dimensions():
+def test_spin_one_and_spinful_fermion_dimensions():
     n = 6
     trinomial = np.polynomial.polynomial.polypow([1, 1, 1], n)  # (1 + x + x^2)^N (common practice)
-    q1 = site_space("spin-1").charge_values(("2Sz",))
+    q1 = site_space("spin-1").charge_values(("twice_sz",))
     for k, count in enumerate(trinomial):
         assert SectorBasis(q1, n, [2 * (k - n)]).dim == round(count)
-    qe = site_space("electron").charge_values(("N", "2Sz"))
+    qe = site_space("spinful_fermion").charge_values(("N", "twice_sz"))
     length = 5
     for up in range(length + 1):
         for dn in range(length + 1):
-            basis = SectorBasis(qe, length, [up + dn, up - dn], names=["N", "2Sz"])
+            basis = SectorBasis(qe, length, [up + dn, up - dn], names=["N", "twice_sz"])
             assert basis.dim == comb(length, up, exact=True) * comb(length, dn, exact=True)
 
 
-@pytest.mark.parametrize("space,conserve,n", [("spin-1", ("2Sz",), 6), ("electron", ("N", "2Sz"), 4),
+@pytest.mark.parametrize("space,conserved,n", [("spin-1", ("twice_sz",), 6), ("spinful_fermion", ("N", "twice_sz"), 4),
                                               ("spin-1/2", (), 5)])
-def test_codes_and_index_against_brute_force(space, conserve, n):
-    q = site_space(space).charge_values(conserve)
+def test_codes_and_index_against_brute_force(space, conserved, n):
+    q = site_space(space).charge_values(conserved)
     d = q.shape[0]
     digits = np.array(np.unravel_index(np.arange(d**n), (d,) * n)).T  # site 0 most significant (numpy)
     totals = q[digits].sum(axis=1)
     target = totals[d**n // 3]
     expected = np.nonzero(np.all(totals == target, axis=1))[0]
-    basis = SectorBasis(q, n, target, names=conserve)
+    basis = SectorBasis(q, n, target, names=conserved)
     np.testing.assert_array_equal(basis.codes, expected)
     np.testing.assert_array_equal(basis.states(), digits[expected])
     probe = np.arange(d**n)
@@ -188,7 +188,7 @@ def test_codes_and_index_against_brute_force(space, conserve, n):
 
 
 def test_empty_sector_raises():
-    q = site_space("spin-1/2").charge_values(("2Sz",))
+    q = site_space("spin-1/2").charge_values(("twice_sz",))
     with pytest.raises(SectorError, match="no states"):
         SectorBasis(q, 4, [1])  # wrong parity
     with pytest.raises(SectorError, match="no states"):
@@ -232,8 +232,8 @@ def test_union_of_sectors_is_the_full_spectrum(rng):
     np.testing.assert_allclose(whole.energies, reference, atol=DENSE_TOL)
     parts = []
     for twice_sz in range(-2 * n, 2 * n + 1, 2):
-        ham = Hamiltonian.from_terms(lattice, space, terms, add_conjugate=conj, conserve=("2Sz",),
-                                     sector={"2Sz": twice_sz})
+        ham = Hamiltonian.from_terms(lattice, space, terms, add_conjugate=conj, conserved=("twice_sz",),
+                                     sector={"twice_sz": twice_sz})
         dim = sector_basis(ham).dim
         parts.append(ground_state(ham, num_states=dim).energies)
     np.testing.assert_allclose(np.sort(np.concatenate(parts)), reference, atol=DENSE_TOL)
@@ -243,7 +243,7 @@ COMPLEX_CHAIN = """
 [model]
 name = "complex-flip-ladder"
 site = "spin-1/2"
-conserve = ["2Sz"]
+conserved = ["twice_sz"]
 [parameters]
 lattice = "square"
 geometry = "strip"
@@ -253,7 +253,7 @@ K = 0.7
 phi = 0.9
 Jz = 0.4
 [sector]
-2Sz = 0
+twice_sz = 0
 [[term]]
 on = "nn"
 ops = "Sp Sm"
@@ -305,7 +305,7 @@ HOPPING = """
 [model]
 name = "hopping-cylinder"
 site = "fermion"
-conserve = ["N"]
+conserved = ["N"]
 [parameters]
 lattice = "square"
 length = 2
@@ -357,7 +357,7 @@ def test_fermion_cylinder_is_a_slater_determinant(nf):
         assert value == pytest.approx(g[i, j], abs=STATE_TOL)
 
 
-def test_electron_cylinder_sectors_at_zero_interaction():
+def test_spinful_fermion_cylinder_sectors_at_zero_interaction():
     overrides = {"lattice": "square", "length": "2", "circumference": "3", "U": "0"}
     levels = None
     for filling, spin in [("1/3", "0"), ("2/3", "2"), ("1", "0"), ("1", "2")]:
@@ -369,7 +369,7 @@ def test_electron_cylinder_sectors_at_zero_interaction():
                 h[i, j] -= 1.0
                 h[j, i] -= 1.0
             levels = np.linalg.eigvalsh(h)  # numpy (common practice)
-        n, twice_sz = model.hamiltonian.sector["N"], model.hamiltonian.sector["2Sz"]
+        n, twice_sz = model.hamiltonian.sector["N"], model.hamiltonian.sector["twice_sz"]
         up, dn = (n + twice_sz) // 2, (n - twice_sz) // 2
         assert ground_state(model.hamiltonian).energy == pytest.approx(levels[:up].sum() + levels[:dn].sum(),
                                                                        abs=LANCZOS_TOL)
@@ -417,7 +417,7 @@ def test_ground_state_is_deterministic():
 def test_measurements_against_the_full_vector():
     n = 8
     model = load_model("heisenberg", {"length": str(n), "Delta": "0.6"})
-    result = ground_state(model.hamiltonian, sector={"2Sz": 2})
+    result = ground_state(model.hamiltonian, sector={"twice_sz": 2})
     psi = full_vector(result)
     assert psi.shape == (2**n,)
     assert np.count_nonzero(psi) == np.count_nonzero(result.vector())
@@ -432,8 +432,8 @@ def test_measurements_against_the_full_vector():
         assert correlation(result, model, "Sz", "Sz", i, j) == pytest.approx(want, abs=ROUNDOFF)
     energy = expectation(result, model.hamiltonian.products)
     assert isinstance(energy, float) and energy == pytest.approx(result.energy, abs=ROUNDOFF)
-    # an operator into another sector: Sm_0 maps 2Sz = 2 to 2Sz = 0
-    target = result.basis.with_target({"2Sz": 0})
+    # an operator into another sector: Sm_0 maps twice_sz = 2 to twice_sz = 0
+    target = result.basis.with_target({"twice_sz": 0})
     lower = operator_matrix([p for p in _single_site_products(model, "Sm", 0)], result.basis, target)
     assert lower.shape == (target.dim, result.basis.dim)
     lowered = np.zeros(2**n)
@@ -442,7 +442,7 @@ def test_measurements_against_the_full_vector():
 
 
 def _single_site_products(model, name, site):
-    from netprobe.terms import normal_form
+    from netprobe.model.terms import normal_form
     return [normal_form(Term(1.0, ((site, name),)), model.space)]
 
 
@@ -457,11 +457,11 @@ def test_user_mistakes_raise_our_errors():
         ground_state(model.hamiltonian, num_states=1000)
     lattice, space = model.lattice, model.space
     field = [Term(1.0, ((i, "Sx"),), f"field {i}") for i in range(6)]
-    leaky = Hamiltonian.from_terms(lattice, space, field, conserve=("2Sz",), sector={"2Sz": 0})
-    with pytest.raises(SpecError, match="does not conserve"):
+    leaky = Hamiltonian.from_terms(lattice, space, field, conserved=("twice_sz",), sector={"twice_sz": 0})
+    with pytest.raises(SpecError, match="does not conserved"):
         ground_state(leaky)
     one_way = Hamiltonian.from_terms(lattice, space, [Term(1.0, ((0, "Sp"), (1, "Sm")), "flip")],
-                                     conserve=("2Sz",), sector={"2Sz": 0})
+                                     conserved=("twice_sz",), sector={"twice_sz": 0})
     with pytest.raises(HermiticityError):
         ground_state(one_way)
 
@@ -487,7 +487,7 @@ def test_binary_search_lookup_matches_rank_tables(monkeypatch):
     model = build_model(parse_spec(HOPPING), {"Nf": "3"})
     ham = model.hamiltonian
     with_tables = hamiltonian_matrix(ham).toarray()
-    monkeypatch.setattr("netprobe.exact._TABLE_LIMIT", 0)  # force the fallback for every basis
+    monkeypatch.setattr("netprobe.engines.exact.basis._TABLE_LIMIT", 0)  # force the fallback for every basis
     basis = sector_basis(ham)
     assert basis.lookup_tables()[3] is False
     np.testing.assert_array_equal(hamiltonian_matrix(ham, basis).toarray(), with_tables)

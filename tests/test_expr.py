@@ -1,4 +1,4 @@
-"""Tests for netprobe.expr, the safe parser of coupling expressions.
+"""Tests for netprobe.model.expr, the safe parser of coupling expressions.
 
 References are Python's own arithmetic, :mod:`math` and :mod:`cmath` on the same formulas,
 written as Python source in this file (never produced by handing text to Python's compiler).
@@ -16,7 +16,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from netprobe.errors import ExpressionError
-from netprobe.expr import (
+from netprobe.model.expr import (
     CONSTANTS,
     FUNCTION_NAMES,
     MAX_DEPTH,

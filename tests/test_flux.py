@@ -11,7 +11,7 @@ import pytest
 from conftest import run_cli
 
 from netprobe.errors import SpecError
-from netprobe.flux import thread_flux
+from netprobe.pipeline.flux import thread_flux
 
 from test_cli import assert_one_line_error
 

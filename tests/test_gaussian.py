@@ -19,9 +19,9 @@ import numpy as np
 import pytest
 from conftest import dense_from_products, kron_all, tol
 
-from netprobe import exact
+from netprobe.engines import exact
 from netprobe.errors import GaussianStateError, LatticeError, NetprobeError, NotQuadraticError
-from netprobe.gaussian import (
+from netprobe.engines.gaussian import (
     FreeFermionState,
     GaussianOptions,
     MajoranaState,
@@ -31,7 +31,7 @@ from netprobe.gaussian import (
     majorana_modular_matrix,
     quadratic_form,
 )
-from netprobe.spec import build_model, load_model, parse_spec
+from netprobe.model.spec import build_model, load_model, parse_spec
 
 ENERGY_TOL = 1e-10  # LAPACK sums on norms ~10-100 (common practice)
 PROBE_TOL = 1e-8  # see the module notes: ARPACK vectors and logarithms of small eigenvalues
@@ -42,7 +42,7 @@ PIP_MODEL = """
 name = "pip_test"
 description = "invented test scenario: spinless p+ip superconductor on a small square strip"
 site = "fermion"
-conserve = []
+conserved = []
 
 [parameters]
 lattice = "square"
@@ -94,7 +94,7 @@ def qubit_tensor(model, vector):
     n = model.num_sites
     d = model.space.dim
     psi = np.asarray(vector).reshape((d,) * n)
-    if model.space.name == "electron":
+    if model.space.name == "spinful_fermion":
         inverse = np.argsort(_ELECTRON_TO_KRON)
         for axis in range(n):
             psi = np.take(psi, inverse, axis=axis)
@@ -129,7 +129,7 @@ def rdm(psi, modes):
 
 
 def mode_list(model, sites):
-    k = 2 if model.space.name == "electron" else 1
+    k = 2 if model.space.name == "spinful_fermion" else 1
     return [s * k + j for s in sites for j in range(k)]
 
 
@@ -271,14 +271,14 @@ def test_free_hubbard_chain_matches_exact_engine_and_closed_form():
     state = FreeFermionState.from_model(model)
     reference = exact.ground_state(model.hamiltonian, tol=1e-12).energy
     assert abs(state.energy - reference) < ENERGY_TOL * abs(reference)
-    # open chain levels -2t cos(pi k / (N + 1)) (common practice); 2Sz = 2 puts 5 up and 3 down
+    # open chain levels -2t cos(pi k / (N + 1)) (common practice); twice_sz = 2 puts 5 up and 3 down
     levels = -2 * np.cos(np.pi * np.arange(1, 9) / 9)
     assert abs(state.energy - (np.sum(levels[:5]) + np.sum(levels[:3]))) < ENERGY_TOL * abs(reference)
     assert state.particles == 8
 
 
 @pytest.mark.parametrize("case", [
-    # XX chain, 2Sz = 0: free fermions with open-chain levels J cos(pi m / (N + 1)) (shared/references.md)
+    # XX chain, twice_sz = 0: free fermions with open-chain levels J cos(pi m / (N + 1)) (shared/references.md)
     ("heisenberg", {"Delta": "0", "length": "10"}, np.cos(np.pi * np.arange(1, 11) / 11)),
     # hard-core bosons on a chain are free fermions: levels -2t cos(pi k / (N + 1)) (common practice)
     ("hofstadter", {"circumference": "1", "length": "10", "nu": "2"},
@@ -353,7 +353,7 @@ def test_haldane_probes_match_many_body_definition(haldane_small, regions):
     assert abs(state.entropy(a + c, order=2.0) - vn_entropy(rho, 2.0)) < PROBE_TOL
 
 
-def test_electron_modes_match_many_body_definition():
+def test_spinful_fermion_modes_match_many_body_definition():
     model = load_model("chern_square", {"length": "2", "circumference": "3", "m": "1"})
     _, psi = exact_tensor(model)
     state = FreeFermionState.from_model(model)
@@ -554,7 +554,7 @@ def test_interacting_models_are_refused():
                        match=r"model 'haldane' is not quadratic: term .*n n.* \(set V = 0\)"):
         FreeFermionState.from_model(load_model("haldane", {"V": "1"}))
     with pytest.raises(NotQuadraticError,
-                       match=r"model 'hubbard' is not quadratic: term .*n_updn.* \(set U = 0\)"):
+                       match=r"model 'hubbard' is not quadratic: term .*n_pair.* \(set U = 0\)"):
         gaussian_state(load_model("hubbard", {}))
     with pytest.raises(NotQuadraticError, match="not quadratic after Jordan-Wigner in MPS order"):
         gaussian_state(load_model("kitaev", {}))

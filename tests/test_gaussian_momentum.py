@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from conftest import tol
 
-from netprobe.gaussian import (
+from netprobe.engines.gaussian import (
     FreeFermionState,
     GaussianOptions,
     GaussianStateError,
@@ -20,9 +20,9 @@ from netprobe.gaussian import (
     gaussian_state,
     quadratic_form,
 )
-from netprobe.gaussian_momentum import CylinderMatrix, cylinder_layout, translation_blocks
-from netprobe.lattice import build_lattice
-from netprobe.spec import load_model
+from netprobe.engines.gaussian.momentum import CylinderMatrix, cylinder_layout, translation_blocks
+from netprobe.model.lattice import build_lattice
+from netprobe.model.spec import load_model
 
 DENSE = GaussianOptions(route="dense")
 MOMENTUM = GaussianOptions(route="momentum")

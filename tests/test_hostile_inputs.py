@@ -21,7 +21,7 @@ from hypothesis import strategies as st
 
 from netprobe.cli import main
 from netprobe.errors import NetprobeError
-from netprobe.study.description import load_study
+from netprobe.study.reading import load_study
 
 _MEMORY_LIMIT = 3 * 2**30  # address space of a subprocess run: a small run needs well under 1 GiB
 _TIMEOUT = 60  # seconds per subprocess run
@@ -54,7 +54,7 @@ def model_files(draw):
     ops = draw(st.sampled_from(['"Z Z"', '"X"', '"Q Q"', '""', "5", '"Z@3 Z"']))
     family = draw(st.sampled_from(['"nn"', '"sites"', '"nnn"', '"diagonal"']))
     extra = draw(st.sampled_from(["", "term = [1, 2]\n", "[extra]\na = 1\n", "model = 3\n", ""]))
-    text = (f'{extra}[model]\nname = "gen"\nsite = "spin-1/2"\nconserve = []\n'
+    text = (f'{extra}[model]\nname = "gen"\nsite = "spin-1/2"\nconserved = []\n'
             f'[parameters]\nlattice = "chain"\nlength = {length}\ncircumference = 1\nJ = 1.0\nh = {h}\n'
             f'[[term]]\non = {family}\nops = {ops}\ncoupling = {coupling}\n'
             f'[[term]]\non = "sites"\nops = "X"\ncoupling = "-h"\n')
@@ -164,7 +164,7 @@ def study_files(draw):
         "h = { start = 0.5, stop = 1.5, num = 2 }", "h = { start = 0.5, stop = 1.5, num = 100000000 }",
         "h = { values = [nan] }", "h = { start = 0, stop = inf, num = 3 }", "h = 5", "length = { values = [400] }",
         "nope = { values = [1] }", "h = { values = [" + "[" * 30 + "]" * 30 + "] }"]))
-    ladder = draw(st.sampled_from(["", "[ladder]\nbond_dimensions = [4]\nmax_sweeps = 1\n",
+    ladder = draw(st.sampled_from(["", "[ladder]\nbond_dimensions = [4]\nsweep_limit = 1\n",
                                    "[ladder]\nbond_dimensions = [100000000]\n", "[ladder]\nbond_dimensions = -1\n"]))
     fixed = draw(st.sampled_from(["", "[set]\nlength = 4\n", "[set]\nlength = 1e30\n", "[set]\nlength = 4.5\n"]))
     return f'[study]\nname = "gen"\nmodel = "tfim"\nengine = "{engine}"\n{fixed}[grid]\n{grid}\n{ladder}'

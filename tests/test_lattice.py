@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from netprobe.errors import LatticeError
-from netprobe.lattice import LATTICES, build_lattice
+from netprobe.model.lattice import LATTICES, build_lattice
 
 # Bulk coordination numbers (common practice): nearest and next-nearest neighbours per site.
 COORDINATION = {
@@ -122,7 +122,7 @@ def test_peierls_flux_per_plaquette():
     flux = 0.23
     p = lat.family("plaquettes")[0].positions
     total = 0.0
-    from netprobe.lattice import Bond
+    from netprobe.model.lattice import Bond
 
     for a, b in ((1, 0), (2, 1), (3, 2), (0, 3)):  # hops around the loop 0 -> 1 -> 2 -> 3 -> 0
         total += lat.peierls_phase(Bond((0, 1), np.array([p[a], p[b]])), flux=flux)

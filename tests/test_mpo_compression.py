@@ -5,10 +5,10 @@ import numpy as np
 import pytest
 from conftest import dense_from_products, tol
 
-from netprobe.dmrg import SweepSettings, find_ground_state
-from netprobe.exact import ground_state
-from netprobe.mpo import build_mpo
-from netprobe.spec import build_model, load_model, parse_spec
+from netprobe.engines.dmrg import SweepSettings, find_ground_state
+from netprobe.engines.exact import ground_state
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.model.spec import build_model, load_model, parse_spec
 
 _BILINEAR = "Sx Sx + Sy Sy + Sz Sz"
 # (S.S)^2 written as a user would: nine on-site products per bond
@@ -22,7 +22,7 @@ _CHAIN = """
 name = "{name}"
 description = "invented test chain"
 site = "{site}"
-conserve = {conserve}
+conserved = {conserved}
 
 [parameters]
 lattice = "chain"
@@ -38,28 +38,28 @@ def _term(ops, coupling, family="nn", conjugate=False):
             f'conjugate = {"true" if conjugate else "false"}\n')
 
 
-def _chain(name, site, terms, *, length=6, conserve=(), sector=""):
-    text = _CHAIN.format(name=name, site=site, conserve=list(conserve).__repr__().replace("'", '"'),
+def _chain(name, site, terms, *, length=6, conserved=(), sector=""):
+    text = _CHAIN.format(name=name, site=site, conserved=list(conserved).__repr__().replace("'", '"'),
                          length=length, sector=f"[sector]\n{sector}\n" if sector else "", terms="\n".join(terms))
     return build_model(parse_spec(text))
 
 
-def _blbq(length=6, conserve=("2Sz",), ops=_BIQUADRATIC):
-    sector = '2Sz = "0"' if conserve else ""
+def _blbq(length=6, conserved=("twice_sz",), ops=_BIQUADRATIC):
+    sector = 'twice_sz = "0"' if conserved else ""
     return _chain("blbq", "spin-1", [_term(_BILINEAR, "cos(0.3)"), _term(ops, "sin(0.3)")],
-                  length=length, conserve=conserve, sector=sector)
+                  length=length, conserved=conserved, sector=sector)
 
 
 NN_CHAINS = {
     "blbq_spin1": lambda n: _blbq(n),
     "blbq_spin1_charged_factors": lambda n: _blbq(n, ops=_BIQUADRATIC_CHARGED),
-    "blbq_spin1_no_charges": lambda n: _blbq(n, conserve=()),
+    "blbq_spin1_no_charges": lambda n: _blbq(n, conserved=()),
     "heisenberg": lambda n: load_model("heisenberg", {"length": str(n), "Delta": "0.7"}),
     "tfim": lambda n: load_model("tfim", {"length": str(n)}),
     "hubbard": lambda n: load_model("hubbard", {"length": str(n), "circumference": "1"}),
     "spinless_complex_hopping": lambda n: _chain(
         "fermions", "fermion", [_term("cdag c", "-exp(0.4j)", conjugate=True), _term("n n", "0.7"),
-                                _term("n", "0.2", family="sites")], length=n, conserve=("N",), sector='N = "sites / 2"'),
+                                _term("n", "0.2", family="sites")], length=n, conserved=("N",), sector='N = "sites / 2"'),
     "spin1_anisotropic": lambda n: _chain(
         "xxz1", "spin-1", [_term("Sx Sx + Sy Sy + 0.5*Sz Sz", "1.0"), _term("Sz2", "0.3", family="sites")],
         length=n),
@@ -153,6 +153,6 @@ def test_width_six_kagome_compression_is_exact():
 def test_dmrg_on_the_compressed_mpo_finds_the_exact_energy(model):
     model = model()
     exact = ground_state(model.hamiltonian).energy
-    result = find_ground_state(model, SweepSettings(bond_dimension=64, max_sweeps=8, energy_tolerance=1e-11), seed=3, warn=False)
+    result = find_ground_state(model, SweepSettings(bond_dimension=64, sweep_limit=8, energy_tolerance=1e-11), seed=3, warn=False)
     # DMRG at D = 64 is exact for these sizes; the solver stops at ~1e-10 relative change
     assert abs(result.energy - exact) < 1e-8 * max(1.0, abs(exact))

@@ -3,21 +3,21 @@
 References: dense vectors and Kronecker-product operators built here with NumPy (conftest), the
 Jordan-Wigner definition c_j = F_0 ... F_{j-1} a_j (Jordan and Wigner, Z. Phys. 47, 631 (1928)) for
 fermion correlations, the Schmidt decomposition by numpy.linalg.svd, and our own exact engine
-(netprobe.exact) on small systems.
+(netprobe.engines.exact) on small systems.
 """
 
 import numpy as np
 import pytest
 from conftest import dense_from_products, kron_all, tol
 
-from netprobe import exact
-from netprobe.dmrg import SweepSettings, find_ground_state
+from netprobe.engines import exact
+from netprobe.engines.dmrg import SweepSettings, find_ground_state
 from netprobe.errors import NetprobeError, OperatorError, SectorError
-from netprobe.mpo import build_mpo
-from netprobe.mps import (correlation, energy_variance, entanglement_entropies, entanglement_spectrum,
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.engines.mps import (correlation, energy_variance, entanglement_entropies, entanglement_spectrum,
                           expectation_value, local_expectations, overlap, product_state, random_state,
                           schmidt_spectra)
-from netprobe.spec import load_model
+from netprobe.model.spec import load_model
 from netprobe.tensor import BlockLayout, BlockTensor, ChargeRule, Leg
 
 # small cases: (model, overrides); fermions with hoppings that cross other sites in the 1D order,
@@ -38,10 +38,10 @@ def _model(key):
 def _sector_mask(ham):
     """True on every full-space basis state whose charges equal the Hamiltonian's sector."""
     n, d = ham.num_sites, ham.space.dim
-    q = ham.space.charge_values(ham.conserve)
+    q = ham.space.charge_values(ham.conserved)
     digits = np.indices((d,) * n).reshape(n, -1)
     total = sum(q[digits[j]] for j in range(n))
-    target = np.array([ham.sector[c] for c in ham.conserve])
+    target = np.array([ham.sector[c] for c in ham.conserved])
     return np.all(total == target, axis=1) if q.shape[1] else np.ones(d**n, bool)
 
 
@@ -102,7 +102,7 @@ def test_product_state_is_the_basis_vector_and_checks_its_sector():
     expected[code] = 1.0
     assert np.array_equal(v, expected)
     assert np.array_equal(product_state(ham, [0, 1] * 4).to_vector(), expected)
-    with pytest.raises(SectorError, match="2Sz = 2 but the target sector is 2Sz = 0"):
+    with pytest.raises(SectorError, match="twice_sz = 2 but the target sector is twice_sz = 0"):
         product_state(ham, ["up", "up", "down", "up", "down", "up", "down", "up"])
     with pytest.raises(OperatorError, match="unknown local state 'sideways'"):
         product_state(ham, ["sideways"] * 8)
@@ -136,7 +136,7 @@ def test_energy_and_variance_match_dense_kronecker_products(key):
 
 @pytest.fixture(scope="module")
 def heisenberg_ground():
-    """Exact and DMRG ground states of an open Heisenberg chain with 2Sz = 2 (so <Sz_i> != 0)."""
+    """Exact and DMRG ground states of an open Heisenberg chain with twice_sz = 2 (so <Sz_i> != 0)."""
     model = load_model("heisenberg", {"length": "10", "twice_sz": "2"})
     ref = exact.ground_state(model.hamiltonian)
     res = find_ground_state(model, SweepSettings(bond_dimension=32, energy_tolerance=1e-12,
@@ -159,9 +159,9 @@ def test_entanglement_spectrum_is_labelled_by_the_left_charge(heisenberg_ground)
     vec = exact.full_vector(ref).reshape((2,) * model.num_sites)
     bond = 4
     spec = entanglement_spectrum(psi, bond)
-    assert spec.names == ("2Sz",)
-    got = spec.by_charge()
-    # reference: split the exact vector by the 2Sz of the left block and take numpy SVDs block by block
+    assert spec.names == ("twice_sz",)
+    got = spec.per_charge()
+    # reference: split the exact vector by the twice_sz of the left block and take numpy SVDs block by block
     twice_sz = np.array([1, -1])  # basis order of spin-1/2: up, down
     left_q = sum(np.meshgrid(*([twice_sz] * bond), indexing="ij")).reshape(-1)
     mat = vec.reshape(2**bond, -1)
@@ -182,10 +182,10 @@ def test_local_expectations_match_exact_engine(heisenberg_ground):
     got = local_expectations(psi, "Sz")
     expected = exact.local_expectations(ref, model, "Sz")  # our exact engine (reference)
     assert np.allclose(got, expected, atol=1e-8)
-    assert np.sum(got) == pytest.approx(1.0, abs=1e-10)  # total Sz of the sector 2Sz = 2
-    with pytest.raises(OperatorError, match="changes 2Sz by \\+2 and leaves the sector"):
+    assert np.sum(got) == pytest.approx(1.0, abs=1e-10)  # total Sz of the sector twice_sz = 2
+    with pytest.raises(OperatorError, match="changes twice_sz by \\+2 and leaves the sector"):
         local_expectations(psi, "Sp")
-    with pytest.raises(OperatorError, match="mixes different changes of the conserved charge 2Sz"):
+    with pytest.raises(OperatorError, match="mixes different changes of the conserved charge twice_sz"):
         local_expectations(psi, "Sx")
 
 
@@ -252,8 +252,8 @@ def test_bad_requests_raise_our_errors():
     ham = _model("heisenberg").hamiltonian
     with pytest.raises(NetprobeError, match="bond_dimension=0 must be an integer of at least 1"):
         random_state(ham, bond_dimension=0)
-    with pytest.raises(SectorError, match="sector 2Sz = 1 has no states on 8 sites"):
-        random_state(ham.with_sector({"2Sz": 1}))
+    with pytest.raises(SectorError, match="sector twice_sz = 1 has no states on 8 sites"):
+        random_state(ham.with_sector({"twice_sz": 1}))
     psi = random_state(ham, rng=1)
     with pytest.raises(NetprobeError, match="bond 8 outside 1..7"):
         entanglement_spectrum(psi, 8)

@@ -9,10 +9,10 @@ from scipy.stats import unitary_group
 
 from netprobe import probes, rdm
 from netprobe.errors import LatticeError, MemoryBudgetError, NetprobeError
-from netprobe.exact import full_vector, ground_state
-from netprobe.mps import random_state
-from netprobe.sites import site_space
-from netprobe.spec import load_model
+from netprobe.engines.exact import full_vector, ground_state
+from netprobe.engines.mps import random_state
+from netprobe.model.sites import site_space
+from netprobe.model.spec import load_model
 
 from conftest import tol
 from test_rdm import filled_projector, single_particle_matrix, slater_vector

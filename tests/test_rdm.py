@@ -12,10 +12,10 @@ from netprobe.rdm import split as split_route
 from netprobe.rdm import tables as rdm_tables
 from netprobe.rdm import zipper as zipper_route
 from netprobe.errors import LatticeError, MemoryBudgetError, NetprobeError, SectorError
-from netprobe.exact import correlation, full_vector, ground_state, hamiltonian_matrix, sector_basis
-from netprobe.mps import random_state
-from netprobe.sites import site_space
-from netprobe.spec import load_model
+from netprobe.engines.exact import correlation, full_vector, ground_state, hamiltonian_matrix, sector_basis
+from netprobe.engines.mps import random_state
+from netprobe.model.sites import site_space
+from netprobe.model.spec import load_model
 
 from conftest import tol
 
@@ -88,7 +88,7 @@ def single_particle_matrix(model):
     states = basis.states()
     occupied = np.argmax(states > 0, axis=1)
     local = states[np.arange(len(states)), occupied]
-    # mode index: site * modes per site + orbital (electron: up = state 1, down = state 2)
+    # mode index: site * modes per site + orbital (spinful_fermion: up = state 1, down = state 2)
     per_site = 1 if model.space.dim == 2 else 2
     mode = occupied * per_site + (local - 1 if per_site == 2 else 0)
     h = np.zeros((len(mode), len(mode)), dtype=complex)
@@ -127,7 +127,7 @@ def haldane_free():
 
 
 @pytest.fixture(scope="module")
-def chern_electron():
+def chern_spinful_fermion():
     # a twist of 0.3 lifts the zero-mode degeneracy of the 3 x 2 cylinder at m = 1
     model = load_model("chern_square", {"length": "3", "circumference": "2", "m": "1.0", "twist": "0.3"})
     return model, full_vector(ground_state(model.hamiltonian))
@@ -143,9 +143,9 @@ def _random_spin_vector(rng, n=9):
     return psi / np.linalg.norm(psi)
 
 
-@pytest.mark.parametrize("case", ["random-spin", "kagome", "haldane", "chern-electron"])
+@pytest.mark.parametrize("case", ["random-spin", "kagome", "haldane", "chern-spinful_fermion"])
 def test_rho_is_a_density_matrix_and_pure_state_entropies_match(case, rng, kagome, haldane_interacting,
-                                                                 chern_electron):
+                                                                 chern_spinful_fermion):
     if case == "random-spin":
         psi, space, sets = _random_spin_vector(rng), SPIN, [[0, 3, 5], [1, 2, 8]]
     elif case == "kagome":
@@ -155,7 +155,7 @@ def test_rho_is_a_density_matrix_and_pure_state_entropies_match(case, rng, kagom
         model, _, psi = haldane_interacting
         space, sets = model.space, [[0, 3, 5], [1, 4, 6, 9, 10]]
     else:
-        (model, psi), sets = chern_electron, [[0, 2, 5], [1, 4]]
+        (model, psi), sets = chern_spinful_fermion, [[0, 2, 5], [1, 4]]
         space = model.space
     n = round(np.log(psi.size) / np.log(space.dim))
     for sites in sets:
@@ -232,8 +232,8 @@ def test_noninteracting_haldane_entropies_equal_free_fermion_values(haldane_free
     assert abs(s - peschel_entropy(g, sites)) < LANCZOS_TOL
 
 
-def test_electron_sites_follow_the_mode_order_up_then_down(chern_electron):
-    model, psi = chern_electron
+def test_spinful_fermion_sites_follow_the_mode_order_up_then_down(chern_spinful_fermion):
+    model, psi = chern_spinful_fermion
     g = filled_projector(single_particle_matrix(model), model.num_sites)
     for sites in ([0, 2, 5], [1, 4], [0, 3]):
         s = entropy(rdm.reduced_density_matrix(psi, sites, model.space))
@@ -348,10 +348,10 @@ def test_split_route_gives_the_fermionic_rho_of_a_free_fermion_ground_state():
     # A DMRG ground state of free fermions (V = 0) on 8 sites, exact at bond dimension 16; the split
     # route with parity strings against the correlation-matrix entropy (Peschel, J. Phys. A 36, L205
     # (2003)), which the spin-basis partial trace misses for interleaved sets (design notes, section 6)
-    from netprobe.dmrg import SweepSettings, find_ground_state
+    from netprobe.engines.dmrg import SweepSettings, find_ground_state
 
     model = load_model("haldane", {"length": "2", "circumference": "2", "V": "0.0", "phi": "pi/2"})
-    result = find_ground_state(model, SweepSettings(bond_dimension=16, max_sweeps=8), seed=3, progress=None)
+    result = find_ground_state(model, SweepSettings(bond_dimension=16, sweep_limit=8), seed=3, progress=None)
     g = filled_projector(single_particle_matrix(model), model.num_sites // 2)
     psi = result.state.to_vector()
     for sites in ([0, 3, 5], [1, 2, 6], [0, 2, 4, 7]):
@@ -423,10 +423,10 @@ def test_split_walks_stay_within_their_estimate():
 
 
 def test_dmrg_ground_state_rdm_matches_exact_engine():
-    from netprobe.dmrg import SweepSettings, find_ground_state
+    from netprobe.engines.dmrg import SweepSettings, find_ground_state
 
     model = load_model("haldane", {"length": "2", "circumference": "2", "V": "1.0"})
-    result = find_ground_state(model, SweepSettings(bond_dimension=16, max_sweeps=8), seed=3, progress=None)
+    result = find_ground_state(model, SweepSettings(bond_dimension=16, sweep_limit=8), seed=3, progress=None)
     exact = full_vector(ground_state(model.hamiltonian))
     for sites in ([0, 3, 5], [1, 2, 6]):
         s_mps = entropy(rdm.reduced_density_matrix(result.state, sites, model.space))
@@ -437,7 +437,7 @@ def test_dmrg_ground_state_rdm_matches_exact_engine():
 
 def mps_without_charges(psi, space):
     """An MPS with the trivial charge rule, by successive numpy SVDs of the vector (common practice)."""
-    from netprobe.mps import MPS, SiteBasis
+    from netprobe.engines.mps import MPS, SiteBasis
     from netprobe.tensor import BlockTensor, Leg
 
     basis = SiteBasis.from_space(space, ())
@@ -468,7 +468,7 @@ def test_fermion_mps_without_particle_number_uses_the_zipper_and_checks_parity(h
         # one state through two routes, rounding only (common practice)
         assert np.allclose(rho, rdm.reduced_density_matrix(psi, sites, model.space), atol=1e-12)
     assert rdm.reduced_root(state, [0, 3, 5], model.space).route == "mps-zipper"
-    with pytest.raises(NetprobeError, match="use method='zipper' or conserve N"):
+    with pytest.raises(NetprobeError, match="use method='zipper' or conserved N"):
         rdm.reduced_root(state, [0, 3, 5], model.space, method="root")
     mixed = psi + rng.standard_normal(psi.size) * 0.1
     with pytest.raises(SectorError, match="mixes fermion parities"):

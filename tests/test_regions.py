@@ -10,8 +10,8 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from netprobe.errors import LatticeError
-from netprobe.lattice import build_lattice
-from netprobe.plots import plot_layout
+from netprobe.model.lattice import build_lattice
+from netprobe.output.plots import plot_layout
 from netprobe.regions import (
     LAYOUTS,
     SYNTAX,
@@ -28,7 +28,7 @@ from netprobe.regions import (
     shielded,
     strips,
 )
-from netprobe.spec import load_model
+from netprobe.model.spec import load_model
 
 # Lattices large enough for every example below: circumference length 8 to 8.7, x range 11 to 13.
 SIZES = {"square": (12, 8), "triangular": (14, 8), "honeycomb": (9, 5), "kagome": (8, 4), "toric": (12, 8)}

@@ -15,11 +15,11 @@ import h5py
 import numpy as np
 import pytest
 
-from netprobe.dmrg import LadderSettings, SweepSettings, run_ladder
+from netprobe.engines.dmrg import LadderSettings, SweepSettings, run_ladder
 from netprobe.errors import StateFileError
-from netprobe.mps import random_state
-from netprobe.spec import load_model, models_directory
-from netprobe import store
+from netprobe.engines.mps import random_state
+from netprobe.model.spec import load_model, models_directory
+from netprobe.engines.mps import store
 
 _MEMORY_LIMIT = 3 * 2**30  # address space per CLI run: far above a small run, far below a runaway one
 _TIMEOUT = 60  # seconds; every refusal here comes before any large computation
@@ -260,7 +260,7 @@ def test_version_1_files_without_checksums_stay_readable(saved_file, tmp_path, m
 ])
 def test_malformed_checkpoint_entries_are_named(tmp_path, info_change, match):
     model = load_model("tfim", OVERRIDES)
-    settings = LadderSettings(bond_dimensions=(2, 4), sweeps=SweepSettings(max_sweeps=2))
+    settings = LadderSettings(bond_dimensions=(2, 4), sweeps=SweepSettings(sweep_limit=2))
     out = tmp_path / "run"
     run_ladder(model, settings, overrides=OVERRIDES, seed=0, out=out, progress=None)
     ckpt = out / "checkpoint.h5"

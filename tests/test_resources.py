@@ -6,7 +6,7 @@ import pytest
 
 from netprobe import rdm, resources
 from netprobe.errors import MemoryBudgetError
-from netprobe.exact import ExactOptions
+from netprobe.engines.exact import ExactOptions
 
 
 def test_default_budget_is_half_the_physical_memory():

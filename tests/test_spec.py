@@ -5,21 +5,21 @@ import pytest
 from conftest import dense_from_products, tol
 
 from netprobe.errors import LatticeError, NetprobeError, OperatorError, SectorError, SpecError
-from netprobe.mpo import build_mpo
-from netprobe.spec import build_model, list_models, load_model, parse_spec
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.model.spec import build_model, list_models, load_model, parse_spec
 
 BASE = """
 [model]
 name = "probe"
 site = "spin-1/2"
-conserve = ["2Sz"]
+conserved = ["twice_sz"]
 [parameters]
 lattice = "chain"
 length = 4
 circumference = 1
 J = 1.0
 [sector]
-2Sz = 0
+twice_sz = 0
 [[term]]
 on = "nn"
 ops = "0.5*Sp Sm + 0.5*Sm Sp + Sz Sz"
@@ -85,13 +85,13 @@ def test_haldane_phase_is_on_the_oriented_bonds():
         (('ops = "0.5*Sp Sm + 0.5*Sm Sp + Sz Sz"', 'ops = "Sq Sm"'), OperatorError, "unknown operator 'Sq'"),
         (('on = "nn"', 'on = "nnnn"'), LatticeError, "no bond family 'nnnn'"),
         (("length = 4", "length = 0"), SpecError, "length must be a positive integer"),
-        (("2Sz = 0", "2Sz = 10"), SpecError, "sector 2Sz = 10 has no states"),
+        (("twice_sz = 0", "twice_sz = 10"), SpecError, "sector twice_sz = 10 has no states"),
         (('coupling = "J"', 'coupling = "K"'), SpecError, "unknown name"),
         (('coupling = "J"', 'coupling = "J +"'), SpecError, "coupling"),
         (("[[term]]", "[[term]]\nstrength = 2"), SpecError, "unknown key 'strength'"),
         (('site = "spin-1/2"', 'site = "spin-7"'), SpecError, "unknown site space 'spin-7'"),
-        (('conserve = ["2Sz"]\n[parameters]', 'conserve = ["N"]\n[parameters]'), SpecError,
-         "names charge '2Sz' that is not conserved"),
+        (('conserved = ["twice_sz"]\n[parameters]', 'conserved = ["N"]\n[parameters]'), SpecError,
+         "names charge 'twice_sz' that is not conserved"),
         (('ops = "0.5*Sp Sm + 0.5*Sm Sp + Sz Sz"', 'ops = "Sz Sz Sz"'), SpecError, "3 operators for bonds"),
         (("[model]", "[modle]\n[model]"), SpecError, "unknown key 'modle'"),
         (("length = 4", "length = 4\nlength = 5"), SpecError, "not valid TOML"),

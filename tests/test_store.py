@@ -13,10 +13,10 @@ import pytest
 from conftest import tol
 
 from netprobe.errors import NetprobeError, StateFileError
-from netprobe.mpo import build_mpo
-from netprobe.mps import expectation_value, overlap, random_state
-from netprobe.spec import load_model
-from netprobe.store import (FORMAT_NAME, FORMAT_VERSION, atomic_file, load_state, remove_stale_temporaries,
+from netprobe.engines.mps.mpo import build_mpo
+from netprobe.engines.mps import expectation_value, overlap, random_state
+from netprobe.model.spec import load_model
+from netprobe.engines.mps.store import (FORMAT_NAME, FORMAT_VERSION, atomic_file, load_state, remove_stale_temporaries,
                             save_state)
 
 OVERRIDES = {"length": "2", "circumference": "2", "V": "1.0"}
@@ -121,3 +121,28 @@ def test_damaged_file_is_refused(tmp_path, model):
         load_state(path)
     with pytest.raises(NetprobeError, match="folder .* does not exist"):
         save_state(tmp_path / "no" / "where.h5", random_state(model.hamiltonian, rng=1))
+
+
+def test_layout_version_2_names_are_read_and_translated(tmp_path):
+    # Version 2 files name the charge list "conserve", the label "2Sz" and the space "electron"; their stored
+    # model text uses the same old names. Rewrite a fresh file to those names and read it back.
+    hubbard = load_model("hubbard", {"length": "2"})
+    psi = random_state(hubbard.hamiltonian, bond_dimension=4, rng=5)
+    path = save_state(tmp_path / "old.h5", psi, model_text=hubbard.spec.text, overrides={"length": "2"})
+    old_text = (hubbard.spec.text.replace("conserved =", "conserve =").replace("twice_sz", "2Sz")
+                .replace('"spinful_fermion"', '"electron"').replace("n_pair", "n_updn"))
+    assert "conserved" not in old_text and "twice_sz" not in old_text
+    with h5py.File(path, "r+") as f:
+        f.attrs["format_version"] = 2
+        f.attrs["model_text"] = old_text
+        f["mps"].attrs["site_space"] = "electron"
+        f["mps"].attrs["conserve"] = json.dumps(["N", "2Sz"])
+        del f["mps"].attrs["conserved"]
+    saved = load_state(path)
+    assert saved.format_version == 2
+    assert saved.state.basis.space.name == "spinful_fermion"
+    assert tuple(saved.state.basis.conserved) == ("N", "twice_sz")
+    assert saved.model_text == hubbard.spec.text
+    # the same state: overlap 1 up to rounding of the stored numbers (common practice)
+    norm = abs(overlap(psi, psi))
+    assert abs(overlap(saved.state, psi)) == pytest.approx(norm, abs=tol(norm))

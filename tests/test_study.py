@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from netprobe.errors import SpecError
-from netprobe.study.description import parse_study
+from netprobe.study.reading import parse_study
 from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.report import steepest_change
 from netprobe.study.verdicts import inverse_bond_fit, point_verdict
@@ -26,7 +26,7 @@ from netprobe.study.verdicts import inverse_bond_fit, point_verdict
 _CLI = """
 import argparse, sys
 import netprobe.cli as cli
-from netprobe.study.commands import add_report_parser, add_study_parser
+from netprobe.cli.study import add_report_parser, add_study_parser
 _build = cli.build_parser
 def _parser():
     parser = _build()
@@ -169,9 +169,9 @@ def test_description_dmrg_needs_an_increasing_ladder():
         _parse("[grid]\nh = { values = [1.0] }", engine="dmrg")
     with pytest.raises(SpecError, match="must increase"):
         _parse("[grid]\nh = { values = [1.0] }\n[ladder]\nbond_dimensions = [16, 8]", engine="dmrg")
-    with pytest.raises(SpecError, match="max_sweeps"):
+    with pytest.raises(SpecError, match="sweep_limit"):
         _parse(
-            "[grid]\nh = { values = [1.0] }\n[ladder]\nbond_dimensions = [8]\nmax_sweeps = 0", engine="dmrg"
+            "[grid]\nh = { values = [1.0] }\n[ladder]\nbond_dimensions = [8]\nsweep_limit = 0", engine="dmrg"
         )
 
 

@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 from test_study import TFIM_EXACT, netprobe_cli, netprobe_popen, pfeuty_chain, write_study
 
-from netprobe.spec import load_model
-from netprobe.store import load_state
+from netprobe.model.spec import load_model
+from netprobe.engines.mps.store import load_state
 from netprobe.study import build_report, load_study, parse_study, run_study, write_report
 from netprobe.study.executors import DaskExecutor, LocalExecutor
 from netprobe.study.ledger import Ledger, ledger_path

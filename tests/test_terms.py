@@ -12,10 +12,10 @@ import pytest
 from conftest import dense_from_products, kron_all, tol
 
 from netprobe.errors import HermiticityError, OperatorError, SpecError
-from netprobe.lattice import build_lattice
-from netprobe.sites import SITE_SPACES, site_space
-from netprobe.spec import load_model, parse_spec, build_model
-from netprobe.terms import Hamiltonian, Term, normal_form
+from netprobe.model.lattice import build_lattice
+from netprobe.model.sites import SITE_SPACES, site_space
+from netprobe.model.spec import load_model, parse_spec, build_model
+from netprobe.model.terms import Hamiltonian, Term, normal_form
 
 
 def physical_operator(space, n, site, name):
@@ -38,7 +38,7 @@ def dense_of(prod, n, d):
     return prod.coefficient * kron_all(ops)
 
 
-@pytest.mark.parametrize("space_name", ["fermion", "electron"])
+@pytest.mark.parametrize("space_name", ["fermion", "spinful_fermion"])
 def test_fermion_products_match_jordan_wigner_definition(space_name, rng):
     space = site_space(space_name)
     n = 4
@@ -101,7 +101,7 @@ def test_non_hermitian_model_names_the_term():
 [model]
 name = "broken"
 site = "fermion"
-conserve = ["N"]
+conserved = ["N"]
 [parameters]
 lattice = "chain"
 length = 4
@@ -126,5 +126,5 @@ def test_site_space_algebra(name):
         sp, sm, sz = (space.operator(k) for k in ("Sp", "Sm", "Sz"))
         # [S+, S-] = 2 Sz (angular momentum algebra, common practice)
         assert np.allclose(sp @ sm - sm @ sp, 2 * sz, atol=tol())
-    if "F" in space.operators:
-        assert np.allclose(space.operator("F"), space.string_operator)
+    if "parity" in space.operators:
+        assert np.allclose(space.operator("parity"), space.string_operator)

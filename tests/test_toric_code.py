@@ -19,11 +19,11 @@ import math
 import numpy as np
 import pytest
 
-from netprobe.dmrg import SweepSettings, find_ground_state
-from netprobe.mps import MPS
+from netprobe.engines.dmrg import SweepSettings, find_ground_state
+from netprobe.engines.mps import MPS
 from netprobe.probes import levin_wen_gamma, measure_probes
 from netprobe.regions import parse_region
-from netprobe.spec import load_model
+from netprobe.model.spec import load_model
 from netprobe.tensor import BlockTensor
 
 LN2 = math.log(2.0)
@@ -53,7 +53,7 @@ def toric():
     # 32 is the largest Schmidt rank across a column cut of this cylinder (stabilizer count), so no
     # truncation; the tight local solve keeps rounding-level Schmidt values near 1e-14, below the
     # square-root zipper's cutoff, so its compressed leg stays as narrow as the true ranks
-    settings = SweepSettings(bond_dimension=32, max_sweeps=10, solver_tolerance=1e-14)
+    settings = SweepSettings(bond_dimension=32, sweep_limit=10, solver_tolerance=1e-14)
     best = None
     # a start can settle with one star or plaquette violated (one anyon, E0 + 2); keeping the
     # lowest of a few seeded starts is common practice against such local minima

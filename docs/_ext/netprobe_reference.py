@@ -48,7 +48,7 @@ MODEL_KEY_TEXT = {
     "name": "required; the model's name",
     "description": "one line, shown by ``netprobe models``",
     "site": "a registered site space (see below)",
-    "conserve": "list of conserved charges used to block the problem (may be empty)",
+    "conserved": "list of conserved charges used to block the problem (may be empty)",
     "source": "free text: where the model was published (shown by ``netprobe check``)",
 }
 TERM_KEY_TEXT = {

@@ -1,16 +1,16 @@
 """One registry of ground-state engines and the protocol they satisfy.
 
-Every engine turns a :class:`~netprobe.spec.Model` into one or more :class:`GroundState` objects,
+Every engine turns a :class:`~netprobe.model.spec.Model` into one or more :class:`GroundState` objects,
 handed to a ``visit`` callable as soon as each exists (a DMRG ladder hands over every rung in memory,
 the exact and free-fermion engines one state). Whatever comes after (probes, cut diagnostics, studies,
 assessment) only sees :class:`GroundState`, whose ``kind`` tells the probes which implementation
 applies:
 
 ``"many-body"``
-    a state vector (:class:`~netprobe.exact.ExactResult`) or an MPS; reduced density matrices through
+    a state vector (:class:`~netprobe.engines.exact.ExactResult`) or an MPS; reduced density matrices through
     :mod:`netprobe.rdm`.
 ``"gaussian"``
-    a free-fermion or Majorana state (:mod:`netprobe.gaussian`); probes from correlation matrices.
+    a free-fermion or Majorana state (:mod:`netprobe.engines.gaussian`); probes from correlation matrices.
 
 Engines (:data:`ENGINES`)
     ``exact``     exact diagonalisation in the model's charge sector.
@@ -24,11 +24,11 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Callable, Mapping, Protocol
 
-from netprobe.dmrg import LadderSettings, SweepSettings, run_ladder
+from netprobe.engines.dmrg import LadderSettings, SweepSettings, run_ladder
+from netprobe.engines.exact import ground_state as exact_ground_state
+from netprobe.engines.gaussian import gaussian_state
 from netprobe.errors import GaussianStateError, NetprobeError
-from netprobe.exact import ground_state as exact_ground_state
-from netprobe.gaussian import gaussian_state
-from netprobe.spec import build_model
+from netprobe.model.spec import build_model
 
 __all__ = ["GroundState", "SolveSettings", "Engine", "ENGINES", "get_engine", "solve", "ground_state"]
 
@@ -45,7 +45,7 @@ class GroundState:
     state : object
         ``ExactResult``, ``MPS``, ``FreeFermionState`` or ``MajoranaState``.
     energy : float
-    model : netprobe.spec.Model
+    model : netprobe.model.spec.Model
     bond_dimension : int or None
         The rung of a DMRG ladder.
     discarded_weight : float or None
@@ -113,7 +113,7 @@ class Engine(Protocol):
 
 
 class ExactEngine:
-    """Exact diagonalisation in the model's sector (:func:`netprobe.exact.ground_state`)."""
+    """Exact diagonalisation in the model's sector (:func:`netprobe.engines.exact.ground_state`)."""
 
     name = "exact"
 
@@ -126,7 +126,7 @@ class ExactEngine:
 
 
 class GaussianEngine:
-    """Free fermions (:func:`netprobe.gaussian.gaussian_state`); quadratic models only."""
+    """Free fermions (:func:`netprobe.engines.gaussian.gaussian_state`); quadratic models only."""
 
     name = "gaussian"
 
@@ -170,8 +170,8 @@ def _twisted(model, settings, err):
     return build_model(model.spec, overrides), note
 
 
-class DmrgEngine:
-    """A DMRG ladder (:func:`netprobe.dmrg.run_ladder`); every rung is handed over in memory."""
+class LadderEngine:
+    """A DMRG ladder (:func:`netprobe.engines.dmrg.run_ladder`); every rung is handed over in memory."""
 
     name = "dmrg"
 
@@ -194,7 +194,7 @@ class DmrgEngine:
         return ladder.to_dict()
 
 
-ENGINES: dict[str, Engine] = {e.name: e for e in (DmrgEngine(), ExactEngine(), GaussianEngine())}
+ENGINES: dict[str, Engine] = {e.name: e for e in (LadderEngine(), ExactEngine(), GaussianEngine())}
 """The engines by name."""
 
 

@@ -5,7 +5,7 @@ both limits and shows them:
 
 1. bond dimension: at every region, J and gamma on every rung of the DMRG ladder, extrapolated
    linearly in 1/D (:func:`netprobe.fitting.extrapolate_to_zero`); other engines are exact in D;
-2. region size: a region ladder (:func:`netprobe.region_ladders.region_ladder`: several placements
+2. region size: a region ladder (:func:`netprobe.regions.ladders.region_ladder`: several placements
    per site count), the mean over placements per size, extrapolated to R -> infinity in two forms
    (exponential and power law in the linear size R, :func:`netprobe.fitting.extrapolate_in_size`);
 3. the certificate: the CMI of shielded layouts against the width w of the shield, fitted to
@@ -32,13 +32,13 @@ from typing import Any, Sequence
 import numpy as np
 
 from netprobe.engines import GroundState, SolveSettings, solve
-from netprobe.errors import LatticeError, MemoryBudgetError, NetprobeError
+from netprobe.errors import MemoryBudgetError
 from netprobe.fitting import Fit, extrapolate_in_size, extrapolate_to_zero, least_squares_line
 from netprobe.pipeline.measure import measure
 from netprobe.probes import DEFAULT_EPS, c_minus_from_j
 from netprobe.rdm import estimate_rdm_memory
 from netprobe.resources import default_memory_budget
-from netprobe.region_ladders import RegionRung, linear_size, markov_series, region_ladder
+from netprobe.regions.ladders import RegionRung, linear_size, markov_series, region_ladder
 
 __all__ = ["CERTIFY_MULTIPLE", "GAMMA_CANDIDATES", "SizeEntry", "Assessment", "assess_model", "assess_states"]
 

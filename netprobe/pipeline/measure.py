@@ -7,7 +7,7 @@ A probe name (:data:`PROBES`) says what is measured on a region layout; the kind
     one reduced state of the parts A, B, C (:func:`netprobe.probes.measure_probes`), shared by every
     probe asked for;
 ``gaussian``
-    correlation matrices and Majorana covariances (:mod:`netprobe.gaussian`).
+    correlation matrices and Majorana covariances (:mod:`netprobe.engines.gaussian`).
 
 :func:`measure` returns a :class:`Measurement`; c- and gamma are derived in one place
 (:func:`netprobe.probes.c_minus_from_j`, the Kitaev-Preskill sign).
@@ -22,8 +22,8 @@ from typing import Mapping, Sequence
 import numpy as np
 
 from netprobe.errors import LatticeError, NetprobeError
-from netprobe.exact import local_expectations as exact_local_expectations
-from netprobe.mps import local_expectations as mps_local_expectations
+from netprobe.engines.exact import local_expectations as exact_local_expectations
+from netprobe.engines.mps import local_expectations as mps_local_expectations
 from netprobe.probes import DEFAULT_EPS, c_minus_from_j, measure_probes
 
 __all__ = ["PROBES", "Measurement", "measure", "check_probes", "local_means"]

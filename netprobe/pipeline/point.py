@@ -25,7 +25,7 @@ from netprobe.errors import LatticeError
 from netprobe.pipeline.measure import PROBES, Measurement, check_probes, measure
 from netprobe.probes import DEFAULT_EPS
 from netprobe.regions import Layout, build_layout, parse_region
-from netprobe.store import load_state
+from netprobe.engines.mps.store import load_state
 
 __all__ = ["RegionPlan", "Rung", "ProbeResult", "expand_region", "probe_model", "probe_ground_state",
            "probe_saved_state"]
@@ -100,7 +100,7 @@ class ProbeResult:
 
     Attributes
     ----------
-    model : netprobe.spec.Model
+    model : netprobe.model.spec.Model
     engine : str
     plan : RegionPlan
     rungs : list of Rung
@@ -169,7 +169,7 @@ def probe_model(model, region: str | Layout, *, engine: str = "dmrg", probes: Se
 
     Parameters
     ----------
-    model : netprobe.spec.Model
+    model : netprobe.model.spec.Model
     region : str or Layout
     engine : {"dmrg", "exact", "gaussian"}
     probes : sequence of str

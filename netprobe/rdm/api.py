@@ -8,7 +8,7 @@ from netprobe.rdm.blocked import blocks_probe_estimate
 from netprobe.rdm.common import BlockedRho, GradedRoot, as_pure_state
 from netprobe.rdm.routes import _checked_sites, dispatch, route_estimate
 from netprobe.rdm.split import block_sizes
-from netprobe.sites import SiteSpace
+from netprobe.model.sites import SiteSpace
 
 __all__ = [
     "reduced_root",
@@ -29,8 +29,8 @@ def reduced_root(state, sites, space: SiteSpace, *, method: str = "auto",
     ----------
     state : ndarray, shape (d**N,), ExactResult or MPS
         A pure state: a vector in the full space (site 0 most significant, as
-        :func:`netprobe.exact.full_vector` returns it), an exact-engine result (its ground state), or a
-        :class:`netprobe.mps.MPS`.
+        :func:`netprobe.engines.exact.full_vector` returns it), an exact-engine result (its ground state), or a
+        :class:`netprobe.engines.mps.MPS`.
     sites : sequence of int
         MPS indices of the set S (any order, any gaps; listed back in MPS order).
     space : SiteSpace
@@ -86,7 +86,7 @@ def reduced_density_matrix(state, sites, space: SiteSpace, *, method: str = "aut
     Examples
     --------
     >>> import numpy as np
-    >>> from netprobe.sites import site_space
+    >>> from netprobe.model.sites import site_space
     >>> bell = np.array([0, 1, -1, 0]) / np.sqrt(2)
     >>> np.round(reduced_density_matrix(bell, [0], site_space("spin-1/2")), 3).tolist()
     [[0.5, 0.0], [0.0, 0.5]]

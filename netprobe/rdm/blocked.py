@@ -26,7 +26,7 @@ import scipy.linalg
 
 from netprobe.rdm.common import BlockedRho, _code_tables, _config_parity, permutation_sign
 from netprobe.rdm.parts import check_parts
-from netprobe.sites import SiteSpace
+from netprobe.model.sites import SiteSpace
 
 __all__ = ["PartBlocks", "SubsetBlocks", "part_blocks", "subset_rho", "prefix_suffix_trace", "blocks_probe_estimate"]
 
@@ -41,7 +41,7 @@ class PartBlocks:
     sites : tuple of tuple of int
         Sites of each part, in MPS order inside the part.
     space : SiteSpace
-    conserve : tuple of str
+    conserved : tuple of str
         The conserved charges that grade the blocks (the parity is added for fermions).
     blocks : tuple of (ndarray, ndarray)
         Per charge block: the configuration code of every part for each row, shape ``(n, parts)``,
@@ -52,7 +52,7 @@ class PartBlocks:
     names: tuple[str, ...]
     sites: tuple[tuple[int, ...], ...]
     space: SiteSpace = field(repr=False)
-    conserve: tuple[str, ...]
+    conserved: tuple[str, ...]
     blocks: tuple = field(repr=False)
     route: str = "mps-split"
 
@@ -149,8 +149,8 @@ def part_blocks(rho: BlockedRho, parts: Mapping[str, Sequence[int]]) -> PartBloc
             mat *= s[:, None]
             mat *= s[None, :]
         blocks.append((codes, mat))
-    conserve = tuple(n for n in rho.grading if not (space.fermionic and n == "parity"))
-    return PartBlocks(names, tuple(lists), space, conserve, tuple(blocks), rho.route)
+    conserved = tuple(n for n in rho.grading if not (space.fermionic and n == "parity"))
+    return PartBlocks(names, tuple(lists), space, conserved, tuple(blocks), rho.route)
 
 
 def _combine(codes: np.ndarray, which: Sequence[int], sizes: Sequence[int], d: int) -> np.ndarray:
@@ -163,7 +163,7 @@ def _combine(codes: np.ndarray, which: Sequence[int], sizes: Sequence[int], d: i
 
 def _subset_tables(pb: PartBlocks, keep: Sequence[int]):
     k = sum(pb.sizes[i] for i in keep)
-    _, _, block_of, position, members = _code_tables(pb.space, pb.conserve, k)
+    _, _, block_of, position, members = _code_tables(pb.space, pb.conserved, k)
     return block_of, position, members
 
 

@@ -11,9 +11,10 @@ import numpy as np
 import scipy.linalg
 
 from netprobe.errors import LatticeError, NetprobeError
-from netprobe.mps import MPS
-from netprobe.sites import SiteSpace
+from netprobe.engines.mps import MPS
+from netprobe.model.sites import SiteSpace
 from netprobe.tensor import BlockTensor
+from netprobe.engines.exact import full_vector  # the exact engine loads numba: only when needed
 
 __all__ = [
     "RootBlock",
@@ -254,7 +255,7 @@ def _check_sites(sites, num_sites: int, where: str) -> tuple[int, ...]:
 
 
 def as_pure_state(state):
-    """The state as a dense vector or an MPS: a :class:`netprobe.exact.ExactResult` becomes its full vector.
+    """The state as a dense vector or an MPS: a :class:`netprobe.engines.exact.ExactResult` becomes its full vector.
 
     Raises
     ------
@@ -264,8 +265,6 @@ def as_pure_state(state):
     if isinstance(state, (np.ndarray, MPS)):
         return state
     if type(state).__name__ == "ExactResult":
-        from netprobe.exact import full_vector  # the exact engine loads numba: only when needed
-
         return full_vector(state)
     raise NetprobeError(
         f"expected a state vector (numpy array in the full d**N space), an exact-engine result or an MPS, "
@@ -326,8 +325,8 @@ def _config_labels(local: np.ndarray, moduli, m: int) -> np.ndarray:
     return _labels(sums, moduli)
 
 
-def _root_from_rho(rho: np.ndarray, space: SiteSpace, sites, conserve, route: str) -> GradedRoot:
-    names, local, moduli = _grading_of(space, conserve)
+def _root_from_rho(rho: np.ndarray, space: SiteSpace, sites, conserved, route: str) -> GradedRoot:
+    names, local, moduli = _grading_of(space, conserved)
     labels = _config_labels(local, moduli, len(sites))
     uniq, inverse = (np.unique(labels, axis=0, return_inverse=True) if labels.shape[1]
                      else (np.zeros((1, 0), np.int64), np.zeros(rho.shape[0], np.int64)))
@@ -342,9 +341,9 @@ def _root_from_rho(rho: np.ndarray, space: SiteSpace, sites, conserve, route: st
     return GradedRoot(tuple(sites), space, names, local, moduli, tuple(blocks), route)
 
 
-def _code_tables(space, conserve, m: int):
+def _code_tables(space, conserved, m: int):
     """Grading labels, the block of every configuration code and its position inside the block."""
-    names, local, moduli = _grading_of(space, conserve)
+    names, local, moduli = _grading_of(space, conserved)
     labels = _config_labels(local, moduli, m)
     if labels.shape[1]:
         uniq, inverse = np.unique(labels, axis=0, return_inverse=True)

@@ -11,7 +11,7 @@ from netprobe.rdm.common import (
     GradedRoot, PartRoot, _check_sites, _config_labels, _config_parity, permutation_sign,
 )
 from netprobe.rdm.tables import _sector_parity
-from netprobe.sites import SiteSpace
+from netprobe.model.sites import SiteSpace
 from netprobe.tensor import BlockTensor, ChargeRule, Leg, svd
 
 __all__ = ["check_parts", "reorder_parts", "part_root", "subset_weights"]

@@ -149,7 +149,7 @@ def root_walk(state, sites: tuple[int, ...], budget: int | None = None,
     by_open: dict = {}
     for (ka, ko, ke), blk in y.blocks.items():
         by_open.setdefault(ko, []).append(blk.transpose(1, 0, 2).reshape(blk.shape[1], -1))
-    names, local, moduli = _grading_of(space, basis.conserve)
+    names, local, moduli = _grading_of(space, basis.conserved)
     powers = d ** np.arange(len(sites) - 1, -1, -1, dtype=np.int64)
     # compress every group to its numerical rank with the walk's cutoff, relative to the total weight
     factors = {ko: _rank_columns(np.concatenate(by_open.pop(ko), axis=1)) for ko in sorted(by_open)}

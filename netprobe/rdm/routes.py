@@ -120,7 +120,7 @@ def _zipper_build(state, sites, space, budget, where, output):
     rho = _zipper.zipper_rho(state, sites)
     if output == "dense":
         return rho
-    return _root_from_rho(rho, space, sites, state.basis.conserve, "mps-zipper")
+    return _root_from_rho(rho, space, sites, state.basis.conserved, "mps-zipper")
 
 
 def _split_applies(state, sites, space) -> bool:
@@ -142,7 +142,7 @@ def _split_build(state, sites, space, budget, where, output):
 
 
 _UNGRADED = ("the MPS's conserved charges do not fix the fermion parity of a site, so the {what} cannot place "
-             "the parity strings; use method='zipper' or conserve N")
+             "the parity strings; use method='zipper' or conserved N")
 
 #: The routes by method name.
 ROUTES: dict[str, Route] = {

@@ -147,9 +147,9 @@ def _default_split(sites: tuple[int, ...]) -> int:
     return sites[(len(sites) + 1) // 2] - 1 if len(sites) > 1 else sites[0]
 
 
-def _label_counts(space, conserve, m: int) -> dict:
+def _label_counts(space, conserved, m: int) -> dict:
     """Grading label -> number of configurations of ``m`` sites with it (the block sizes of rho_S)."""
-    _, local, moduli = _grading_of(space, conserve)
+    _, local, moduli = _grading_of(space, conserved)
     if local.shape[1] == 0:
         return {(): space.dim**m}
     out = {tuple([0] * local.shape[1]): 1}
@@ -166,7 +166,7 @@ def _label_counts(space, conserve, m: int) -> dict:
 
 def block_sizes(state, sites: tuple[int, ...]) -> list[int]:
     """Sizes of the charge blocks of ``rho_S`` (configurations of S per grading label)."""
-    return list(_label_counts(state.basis.space, state.basis.conserve, len(sites)).values())
+    return list(_label_counts(state.basis.space, state.basis.conserved, len(sites)).values())
 
 
 def _open_tables(state, count: int) -> dict:
@@ -234,7 +234,7 @@ def _plan(state, sites: tuple[int, ...]):
     right = {hi + 1: identity(t[hi].legs[2])}
     for k in range(hi, lo, -1):
         right[k] = layer(sum(1 for s in sites if s >= k), t[k - 1].legs[2], -1)
-    blocks = _label_counts(basis.space, basis.conserve, len(sites))
+    blocks = _label_counts(basis.space, basis.conserved, len(sites))
     held = float(sum(n * n for n in blocks.values()))
     n_max = float(max(blocks.values()))
     default = _default_split(sites)
@@ -336,7 +336,7 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
     g_right, side_right, k_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o,
                                         sizes_right, -1, sizes_left[m])
     del st, left, right
-    names, local, moduli = _grading_of(space, basis.conserve)
+    names, local, moduli = _grading_of(space, basis.conserved)
     dtype = np.result_type(g_left.dtype, g_right.dtype)
     shift = d**k_right
     # rows of a block of rho: the (left sector, right sector) pairs of one total open charge, one

@@ -13,7 +13,7 @@ import numpy as np
 
 from netprobe.errors import NetprobeError, SectorError
 from netprobe.resources import check_memory_budget
-from netprobe.sites import SiteSpace
+from netprobe.model.sites import SiteSpace
 from netprobe.rdm.common import (
     _CHARGE_TOL, _PARITY_TOL, GradedRoot, RootBlock, _check_sites, _config_labels, _config_sums, _grading_of,
     _vector_sites,

@@ -90,7 +90,7 @@ def check_mps_parity(state, where: str) -> None:
     if 1.0 - abs(value) > _PARITY_TOL:
         raise SectorError(
             f"{where}: the MPS mixes fermion parities (<(-1)^N> = {value:.6f}); a fermionic reduced density "
-            "matrix needs a state of definite parity: conserve N, or project the state"
+            "matrix needs a state of definite parity: conserved N, or project the state"
         )
 
 

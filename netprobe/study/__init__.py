@@ -16,7 +16,8 @@ Results
     phase maps; :func:`build_report`), ``commands`` (``netprobe study`` and ``netprobe report``).
 """
 
-from netprobe.study.description import StudyDescription, load_study, parse_study
+from netprobe.study.description import StudyDescription
+from netprobe.study.reading import load_study, parse_study
 from netprobe.study.executors import DaskExecutor, LocalExecutor, StudyRun, run_study
 from netprobe.study.ledger import Ledger
 from netprobe.study.report import build_report, write_report

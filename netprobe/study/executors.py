@@ -33,6 +33,7 @@ from typing import Callable, Mapping
 from netprobe.errors import StudyError
 from netprobe.study.description import StudyDescription
 from netprobe.study.ledger import STATES_FOLDER, Claim, Ledger, process_alive
+from netprobe.study.tasks import run_task
 
 __all__ = [
     "EXECUTORS",
@@ -80,8 +81,6 @@ class _Finished:
 
 
 def _default_runner():
-    from netprobe.study.tasks import run_task
-
     return run_task
 
 

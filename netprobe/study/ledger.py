@@ -37,7 +37,6 @@ from __future__ import annotations
 import contextlib
 import datetime
 import json
-import math
 import os
 import socket
 import sqlite3
@@ -48,6 +47,7 @@ from pathlib import Path
 from typing import Any, Iterator, Mapping
 
 from netprobe import __version__
+from netprobe.jsonio import encode_json
 from netprobe.errors import StudyError
 from netprobe.study.description import StudyDescription
 
@@ -63,7 +63,6 @@ __all__ = [
     "host_name",
     "process_alive",
     "ledger_path",
-    "encode_json",
 ]
 
 LEDGER_NAME = "study.sqlite"
@@ -193,36 +192,6 @@ class TaskRow:
     seconds: float | None
     result: Mapping[str, Any] | None
     state_file: str | None
-
-
-def _json_default(value):
-    import numpy as np
-
-    if isinstance(value, np.integer):
-        return int(value)
-    if isinstance(value, np.floating):
-        return float(value)
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    if isinstance(value, complex):
-        return [value.real, value.imag]
-    raise TypeError(f"not JSON serialisable: {type(value).__name__}")
-
-
-def _clean(value):
-    """NaN and infinities become None (JSON has no such numbers)."""
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, dict):
-        return {k: _clean(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_clean(v) for v in value]
-    return value
-
-
-def encode_json(value) -> str:
-    """Canonical JSON text of results (NaN becomes null)."""
-    return json.dumps(_clean(json.loads(json.dumps(value, default=_json_default))), sort_keys=True)
 
 
 class Ledger:

@@ -28,7 +28,8 @@ import numpy as np
 
 from netprobe.errors import StudyError
 from netprobe.study.description import StudyDescription
-from netprobe.study.ledger import Ledger, encode_json, ledger_path
+from netprobe.jsonio import encode_json
+from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.verdicts import PointVerdict, point_verdict
 
 __all__ = [

@@ -23,13 +23,13 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from netprobe.dmrg import ConvergenceWarning, SweepSettings
+from netprobe.engines.dmrg import ConvergenceWarning, SweepSettings
 from netprobe.engines import GroundState, SolveSettings, ground_state
 from netprobe.errors import NetprobeError
 from netprobe.pipeline.assess import assess_states
 from netprobe.pipeline.measure import local_means, measure
 from netprobe.regions import parse_region
-from netprobe.store import load_state, save_state
+from netprobe.engines.mps.store import load_state, save_state
 from netprobe.study.description import StudyDescription, StudyPoint
 from netprobe.study.ledger import STATES_FOLDER, Ledger, TaskRow
 

@@ -3,7 +3,7 @@
 For the DMRG engine a point has one task per rung of the ladder. Its verdict holds
 
 - the energy extrapolated to zero discarded weight with an error
-  (:func:`netprobe.dmrg.extrapolate_energy`: a line in the discarded weight);
+  (:func:`netprobe.engines.dmrg.extrapolate_energy`: a line in the discarded weight);
 - for each probe, the value at the largest bond dimension done and an extrapolation linear in 1/D
   (:func:`inverse_bond_fit`), with an error and the fit stated in words;
 - flags: a probe whose last two rungs differ by more than ``change_threshold``, an energy whose last
@@ -24,6 +24,7 @@ import numpy as np
 from netprobe.fitting import Fit, extrapolate_to_zero
 from netprobe.study.description import StudyDescription
 from netprobe.study.ledger import TaskRow
+from netprobe.engines.dmrg import extrapolate_energy
 
 __all__ = ["Fit", "ProbeVerdict", "EnergyVerdict", "PointVerdict", "inverse_bond_fit", "point_verdict"]
 
@@ -176,8 +177,6 @@ def point_verdict(description: StudyDescription, rows: Sequence[TaskRow]) -> Poi
             if not info.get("converged", True):
                 flags.append(f"D={r.bond_dimension}: {info.get('message', 'not converged')}")
         if len(done) >= 2:
-            from netprobe.dmrg import extrapolate_energy
-
             change = energies[-1] - energies[-2]
             flagged = abs(change) > settings.energy_threshold * max(1.0, abs(energies[-1]))
             weights = [float(r.result["dmrg"]["discarded_weight"]) for r in done]

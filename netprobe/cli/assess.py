@@ -1,0 +1,103 @@
+"""``netprobe assess``: c- and gamma with error bars and a verdict."""
+
+from __future__ import annotations
+
+import sys
+
+from netprobe.errors import NetprobeError
+from netprobe.cli.common import _check_png, _emit, _load, _solve_settings
+from netprobe.engines.dmrg.ladder import CHECKPOINT_NAME
+from netprobe.engines import GroundState
+from netprobe.engines.mps.store import load_state
+from netprobe.engines import solve
+from netprobe.pipeline.assess import assess_states
+from netprobe.model.spec import parse_overrides
+from netprobe.output.plots import plot_assessment
+
+__all__ = ["cmd_assess"]
+
+
+def _state_sources(text: str) -> list:
+    from pathlib import Path
+
+    source = Path(text)
+    if source.is_dir():
+        files = sorted((p for p in source.glob("*.h5") if p.name != CHECKPOINT_NAME),
+                       key=lambda p: (len(p.name), p.name))
+        if not files:
+            raise NetprobeError(f"{text}: no state files (*.h5) in this folder; give the --out folder of 'netprobe run'")
+        return files
+    parts = [Path(t) for t in text.split(",") if t]
+    if all(p.suffix in (".h5", ".hdf5") for p in parts):
+        return parts
+    return []
+
+
+def _saved_grounds(files) -> list:
+    grounds = []
+    for path in files:
+        saved = load_state(path)
+        model = saved.model()
+        grounds.append(GroundState("dmrg", "many-body", saved.state, float(saved.info.get("energy", float("nan"))),
+                                   model, bond_dimension=int(saved.state.max_bond_dimension),
+                                   discarded_weight=saved.info.get("discarded_weight"),
+                                   info={"state_file": str(path)}))
+    grounds.sort(key=lambda g: g.bond_dimension)
+    if len({(g.model.spec.text, repr(sorted(g.model.parameters.items()))) for g in grounds}) > 1:
+        raise NetprobeError("the state files belong to different models or parameters; give one ladder")
+    return grounds
+
+
+def cmd_assess(args) -> int:
+    """c- and gamma with error bars, a certificate and a verdict."""
+    if args.max_sites < 3:
+        raise NetprobeError(f"--max-sites {args.max_sites}: a three-sector region needs at least 3 sites")
+    if args.placements < 1:
+        raise NetprobeError(f"--placements {args.placements}: give at least 1")
+    if not 0 < args.eps < 1e-3:
+        raise NetprobeError(f"--eps {args.eps}: choose a small positive floor such as 1e-12 (large floors bias J)")
+    budget = None
+    if args.memory_budget is not None:
+        if not args.memory_budget > 0 or args.memory_budget == float("inf"):
+            raise NetprobeError(f"--memory-budget must be a positive number of GB, got {args.memory_budget}")
+        budget = int(args.memory_budget * 2**30)
+    if args.plot:
+        _check_png(args.plot)
+    files = _state_sources(args.spec)
+    if files:
+        if args.overrides:
+            raise NetprobeError("--set applies to model sources; state files carry their own parameters")
+        grounds = _saved_grounds(files)
+    else:
+        model = _load(args)
+        grounds, _ = solve(model, args.engine, _solve_settings(args, parse_overrides(args.overrides)))
+    result = assess_states(grounds, max_sites=args.max_sites, placements=args.placements, eps=args.eps,
+                           memory_budget=budget, progress=sys.stderr)
+    payload = result.to_json()
+    lines = _assess_lines(result)
+    if args.plot:
+        plot_assessment(result, args.plot, title=f"{result.model.name} ({result.engine})")
+        lines.append(f"plot written to {args.plot}")
+    _emit(args, payload, lines)
+    return 0
+
+
+def _assess_lines(a) -> list[str]:
+    def pm(v, e, spec="+.4f"):
+        return "n/a" if v is None else f"{v:{spec}} +- {e:.4f}"
+
+    lines = [f"{a.model.name} ({a.engine}): {a.model.num_sites} sites, {len(a.sizes)} region sizes"]
+    lines.append(f"{'sites':>6} {'R':>6} {'J':>12} {'+-':>8} {'c-':>8} {'gamma':>9} {'+-':>8}  certified")
+    for e in a.sizes:
+        lines.append(f"{e.sites:>6} {e.linear_size:>6.2f} {e.J:>12.6f} {e.J_error:>8.1e} {3 * e.J / 3.141592653589793:>8.4f} "
+                     f"{e.gamma:>9.5f} {e.gamma_error:>8.1e}  {'yes' if e.certified else 'no'}")
+    xi = a.markov_length
+    lines.append(f"Markov length: {'n/a' if xi is None else f'{xi:.3f}'} ({a.markov.get('method', '')})")
+    near = a.nearest
+    lines.append(f"c- = {pm(a.c_minus, a.c_minus_error)}" + (f"   (nearest multiple of 1/2: {near['c_minus']:+g})"
+                                                               if "c_minus" in near else ""))
+    lines.append(f"gamma = {pm(a.gamma, a.gamma_error)}" + (f"   (nearest: {near['gamma']['name']})"
+                                                             if "gamma" in near else ""))
+    lines.append(f"verdict: {a.verdict} ({'certified' if a.certified else 'uncertified'}): {a.reason}")
+    lines += [f"note: {n}" for n in a.notes]
+    return lines

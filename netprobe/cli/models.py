@@ -1,0 +1,19 @@
+"""``netprobe models``: the bundled model files, one line each."""
+
+from __future__ import annotations
+
+from netprobe.cli.common import _emit
+from netprobe.model.spec import list_models, load_spec
+
+__all__ = ["cmd_models"]
+
+
+def cmd_models(args) -> int:
+    """List the bundled models, one line each."""
+    entries = []
+    for path in list_models():
+        spec = load_spec(str(path))
+        entries.append({"name": spec.name, "file": str(path), "site": spec.site, "description": spec.description})
+    width = max((len(e["name"]) for e in entries), default=0)
+    _emit(args, {"models": entries}, [f"{e['name']:<{width}}  {e['description']}" for e in entries])
+    return 0

@@ -1,0 +1,440 @@
+"""Quadratic forms of fermion Hamiltonians: the first stage of the free-fermion engine.
+
+A Hamiltonian built from local products (:mod:`netprobe.model.terms`) on fermion, spinful_fermion, spin-1/2 or
+hard-core boson sites is written in fermion modes (Jordan-Wigner in MPS order) and reduced to
+``H = sum_ij c_i^dag h_ij c_j + (1/2) sum_ij (Delta_ij c_i^dag c_j^dag + h.c.) + constant``, or
+refused with the term that is not quadratic. The engine's settings and error classes live here
+too, since the extraction is the first stage that needs them; :mod:`netprobe.engines.gaussian` re-exports
+them.
+
+Extraction
+----------
+Each local matrix of a :class:`~netprobe.model.terms.LocalProduct` is written in the qubit basis of its
+modes (one mode per ``fermion`` site; ``up`` then ``dn`` for ``spinful_fermion`` sites; one for
+``spin-1/2`` and ``hardcore-boson`` sites) and split into single-mode monomials I, F, a, a^dag
+(``F = 1 - 2n``, ``a|1> = |0>``). A product of monomials with odd letters on modes
+``m_1 < ... < m_k`` and F letters on a set T equals, with ``c_m = F_0 ... F_{m-1} a_m``,
+``(-1)^(k(k-1)/2) F_R c_m1 ... c_mk`` (daggers kept), where R is the symmetric difference of
+T and the set of modes lying below an odd number of odd letters (moving the strings of the
+later odd letters to the left past the earlier ones). It is quadratic exactly when k = 0 and
+|T| <= 1, or k = 2 and T is the open interval between the two odd modes; then R = {m_1} and
+``F_p c_p = c_p``, ``F_p c_p^dag = -c_p^dag`` give::
+
+    a_p (F..) a_q  = -c_p c_q          a^dag_p (F..) a_q     = +c_p^dag c_q
+    a_p (F..) a^dag_q = +c_q^dag c_p   a^dag_p (F..) a^dag_q = +c_p^dag c_q^dag
+
+and ``F_l = 1 - 2 n_l``. With occupation along x for spins (``X = 1 - 2n``, ``Z = a + a^dag``)
+this gives ``Z_i Z_(i+1) = (c_i^dag - c_i)(c_(i+1)^dag + c_(i+1))``.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from netprobe.errors import GaussianStateError, HermiticityError, NotQuadraticError
+
+__all__ = [
+    "NotQuadraticError",
+    "GaussianStateError",
+    "GaussianOptions",
+    "GAUSSIAN_ROUTES",
+    "QuadraticForm",
+    "quadratic_form",
+]
+
+_SPIN_AXES = ("z", "x", "y")
+GAUSSIAN_ROUTES = ("auto", "dense", "momentum")
+
+
+@dataclass(frozen=True, kw_only=True)
+class GaussianOptions:
+    """Settings of the free-fermion engine.
+
+    Attributes
+    ----------
+    clip : float
+        Eigenvalues of G_X (and (1 + i Gamma_X)/2) are clipped to [clip, 1 - clip] before the
+        logarithms of a modular Hamiltonian; 1e-14 keeps ln within +-32.
+    degeneracy_tol : float
+        The ground state is refused as not unique when the last filled and the first empty level
+        (or the smallest Majorana level) are closer than this.
+    spin_axis : {'auto', 'z', 'x', 'y'}
+        For spin-1/2 sites: the Pauli axis whose -1 eigenstate counts as an occupied mode. ``auto``
+        tries z, x, y in turn and takes the first that makes the model quadratic.
+    quadratic_rtol : float
+        Left-over non-quadratic monomials below this fraction of the largest coupling are rounding.
+    route : {'auto', 'dense', 'momentum'}
+        How the ground state is diagonalised: ``dense`` (one eigendecomposition of the whole
+        lattice), ``momentum`` (by momentum around the cylinder, :mod:`netprobe.engines.gaussian.momentum`;
+        refused when the quadratic form is not translation invariant in y), or ``auto`` (momentum
+        where the form is translation invariant, dense otherwise).
+    """
+
+    clip: float = 1e-14
+    degeneracy_tol: float = 1e-10
+    spin_axis: str = "auto"
+    quadratic_rtol: float = 1e-12
+    route: str = "auto"
+
+    def __post_init__(self):
+        if not 0.0 < self.clip < 0.5:
+            raise GaussianStateError(f"GaussianOptions: clip must lie in (0, 0.5), got {self.clip!r}")
+        if not self.degeneracy_tol >= 0.0:
+            raise GaussianStateError(
+                f"GaussianOptions: degeneracy_tol must be >= 0, got {self.degeneracy_tol!r}")
+        if self.spin_axis not in ("auto",) + _SPIN_AXES:
+            raise GaussianStateError(
+                f"GaussianOptions: unknown spin_axis '{self.spin_axis}'; "
+                f"valid: auto, {', '.join(_SPIN_AXES)}")
+        if not 0.0 <= self.quadratic_rtol < 1e-3:
+            raise GaussianStateError(
+                f"GaussianOptions: quadratic_rtol must lie in [0, 1e-3), got {self.quadratic_rtol!r}")
+        if self.route not in GAUSSIAN_ROUTES:
+            raise GaussianStateError(
+                f"GaussianOptions: unknown route '{self.route}'; valid: {', '.join(GAUSSIAN_ROUTES)}")
+
+
+# ----------------------------------------------------------------------------------------------
+# extraction of the quadratic form
+# ----------------------------------------------------------------------------------------------
+
+_I, _F, _A, _D = 0, 1, 2, 3  # single-mode monomials: identity, F = 1 - 2n, a, a^dag
+# coefficients (I, F, a, a^dag) of a 2x2 matrix from its entries (M00, M01, M10, M11)
+_TO_MONOMIALS = np.array([[0.5, 0, 0, 0.5], [0.5, 0, 0, -0.5], [0, 1, 0, 0], [0, 0, 1, 0]])
+_MONOMIAL_RTOL = 1e-13
+
+
+@dataclass(frozen=True)
+class _ModeMap:
+    """How a site space becomes modes: the unitary V with M_qubit = V M V^dag, modes per site."""
+
+    modes_per_site: int
+    to_qubits: np.ndarray
+    label: str
+    spin_like: bool
+
+
+def _pauli_axis_map(axis: str) -> _ModeMap:
+    s = 1 / math.sqrt(2)
+    columns = {"z": np.eye(2), "x": np.array([[s, s], [s, -s]]),
+               "y": np.array([[s, s], [1j * s, -1j * s]])}[axis]
+    # qubit |0> = +1 eigenstate of the axis (empty), |1> = -1 eigenstate (occupied)
+    return _ModeMap(1, columns.conj().T, f"spin-1/2 with occupation along {axis}", True)
+
+
+def _mode_maps(space, options: GaussianOptions) -> list[_ModeMap]:
+    if space.name == "fermion":
+        return [_ModeMap(1, np.eye(2), "fermion", False)]
+    if space.name == "spinful_fermion":
+        perm = [0, 2, 1, 3]  # site basis (0, up, dn, updn) -> Kronecker basis (n_up, n_dn)
+        v = np.zeros((4, 4))
+        v[perm, np.arange(4)] = 1.0
+        return [_ModeMap(2, v, "spinful_fermion (modes up, dn)", False)]
+    if space.name == "hardcore-boson":
+        return [_ModeMap(1, np.eye(2), "hard-core boson", True)]
+    if space.name == "spin-1/2":
+        axes = _SPIN_AXES if options.spin_axis == "auto" else (options.spin_axis,)
+        return [_pauli_axis_map(a) for a in axes]
+    raise NotQuadraticError(
+        f"site space '{space.name}' has no free-fermion form; the Gaussian engine takes fermion, spinful_fermion, "
+        "spin-1/2 and hardcore-boson sites (use the exact or DMRG engine)"
+    )
+
+
+def _site_monomials(matrix: np.ndarray, mode_map: _ModeMap):
+    """Split a local matrix into ((coefficient, letters), ...) with one letter per mode of the site."""
+    k = mode_map.modes_per_site
+    v = mode_map.to_qubits
+    q = v @ matrix @ v.conj().T
+    t = q.reshape((2,) * (2 * k))
+    t = t.transpose([x for pair in zip(range(k), range(k, 2 * k)) for x in pair]).reshape((4,) * k)
+    for axis in range(k):
+        t = np.moveaxis(np.tensordot(_TO_MONOMIALS, t, axes=([1], [axis])), 0, axis)
+    scale = np.max(np.abs(t), initial=0.0)
+    out = []
+    for letters in zip(*np.nonzero(np.abs(t) > _MONOMIAL_RTOL * scale)):
+        coef = complex(t[letters])
+        out.append((coef, tuple(int(x) for x in letters)))
+    return tuple(out)
+
+
+@dataclass(frozen=True, eq=False)
+class QuadraticForm:
+    """``H = sum_ij c_i^dag h_ij c_j + (1/2) sum_ij (Delta_ij c_i^dag c_j^dag + h.c.) + constant``.
+
+    Attributes
+    ----------
+    hopping : ndarray, shape (n, n)
+        The Hermitian matrix h; modes in Jordan-Wigner order (site by site, ``up`` before ``dn``).
+    pairing : ndarray, shape (n, n)
+        The antisymmetric matrix Delta (zero for number-conserving models).
+    constant : float
+    num_sites, modes_per_site : int
+    mapping : str
+        How sites became modes (e.g. ``"spin-1/2 with occupation along x"``).
+    site_rotation : ndarray, shape (d, d)
+        The unitary V taking a site-basis matrix M to its qubit-basis form V M V^dag.
+    spin_like : bool
+        True for spin and boson sites: their reduced density matrices equal the fermionic ones only
+        for sets contiguous in MPS order.
+    name : str
+    """
+
+    hopping: np.ndarray = field(repr=False)
+    pairing: np.ndarray = field(repr=False)
+    constant: float
+    num_sites: int
+    modes_per_site: int
+    mapping: str
+    site_rotation: np.ndarray = field(repr=False)
+    spin_like: bool = False
+    name: str = ""
+
+    @property
+    def num_modes(self) -> int:
+        """Number of fermion modes n."""
+        return self.num_sites * self.modes_per_site
+
+    @property
+    def has_pairing(self) -> bool:
+        """True if some Delta_ij is nonzero."""
+        return bool(self.pairing.any())
+
+    @property
+    def is_complex(self) -> bool:
+        """True if h or Delta has a nonzero imaginary part."""
+        return bool(np.iscomplexobj(self.hopping) or np.iscomplexobj(self.pairing))
+
+    def majorana_matrix(self) -> tuple[np.ndarray, float]:
+        """``(W, shift)`` with ``H = (i/4) sum_pq W_pq g_p g_q + shift``, W real antisymmetric (2n x 2n).
+
+        Notes
+        -----
+        With Nambu spinor psi = (c, c^dag) = Omega g, H = (1/2) psi^dag H_BdG psi + constant + Tr h / 2,
+        H_BdG = [[h, Delta], [Delta^dag, -h^T]]; since Omega Omega^dag = 1/2, W = 2 Im(Omega^dag H_BdG
+        Omega) and shift = constant + Tr h / 2.
+        """
+        n = self.num_modes
+        h, d = self.hopping, self.pairing
+        # Omega[a n + j, 2 j + alpha] = o[a, alpha]: the product Omega^dag H_BdG Omega, entry by entry
+        o = np.array([[0.5, 0.5j], [0.5, -0.5j]])
+        bdg = np.array([[h, d], [d.conj().T, -h.T]])
+        w = 2 * np.einsum("aA,bB,abij->iAjB", o.conj(), o, bdg, optimize=True).reshape(2 * n, 2 * n).imag
+        w = 0.5 * (w - w.T)
+        return w, float(self.constant + 0.5 * np.trace(h).real)
+
+    def __repr__(self) -> str:
+        kind = "pairing" if self.has_pairing else "number-conserving"
+        label = f"'{self.name}', " if self.name else ""
+        return f"QuadraticForm({label}{self.num_modes} modes, {kind}, {self.mapping})"
+
+
+class _Collector:
+    """Sums of the physical monomials found while expanding the products."""
+
+    def __init__(self):
+        self.constant = 0.0 + 0.0j
+        self.hop = ([], [], [])
+        self.cdcd = ([], [], [])  # c_p^dag c_q^dag, p < q
+        self.cc = ([], [], [])  # c_p c_q, p < q
+        self.other: dict[tuple, list] = {}
+        self.scale = 0.0
+
+    @staticmethod
+    def _push(target, p, q, value):
+        target[0].append(p)
+        target[1].append(q)
+        target[2].append(value)
+
+    def add(self, coef: complex, odd, fmodes, origin: str):
+        self.scale = max(self.scale, abs(coef))
+        if not odd:
+            if len(fmodes) == 0:
+                self.constant += coef
+                return
+            if len(fmodes) == 1:  # F_l = 1 - 2 n_l
+                self.constant += coef
+                self._push(self.hop, int(fmodes[0]), int(fmodes[0]), -2 * coef)
+                return
+        elif len(odd) == 2:
+            (p, lp), (q, lq) = odd
+            inner = q - p - 1
+            if len(fmodes) == inner and (inner == 0 or (fmodes[0] == p + 1 and fmodes[-1] == q - 1)):
+                if lp == _A and lq == _A:
+                    self._push(self.cc, p, q, -coef)
+                elif lp == _D and lq == _A:
+                    self._push(self.hop, p, q, coef)
+                elif lp == _A and lq == _D:
+                    self._push(self.hop, q, p, coef)
+                else:
+                    self._push(self.cdcd, p, q, coef)
+                return
+        key = (tuple(odd), tuple(int(m) for m in fmodes))
+        entry = self.other.get(key)
+        if entry is None:
+            self.other[key] = [coef, origin]
+        else:
+            entry[0] += coef
+
+    def culprit(self, rtol: float) -> str | None:
+        for coef, origin in self.other.values():
+            if abs(coef) > rtol * max(self.scale, 1e-300):
+                return origin or "(no origin recorded)"
+        return None
+
+
+def _collect(products, mode_map: _ModeMap) -> _Collector:
+    col = _Collector()
+    k = mode_map.modes_per_site
+    cache: dict = {}
+    empty = np.zeros(0, dtype=np.int64)
+    for prod in products:
+        # strings repeat one matrix over many sites: group the sites by matrix content first
+        # (the byte strings of float and complex d x d matrices differ in length, so bytes are a key)
+        keys = list(map(np.ndarray.tobytes, prod.matrices))
+        index = {key: i for i, key in enumerate(dict.fromkeys(keys))}
+        codes = np.fromiter(map(index.__getitem__, keys), dtype=np.int64, count=len(keys))
+        sites = np.asarray(prod.sites, dtype=np.int64)
+        coef = complex(prod.coefficient)
+        fparts, odd, varying = [], [], []
+        for key, i in index.items():
+            positions = np.flatnonzero(codes == i)
+            dec = cache.get(key)
+            if dec is None:
+                dec = cache[key] = _site_monomials(prod.matrices[positions[0]], mode_map)
+            if not dec:
+                break
+            where = sites[positions] * k
+            if len(dec) == 1:
+                c, letters = dec[0]
+                coef *= c ** where.size
+                for offset, letter in enumerate(letters):
+                    if letter == _F:
+                        fparts.append(where + offset)
+                    elif letter != _I:
+                        odd.extend((int(m), letter) for m in where + offset)
+            else:
+                varying.extend((int(base), dec) for base in where)
+        else:
+            for combo in itertools.product(*(dec for _, dec in varying)):
+                c_all = coef
+                f_all = list(fparts)
+                odd_all = list(odd)
+                for (base, _), (c, letters) in zip(varying, combo):
+                    c_all *= c
+                    for offset, letter in enumerate(letters):
+                        if letter == _F:
+                            f_all.append(np.array([base + offset]))
+                        elif letter != _I:
+                            odd_all.append((base + offset, letter))
+                fmodes = np.sort(np.concatenate(f_all)) if f_all else empty
+                odd_all.sort()
+                col.add(c_all, odd_all, fmodes, prod.origin)
+    return col
+
+
+def _dense(n: int, triples, dtype=complex) -> np.ndarray:
+    out = np.zeros((n, n), dtype=dtype)
+    if triples[0]:
+        np.add.at(out, (np.array(triples[0]), np.array(triples[1])), np.array(triples[2]))
+    return out
+
+
+def _maybe_real(mat: np.ndarray) -> np.ndarray:
+    return mat.real.copy() if not np.any(mat.imag) else mat
+
+
+def _model_hint(origin: str, model) -> str:
+    """Which parameter to set to zero for a non-quadratic term (from the model description)."""
+    spec = getattr(model, "spec", None)
+    for entry in getattr(spec, "terms", ()):
+        if origin.startswith(entry.label):
+            names = sorted(entry.coupling.names)
+            if len(names) == 1:
+                return f" (set {names[0]} = 0)"
+            return f" (make its coupling '{entry.coupling.text}' vanish)"
+    return " (remove it, or use the exact or DMRG engine)"
+
+
+def quadratic_form(hamiltonian, *, name: str = "", options: GaussianOptions | None = None,
+                   model=None) -> QuadraticForm:
+    """Extract the quadratic form of a Hamiltonian built from local products.
+
+    Parameters
+    ----------
+    hamiltonian : Hamiltonian
+        Terms in normal form (:mod:`netprobe.model.terms`), on fermion, spinful_fermion, spin-1/2 or hard-core
+        boson sites.
+    name : str
+        Model name for messages.
+    options : GaussianOptions, optional
+    model : Model, optional
+        The model the Hamiltonian came from; used only to name the coupling in error messages.
+
+    Returns
+    -------
+    QuadraticForm
+
+    Raises
+    ------
+    NotQuadraticError
+        If a monomial of degree other than 0 or 2 survives (for spins: along every axis tried); the
+        message names the term.
+    HermiticityError
+        If the extracted h or Delta break Hermiticity.
+
+    Notes
+    -----
+    See the module notes for the monomial rules; the Jordan-Wigner order is the MPS order.
+    """
+    options = options or GaussianOptions()
+    name = name or getattr(model, "name", "")
+    label = f"model '{name}'" if name else "the Hamiltonian"
+    space = hamiltonian.space
+    maps = _mode_maps(space, options)
+    if space.name == "spin-1/2" and "twice_sz" in getattr(hamiltonian, "conserved", ()):
+        maps = [m for m in maps if m.label.endswith("along z")]  # twice_sz must be the particle number
+        if not maps:
+            raise GaussianStateError(
+                f"{label} conserves twice_sz, which is a particle number only with occupation along z; "
+                "use spin_axis='z' or 'auto'")
+    failures = []
+    for mode_map in maps:
+        col = _collect(hamiltonian.products, mode_map)
+        culprit = col.culprit(options.quadratic_rtol)
+        if culprit is not None:
+            failures.append((mode_map, culprit))
+            continue
+        n = hamiltonian.num_sites * mode_map.modes_per_site
+        h = _dense(n, col.hop)
+        scale = max(col.scale, 1.0)
+        hermitian = np.max(np.abs(h - h.conj().T), initial=0.0) <= 1e-10 * scale
+        if col.cdcd[0] or col.cc[0]:
+            cdcd = _dense(n, col.cdcd)
+            cc = _dense(n, col.cc)
+            hermitian = hermitian and np.max(np.abs(cc + cdcd.conj()), initial=0.0) <= 1e-10 * scale
+            pairing = _maybe_real(0.5 * ((cdcd - cdcd.T) - (cc - cc.T).conj()))
+        else:
+            pairing = np.zeros((n, n))
+        if not hermitian:
+            raise HermiticityError(
+                f"{label}: the quadratic form is not Hermitian; add the conjugate of every hopping and "
+                "pairing term (conjugate = true)")
+        h = _maybe_real(0.5 * (h + h.conj().T))
+        for arr in (h, pairing):
+            arr.setflags(write=False)
+        return QuadraticForm(h, pairing, float(col.constant.real), hamiltonian.num_sites,
+                             mode_map.modes_per_site, mode_map.label, mode_map.to_qubits,
+                             mode_map.spin_like, name)
+    if len(failures) == 1:
+        origin = failures[0][1]
+        extra = "" if not failures[0][0].spin_like else " after Jordan-Wigner in MPS order"
+        raise NotQuadraticError(f"{label} is not quadratic{extra}: term {origin}{_model_hint(origin, model)}")
+    tried = "; ".join(f"along {m.label[-1]}: term {origin}" for m, origin in failures)
+    raise NotQuadraticError(
+        f"{label} is not quadratic after Jordan-Wigner in MPS order with occupation along any spin axis "
+        f"({tried}); use the exact or DMRG engine")

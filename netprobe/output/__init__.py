@@ -1,0 +1,3 @@
+"""The output stage: every figure and table (``netprobe.output.plots``)."""
+
+__all__: list[str] = []
