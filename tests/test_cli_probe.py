@@ -69,3 +69,14 @@ def test_regions_plot_and_json(tmp_path):
     data = json.loads(proc.stdout)
     assert set(data["parts"]) == {"A", "B", "C"}
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.mark.parametrize("region", ["half:columns=4", "strips:a=1,b=1,c=1,axis=x"])
+def test_probe_plot_takes_layouts_with_integer_and_text_parameters(tmp_path, region):
+    # the plot is drawn from the layout object itself: an integer column count or an axis name used to
+    # be re-parsed as floats after the computation ("got 4.0", or a traceback for axis=x)
+    plot = tmp_path / "layout.png"
+    proc = run_cli("probe", "tfim", "--set", "length=8", "--engine", "exact", "--region", region, "--probes", "S",
+                   "--plot", str(plot))
+    assert proc.returncode == 0, proc.stderr
+    assert plot.stat().st_size > 0
