@@ -130,6 +130,7 @@ def test_critical_ising_central_charge(critical_ising_64):
     assert abs(c - 0.5) <= 0.03 * 0.5
 
 
+@pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
 def test_xx_chain_central_charge():
     length = 48
     model = load_model("heisenberg", {"length": str(length), "Delta": "0"})
@@ -149,6 +150,7 @@ def _open_chain_energy(length, chi):
     return result.energy
 
 
+@pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
 def test_heisenberg_bulk_energy_by_finite_size_elimination():
     # E(L) = e L + e_boundary + a / L + ...: three lengths eliminate e_boundary and a
     e12, e24, e48 = (_open_chain_energy(n, 32) for n in (12, 24, 48))
@@ -267,6 +269,7 @@ def test_extrapolate_energy_on_exact_lines_and_bad_input():
         extrapolate_energy([1e-3], [-1.0])
 
 
+@pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
 def test_ladder_extrapolation_brackets_the_exact_energy(tmp_path):
     overrides = {"lattice": "square", "circumference": "4", "length": "4"}
     model = load_model("heisenberg", overrides)

@@ -18,6 +18,7 @@ from test_cli import assert_one_line_error
 BASE = {"length": "6", "circumference": "3", "t2": "0.3", "phi": "pi/2"}
 
 
+@pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
 def test_chern_phase_pumps_one_charge():
     result = thread_flux("haldane", {**BASE, "M": "0"}, steps=6, bond_dimension=48, sweeps=3)
     # 0.05: the acceptance bound; on this 6-column cylinder the edge modes leave a few percent
@@ -28,6 +29,7 @@ def test_chern_phase_pumps_one_charge():
     assert result.energies[-1] == pytest.approx(result.energies[0], abs=2e-3)
 
 
+@pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
 def test_trivial_phase_pumps_nothing():
     result = thread_flux("haldane", {**BASE, "M": "3"}, steps=3, bond_dimension=32, sweeps=3)
     assert abs(result.pumped) < 0.05

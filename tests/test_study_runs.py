@@ -24,6 +24,7 @@ from netprobe.study.report import steepest_change
 from netprobe.study.tasks import run_task
 
 
+@pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
 def test_haldane_sweep_locates_the_chern_transition(tmp_path):
     out = tmp_path / "haldane"
     proc = netprobe_cli("study", "haldane_transition", "--out", out)
@@ -52,6 +53,7 @@ def test_haldane_sweep_locates_the_chern_transition(tmp_path):
             assert j_units < 0.1 and nu < 0.1
 
 
+@pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
 def test_dmrg_ising_sweep_extrapolates_to_the_critical_field(tmp_path):
     description = load_study("tfim_sweep")
     run = run_study(description, tmp_path / "tfim", progress=None)

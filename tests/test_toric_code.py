@@ -143,6 +143,7 @@ def test_levin_wen_ring_gives_two_gamma(toric, stabilizer_entropy):
     assert abs(levin_wen_gamma(report.cmi) - LN2) < 1e-6
 
 
+@pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
 def test_shielded_layout_has_zero_conditional_mutual_information(toric, stabilizer_entropy):
     model, result, _ = toric
     layout = parse_region(SHIELDED, model.lattice)
