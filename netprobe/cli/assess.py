@@ -9,8 +9,7 @@ from netprobe.cli.common import _check_png, _emit, _load, _solve_settings
 from netprobe.engines.dmrg.ladder import CHECKPOINT_NAME
 from netprobe.engines import GroundState
 from netprobe.engines.mps.store import load_state
-from netprobe.engines import solve
-from netprobe.pipeline.assess import assess_states
+from netprobe.pipeline.assess import assess_model, assess_states
 from netprobe.model.spec import parse_overrides
 from netprobe.output.plots import plot_assessment
 
@@ -64,15 +63,16 @@ def cmd_assess(args) -> int:
     if args.plot:
         _check_png(args.plot)
     files = _state_sources(args.spec)
+    common = dict(max_sites=args.max_sites, placements=args.placements, eps=args.eps, memory_budget=budget,
+                  progress=sys.stderr)
     if files:
         if args.overrides:
             raise NetprobeError("--set applies to model sources; state files carry their own parameters")
-        grounds = _saved_grounds(files)
+        result = assess_states(_saved_grounds(files), **common)
     else:
-        model = _load(args)
-        grounds, _ = solve(model, args.engine, _solve_settings(args, parse_overrides(args.overrides)))
-    result = assess_states(grounds, max_sites=args.max_sites, placements=args.placements, eps=args.eps,
-                           memory_budget=budget, progress=sys.stderr)
+        # assess_model refuses a lattice without regions before the ground state is sought
+        result = assess_model(_load(args), engine=args.engine,
+                              settings=_solve_settings(args, parse_overrides(args.overrides)), **common)
     payload = result.to_json()
     lines = _assess_lines(result)
     if args.plot:
