@@ -21,30 +21,11 @@ from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.report import steepest_change
 from netprobe.study.verdicts import inverse_bond_fit, point_verdict
 
-# Until `netprobe study` and `netprobe report` are wired into netprobe.cli, the subprocess registers
-# them on the real parser first; once wired, the registration is skipped and the command runs as is.
-_CLI = """
-import argparse, sys
-import netprobe.cli as cli
-from netprobe.cli.study import add_report_parser, add_study_parser
-_build = cli.build_parser
-def _parser():
-    parser = _build()
-    sub = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
-    if "study" not in sub.choices:
-        add_study_parser(sub)
-        add_report_parser(sub)
-    return parser
-cli.build_parser = _parser
-sys.exit(cli.main(sys.argv[1:]))
-"""
-
-
 def netprobe_cli(*args, cwd=None, timeout=600, **popen):
     """Run ``netprobe ARGS`` in a real subprocess (returns CompletedProcess, text)."""
     env = dict(os.environ, PYTHONUNBUFFERED="1")
     return subprocess.run(
-        [sys.executable, "-c", _CLI, *map(str, args)],
+        [sys.executable, "-m", "netprobe", *map(str, args)],
         capture_output=True,
         text=True,
         env=env,
@@ -57,7 +38,7 @@ def netprobe_cli(*args, cwd=None, timeout=600, **popen):
 def netprobe_popen(*args, **kwargs):
     """Start ``netprobe ARGS`` as a real subprocess without waiting."""
     env = dict(os.environ, PYTHONUNBUFFERED="1")
-    return subprocess.Popen([sys.executable, "-c", _CLI, *map(str, args)], env=env, **kwargs)
+    return subprocess.Popen([sys.executable, "-m", "netprobe", *map(str, args)], env=env, **kwargs)
 
 
 def assert_one_line_error(proc, match):

@@ -5,15 +5,14 @@ from __future__ import annotations
 import sys
 
 from netprobe.errors import NetprobeError
-from netprobe.cli.common import _check_png, _emit, _load, _solve_settings
+from netprobe.cli.common import _check_png, _emit, _load, _plots, _solve_settings
 from netprobe.engines.dmrg.ladder import CHECKPOINT_NAME
 from netprobe.engines import GroundState
 from netprobe.engines.mps.store import load_state
 from netprobe.pipeline.assess import assess_model, assess_states
 from netprobe.model.spec import parse_overrides
-from netprobe.output.plots import plot_assessment
 
-__all__ = ["cmd_assess"]
+__all__ = ["add_parser", "cmd_assess"]
 
 
 def _state_sources(text: str) -> list:
@@ -47,6 +46,32 @@ def _saved_grounds(files) -> list:
     return grounds
 
 
+def add_parser(sub) -> None:
+    """Register ``netprobe assess`` on an ``argparse`` subparsers object."""
+    p = sub.add_parser("assess", help="c- and gamma with error bars and a verdict: region-size and bond-dimension "
+                                      "ladders, Markov-length certificate")
+    p.add_argument("spec", metavar="SOURCE", help="a model file / bundled model, or state files of 'netprobe run' "
+                                                   "(a folder, or comma-separated files, in increasing D)")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="NAME=VALUE",
+                   help="override a model parameter (model sources only; repeatable)")
+    p.add_argument("--engine", default="dmrg", choices=("dmrg", "exact", "gaussian"),
+                   help="ground-state engine for a model source (default dmrg)")
+    p.add_argument("--bond-dimension", default="32,64", metavar="D[,D...]",
+                   help="DMRG ladder; every region is measured on every rung (default 32,64)")
+    p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum DMRG sweeps per rung")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="DMRG seed (default 0)")
+    p.add_argument("--max-sites", type=int, default=15, metavar="N",
+                   help="largest region (sites) of the size ladder and the Markov series (default 15)")
+    p.add_argument("--placements", type=int, default=3, metavar="K", help="regions per size (default 3)")
+    p.add_argument("--eps", type=float, default=1e-12, metavar="EPS",
+                   help="relative eigenvalue floor of the modular Hamiltonians (default 1e-12)")
+    p.add_argument("--memory-budget", type=float, default=None, metavar="GB",
+                   help="leave out regions whose reduced state would exceed this (default half the memory)")
+    p.add_argument("--plot", metavar="FILE.png", help="J, gamma, CMI against size with the fits; J against 1/D")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_assess)
+
+
 def cmd_assess(args) -> int:
     """c- and gamma with error bars, a certificate and a verdict."""
     if args.max_sites < 3:
@@ -76,7 +101,7 @@ def cmd_assess(args) -> int:
     payload = result.to_json()
     lines = _assess_lines(result)
     if args.plot:
-        plot_assessment(result, args.plot, title=f"{result.model.name} ({result.engine})")
+        _plots().plot_assessment(result, args.plot, title=f"{result.model.name} ({result.engine})")
         lines.append(f"plot written to {args.plot}")
     _emit(args, payload, lines)
     return 0

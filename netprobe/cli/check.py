@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import math
 
-from netprobe.cli.common import _emit, _load
+from netprobe.cli.common import _add_model_arguments, _emit, _load
 from netprobe.engines.mps.mpo import build_mpo
 from netprobe.model.sites import count_sector_states
 
-__all__ = ["cmd_check"]
+__all__ = ["add_parser", "cmd_check"]
 
 
 _EXACT_BITS = 62  # basis codes of the exact engine are 62-bit integers
@@ -79,6 +79,14 @@ def _model_summary(model) -> dict:
         "mpo_bond_dimensions_uncompressed": list(mpo.uncompressed_bond_dimensions),
         "parameters": model.numeric_parameters(),
     }
+
+
+def add_parser(sub) -> None:
+    """Register ``netprobe check`` on an ``argparse`` subparsers object."""
+    p = sub.add_parser("check", help="validate a model: sites, terms, charges, dimensions")
+    _add_model_arguments(p)
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_check)
 
 
 def cmd_check(args) -> int:

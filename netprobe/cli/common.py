@@ -1,5 +1,6 @@
-"""What every command shares: loading the model named on the command line, one output policy (text lines or
-one JSON object through :func:`netprobe.jsonio.json_default`), bond-dimension lists, solver settings and plot names.
+"""What every command shares: the model arguments and loading the model named on the command line, one output
+policy (text lines or one JSON object through :func:`netprobe.jsonio.json_default`), bond-dimension lists, solver
+settings, plot names and the figure module.
 """
 
 from __future__ import annotations
@@ -16,6 +17,12 @@ from netprobe.engines import SolveSettings
 __all__: list[str] = []  # shared by the command modules of this package
 
 
+def _add_model_arguments(p):
+    p.add_argument("spec", metavar="SPEC", help="model file (path) or the name of a bundled model")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="NAME=VALUE",
+                   help="override a parameter of the model file (repeatable)")
+
+
 def _load(args, memory_budget: int | None = None):
     return load_model(args.spec, parse_overrides(args.overrides), memory_budget=memory_budget)
 
@@ -26,6 +33,12 @@ def _emit(args, payload: dict, lines: list[str]):
         sys.stdout.write("\n")
     else:
         print("\n".join(lines))
+
+
+def _print_json(payload) -> None:
+    """One JSON object on standard output, refusing NaN and infinities (study ledgers and reports)."""
+    json.dump(payload, sys.stdout, indent=2, allow_nan=False)
+    sys.stdout.write("\n")
 
 
 def _bond_dimensions(text: str) -> tuple[int, ...]:
@@ -50,3 +63,14 @@ def _solve_settings(args, overrides):
 def _check_png(path: str):
     if not str(path).lower().endswith(".png"):
         raise NetprobeError(f"--plot {path}: plots are written as PNG; give a file name ending in .png")
+
+
+def _plots():
+    """:mod:`netprobe.output.plots`, imported when a command draws a figure.
+
+    Importing matplotlib took 0.8 of the 2.3 s (CPU) that ``import netprobe.cli`` needed, on every command,
+    most of which draw nothing (measured; benchmarks/RESULTS.md, 2026-12-03).
+    """
+    from netprobe.output import plots  # matplotlib only when a figure is drawn (see the docstring)
+
+    return plots

@@ -5,15 +5,15 @@ from __future__ import annotations
 import sys
 
 from netprobe.errors import NetprobeError
-from netprobe.cli.common import _bond_dimensions, _check_png, _emit, _load
+from netprobe.cli.common import _bond_dimensions, _check_png, _emit, _load, _plots
 from netprobe.pipeline.edge import edge_ladder, edge_state
 from netprobe.model.spec import load_spec, parse_overrides
-from netprobe.output.plots import plot_cut_spectrum
 
-__all__ = ["cmd_edge"]
+__all__ = ["add_parser", "cmd_edge"]
 
 
-def _add_edge_parser(sub):
+def add_parser(sub) -> None:
+    """Register ``netprobe edge`` on an ``argparse`` subparsers object."""
     p = sub.add_parser("edge", help="cut between the cylinder halves: momentum-resolved entanglement spectrum, "
                                     "level counting, momentum polarization (h_a - c-/24)")
     p.add_argument("spec", metavar="SOURCE", help="model file (path) or the name of a bundled model")
@@ -81,7 +81,7 @@ def cmd_edge(args) -> int:
         result = edge_state(_load(args), progress=sys.stderr if args.engine == "dmrg" else None, **common)
     lines = _edge_lines(result)
     if args.plot:
-        plot_cut_spectrum(result, args.plot, title=f"{result['model']} ({result['engine']}): {result['lattice']}")
+        _plots().plot_cut_spectrum(result, args.plot, title=f"{result['model']} ({result['engine']}): {result['lattice']}")
         lines.append(f"plot written to {args.plot}")
     _emit(args, result, lines)
     return 0

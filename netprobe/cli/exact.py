@@ -8,10 +8,19 @@ import numpy as np
 
 from netprobe.errors import NetprobeError
 from netprobe.engines.limits import check_exact_model
-from netprobe.cli.common import _emit, _load
+from netprobe.cli.common import _add_model_arguments, _emit, _load
 from netprobe.engines.exact import ground_state
 
-__all__ = ["cmd_exact"]
+__all__ = ["add_parser", "cmd_exact"]
+
+
+def add_parser(sub) -> None:
+    """Register ``netprobe exact`` on an ``argparse`` subparsers object."""
+    p = sub.add_parser("exact", help="ground state by exact diagonalisation in the target sector")
+    _add_model_arguments(p)
+    p.add_argument("--states", type=int, default=1, metavar="K", help="number of lowest states (default 1)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_exact)
 
 
 def cmd_exact(args) -> int:

@@ -7,12 +7,25 @@ import sys
 import numpy as np
 
 from netprobe.errors import NetprobeError
-from netprobe.cli.common import _check_png, _emit
+from netprobe.cli import options
+from netprobe.cli.common import _add_model_arguments, _check_png, _emit, _plots
 from netprobe.pipeline.flux import thread_flux
 from netprobe.model.spec import load_spec, parse_overrides
-from netprobe.output.plots import plot_flux
 
-__all__ = ["cmd_flux"]
+__all__ = ["add_parser", "cmd_flux"]
+
+
+def add_parser(sub) -> None:
+    """Register ``netprobe flux`` on an ``argparse`` subparsers object."""
+    p = sub.add_parser("flux", help="thread one flux quantum through the cylinder; charge pumped across the cut")
+    _add_model_arguments(p)
+    p.add_argument("--steps", type=int, default=8, metavar="N", help="flux steps from 0 to 2 pi (default 8)")
+    p.add_argument("--bond-dimension", type=int, default=64, metavar="D", help="DMRG bond dimension (default 64)")
+    p.add_argument("--sweeps", type=int, default=4, metavar="N", help="DMRG sweeps per step (default 4)")
+    p.add_argument("--seed", type=options.seed, default=0, metavar="S", help="seed of the first step (default 0)")
+    p.add_argument("--plot", metavar="FILE.png", help="plot <Q_L> and the entanglement spectrum against the flux")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_flux)
 
 
 def cmd_flux(args) -> int:
@@ -32,7 +45,7 @@ def cmd_flux(args) -> int:
         lines.append(f"  theta/2pi = {theta / (2 * np.pi):.3f}   <Q_L> = {q:.6f}   energy {e:.10f}")
     lines.append(f"pumped per flux quantum: {result.pumped:+.4f}  (Hall conductance estimate)")
     if args.plot:
-        plot_flux(result, args.plot, title=f"{spec.name}: flux threading")
+        _plots().plot_flux(result, args.plot, title=f"{spec.name}: flux threading")
         lines.append(f"plot written to {args.plot}")
     _emit(args, payload, lines)
     return 0

@@ -5,13 +5,26 @@ from __future__ import annotations
 import numpy as np
 
 from netprobe.errors import NetprobeError
-from netprobe.cli.common import _check_png, _emit
+from netprobe.cli.common import _check_png, _emit, _plots
 from netprobe.engines import mps as mpsmod
 from netprobe.engines.mps.store import load_state
 from netprobe.engines.mps.mpo import build_mpo
-from netprobe.output.plots import plot_profiles
 
-__all__ = ["cmd_measure"]
+__all__ = ["add_parser", "cmd_measure"]
+
+
+def add_parser(sub) -> None:
+    """Register ``netprobe measure`` on an ``argparse`` subparsers object."""
+    p = sub.add_parser("measure", help="observables of a saved state")
+    p.add_argument("state", metavar="STATE", help="state file written by 'netprobe run'")
+    p.add_argument("--local", action="append", default=[], metavar="OP", help="<OP_i> on every site (repeatable)")
+    p.add_argument("--correlation", action="append", default=[], metavar="OP,OP",
+                   help="<A_i B_j> from the centre site i to every j (repeatable)")
+    p.add_argument("--entropy", action="store_true", help="entanglement entropy at every bond")
+    p.add_argument("--energy", action="store_true", help="energy and variance")
+    p.add_argument("--plot", metavar="FILE.png", help="plot the requested profiles")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_measure)
 
 
 def cmd_measure(args) -> int:
@@ -50,7 +63,7 @@ def cmd_measure(args) -> int:
         lines.append("entanglement entropy per bond: " + " ".join(f"{v:.5f}" for v in ent))
     if args.plot:
         _check_png(args.plot)
-        plot_profiles(profiles, args.plot, title=f"{model.name}, D = {state.max_bond_dimension}")
+        _plots().plot_profiles(profiles, args.plot, title=f"{model.name}, D = {state.max_bond_dimension}")
         lines.append(f"plot written to {args.plot}")
     _emit(args, payload, lines)
     return 0

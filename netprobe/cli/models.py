@@ -5,7 +5,14 @@ from __future__ import annotations
 from netprobe.cli.common import _emit
 from netprobe.model.spec import list_models, load_spec
 
-__all__ = ["cmd_models"]
+__all__ = ["add_parser", "cmd_models"]
+
+
+def add_parser(sub) -> None:
+    """Register ``netprobe models`` on an ``argparse`` subparsers object."""
+    p = sub.add_parser("models", help="list the bundled model files")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_models)
 
 
 def cmd_models(args) -> int:

@@ -4,12 +4,40 @@ from __future__ import annotations
 
 from netprobe.errors import NetprobeError
 from netprobe.engines.limits import check_dmrg_model, check_exact_model
-from netprobe.cli.common import _check_png, _emit, _load, _solve_settings
+from netprobe.cli import options
+from netprobe.cli.common import _check_png, _emit, _load, _plots, _solve_settings
 from netprobe.pipeline import probe_model, probe_saved_state
 from netprobe.model.spec import parse_overrides
-from netprobe.output.plots import plot_layout, plot_profiles
 
-__all__ = ["cmd_probe"]
+__all__ = ["add_parser", "cmd_probe"]
+
+
+def add_parser(sub) -> None:
+    """Register ``netprobe probe`` on an ``argparse`` subparsers object."""
+    p = sub.add_parser("probe", help="bulk probes of a ground state on a region: J, c-, gamma, CMI, entropies")
+    p.add_argument("spec", metavar="SOURCE", help="a state file from 'netprobe run', or a model file / bundled model")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="NAME=VALUE",
+                   help="override a model parameter (model sources only; repeatable)")
+    p.add_argument("--region", required=True, metavar="KIND:KEY=VALUE,...",
+                   help="disk:radius=R[,center=X,Y] (three sectors for J and gamma, a shielded split for CMI), "
+                        "or any layout of 'netprobe regions'")
+    p.add_argument("--cmi-region", default=None, metavar="KIND:KEY=VALUE,...",
+                   help="layout for the CMI instead of the shielded split of the disk, e.g. shielded:a=1,b=2,c=3")
+    p.add_argument("--probes", default="J,CMI,TEE,S", metavar="LIST", help="subset of J,CMI,TEE,S (default all)")
+    p.add_argument("--engine", default="dmrg", choices=("dmrg", "exact", "gaussian"),
+                   help="ground-state engine for a model source (default dmrg)")
+    p.add_argument("--bond-dimension", default="32,64", metavar="D[,D...]",
+                   help="DMRG ladder; the probes are evaluated on every rung (default 32,64)")
+    p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum DMRG sweeps per rung")
+    p.add_argument("--seed", type=options.seed, default=0, metavar="S", help="DMRG seed (default 0)")
+    p.add_argument("--out", type=options.output_folder, default=None, metavar="DIR", help="keep the DMRG state files here")
+    p.add_argument("--eps", type=float, default=1e-12, metavar="EPS",
+                   help="relative eigenvalue floor of the modular Hamiltonians (J is also shown at 100 EPS)")
+    p.add_argument("--memory-budget", type=options.positive_gigabytes, default=None, metavar="GB",
+                   help="refuse reduced density matrices above this estimate (default half the memory)")
+    p.add_argument("--plot", metavar="FILE.png", help="draw the regions (and J against bond dimension)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_probe)
 
 
 def cmd_probe(args) -> int:
@@ -84,8 +112,8 @@ def _plot_probe(result, path: str):
     values = result.last.values
     if values.J is not None:
         title += f"\nJ = {values.J:.5f}, c- = {values.c_minus:.4f}"
-    plot_layout(layout, path, title=title)
+    _plots().plot_layout(layout, path, title=title)
     if len(result.rungs) > 1:
         rungs = result.rungs
-        plot_profiles({"J": [r.values.J or 0.0 for r in rungs]}, f"{path[:-4]}_ladder.png",
+        _plots().plot_profiles({"J": [r.values.J or 0.0 for r in rungs]}, f"{path[:-4]}_ladder.png",
                       title="J by ladder rung: D = " + ", ".join(str(r.ground.bond_dimension) for r in rungs))

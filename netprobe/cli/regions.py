@@ -2,11 +2,21 @@
 
 from __future__ import annotations
 
-from netprobe.cli.common import _check_png, _emit, _load
+from netprobe.cli.common import _add_model_arguments, _check_png, _emit, _load, _plots
 from netprobe.regions import parse_region
-from netprobe.output.plots import plot_layout
 
-__all__ = ["cmd_regions"]
+__all__ = ["add_parser", "cmd_regions"]
+
+
+def add_parser(sub) -> None:
+    """Register ``netprobe regions`` on an ``argparse`` subparsers object."""
+    p = sub.add_parser("regions", help="carve a region layout on the lattice; list its sites, draw it")
+    _add_model_arguments(p)
+    p.add_argument("--layout", required=True, metavar="KIND:KEY=VALUE,...",
+                   help="e.g. sectors:radius=3  disk:radius=2.5,center=4,2  levin_wen:inner=1,outer=3,cut=40")
+    p.add_argument("--plot", metavar="FILE.png", help="draw the lattice with the parts coloured")
+    p.add_argument("--json", action="store_true", help="print one JSON object (sites and coordinates)")
+    p.set_defaults(func=cmd_regions)
 
 
 def cmd_regions(args) -> int:
@@ -15,7 +25,7 @@ def cmd_regions(args) -> int:
     layout = parse_region(args.layout, model.lattice)
     if args.plot:
         _check_png(args.plot)
-        plot_layout(layout, args.plot, title=f"{model.name}: {layout.describe()}")
+        _plots().plot_layout(layout, args.plot, title=f"{model.name}: {layout.describe()}")
     payload = {"model": model.name, "lattice": model.lattice.describe(), **layout.to_json()}
     lines = [f"{model.name}: {model.lattice.describe()}", layout.describe()]
     for name in layout.names:

@@ -6,11 +6,26 @@ import sys
 
 from netprobe.errors import NetprobeError
 from netprobe.engines.limits import check_dmrg_model
-from netprobe.cli.common import _bond_dimensions, _emit, _load
+from netprobe.cli import options
+from netprobe.cli.common import _add_model_arguments, _bond_dimensions, _emit, _load
 from netprobe.engines.dmrg import LadderSettings, SweepSettings, run_ladder
 from netprobe.model.spec import parse_overrides
 
-__all__ = ["cmd_run"]
+__all__ = ["add_parser", "cmd_run"]
+
+
+def add_parser(sub) -> None:
+    """Register ``netprobe run`` on an ``argparse`` subparsers object."""
+    p = sub.add_parser("run", help="DMRG ground state over a ladder of bond dimensions, with checkpoints")
+    _add_model_arguments(p)
+    p.add_argument("--bond-dimension", required=True, metavar="D[,D...]",
+                   help="ladder of bond dimensions, e.g. 64,128,256 (each stage warm-starts the next)")
+    p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum sweeps per stage")
+    p.add_argument("--seed", type=options.seed, default=0, metavar="S", help="seed of the random initial state (default 0)")
+    p.add_argument("--out", type=options.output_folder, default=None, metavar="DIR", help="folder for state files and the checkpoint")
+    p.add_argument("--resume", action="store_true", help="continue from the checkpoint in --out")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.set_defaults(func=cmd_run)
 
 
 def cmd_run(args) -> int:

@@ -1,9 +1,9 @@
-"""The ``netprobe study`` and ``netprobe report`` subcommands.
+"""The ``netprobe study`` subcommand.
 
-:func:`add_study_parser` and :func:`add_report_parser` register the subcommands on the argument
-parser of :mod:`netprobe.cli`; each sets ``func``, which returns the exit status and raises
-:class:`netprobe.errors.NetprobeError` subclasses for user mistakes (the command line turns them
-into one line on standard error and exit status 2).
+:func:`add_parser` registers the subcommand on the argument parser of :mod:`netprobe.cli`; it
+sets ``func``, which returns the exit status and raises :class:`netprobe.errors.NetprobeError`
+subclasses for user mistakes (the command line turns them into one line on standard error and
+exit status 2).
 
 ``netprobe study SPEC [--out DIR] [--workers N | --scheduler ADDRESS] [--attempts K] [--json]``
     Runs every task not done yet; progress goes to standard error. Exit status 0 when every task is
@@ -11,28 +11,23 @@ into one line on standard error and exit status 2).
 ``netprobe study SPEC --status [--out DIR] [--json]``
     Counts of tasks by status (``pending``, ``running``, ``done``, ``failed``, ``total``, ``stale``),
     read without changing anything.
-``netprobe report DIR [--out FOLDER] [--no-plots] [--json]``
-    Writes tables and figures to ``DIR/report`` and prints a summary (or one JSON object with
-    ``points`` and ``boundaries``).
 """
 
 from __future__ import annotations
 
 import contextlib
-import json
 import signal
-import sys
 from pathlib import Path
 
 from netprobe.errors import StudyError
+from netprobe.cli.common import _print_json
 from netprobe.cli.options import folder_path, scheduler_address, unwritable
 from netprobe.study.description import StudyDescription
 from netprobe.study.reading import load_study
 from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.executors import DaskExecutor, LocalExecutor, run_study
-from netprobe.study.report import build_report, summary_lines, write_report
 
-__all__ = ["add_study_parser", "add_report_parser", "cmd_study", "cmd_report", "default_folder"]
+__all__ = ["add_parser", "cmd_study", "default_folder"]
 
 
 def _positive_int(text: str) -> int:
@@ -47,9 +42,9 @@ def _positive_int(text: str) -> int:
     return value
 
 
-def add_study_parser(subparsers) -> None:
+def add_parser(sub) -> None:
     """Register ``netprobe study`` on an ``argparse`` subparsers object."""
-    p = subparsers.add_parser(
+    p = sub.add_parser(
         "study",
         help="run a parameter sweep described by a study file (or show its status)",
         description="Run the tasks of a study (a sweep over a grid of parameter points "
@@ -86,29 +81,9 @@ def add_study_parser(subparsers) -> None:
     p.set_defaults(func=cmd_study)
 
 
-def add_report_parser(subparsers) -> None:
-    """Register ``netprobe report`` on an ``argparse`` subparsers object."""
-    p = subparsers.add_parser(
-        "report",
-        help="tables, transition estimates and phase maps of a study folder",
-        description="Read a study folder, write CSV/JSON tables and PNG figures, and print "
-        "a summary with convergence verdicts and transition estimates.",
-    )
-    p.add_argument("folder", metavar="DIR", help="the study folder (the --out of 'netprobe study')")
-    p.add_argument("--out", metavar="FOLDER", help="where the files go (default: DIR/report)")
-    p.add_argument("--no-plots", dest="plots", action="store_false", help="write the tables only")
-    p.add_argument("--json", action="store_true", help="print one JSON object (points, boundaries, counts)")
-    p.set_defaults(func=cmd_report)
-
-
 def default_folder(description: StudyDescription) -> Path:
     """``./<study name>-study``."""
     return Path.cwd() / f"{description.name}-study"
-
-
-def _print_json(payload) -> None:
-    json.dump(payload, sys.stdout, indent=2, allow_nan=False)
-    sys.stdout.write("\n")
 
 
 def _status(description: StudyDescription, folder: Path, as_json: bool) -> int:
@@ -212,18 +187,3 @@ def cmd_study(args) -> int:
             f"{run.seconds:.1f} s; folder {folder} (see 'netprobe report {folder}')"
         )
     return 0 if run.complete else 1
-
-
-def cmd_report(args) -> int:
-    """Write a study's tables and figures and print its summary."""
-    report = build_report(args.folder)
-    files = write_report(report, args.out, plots=args.plots)
-    if args.json:
-        payload = report.to_json()
-        payload["files"] = [str(f) for f in files]
-        _print_json(payload)
-    else:
-        lines = summary_lines(report)
-        lines.append(f"files: {', '.join(str(f) for f in files)}")
-        print("\n".join(lines))
-    return 0
