@@ -97,12 +97,13 @@ def test_malformed_model_file(tmp_path):
     assert_one_line_error(run_cli("check", str(nonherm)), "not Hermitian")
 
 
-def test_cli_import_leaves_figures_and_clusters_unloaded():
-    # Start-up of every command: matplotlib loads only when a figure is drawn, dask.distributed only
-    # when a study runs on a cluster (issue #12; benchmarks/RESULTS.md records the time saved).
+def test_cli_import_leaves_figures_kernels_and_clusters_unloaded():
+    # Start-up of every command: matplotlib loads only when a figure is drawn, numba only when exact
+    # diagonalisation runs, dask.distributed only when a study runs on a cluster (issue #12;
+    # benchmarks/RESULTS.md records the time saved).
     code = ("import json, sys, netprobe.cli; netprobe.cli.build_parser(); "
-            "print(json.dumps(sorted(m for m in sys.modules if m.split('.')[0] in ('matplotlib', 'distributed') "
-            "or m.startswith('dask.distributed'))))")
+            "print(json.dumps(sorted(m for m in sys.modules if m.split('.')[0] in ('matplotlib', 'numba', "
+            "'distributed') or m.startswith('dask.distributed'))))")
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert json.loads(proc.stdout) == []
 

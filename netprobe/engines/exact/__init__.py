@@ -1,5 +1,5 @@
-"""Exact diagonalisation in a charge sector: sector bases and kernels (``basis``), operators, ground states and
-measurements (``solve``).
+"""Exact diagonalisation in a charge sector: sector bases (``basis``) and their compiled kernels (``kernels``, loaded
+on first use), operators, ground states and measurements (``solve``).
 """
 
 from netprobe.engines.exact.basis import (  # noqa: F401 (re-exported)

@@ -32,7 +32,6 @@ from typing import Mapping, Sequence
 
 import numpy as np
 import scipy.sparse as sp
-from numba import njit, prange
 
 from netprobe.errors import MemoryBudgetError, OperatorError, SectorError, SpecError
 from netprobe.resources import default_memory_budget, format_bytes
@@ -45,234 +44,18 @@ __all__ = [
 
 _CODE_LIMIT = 2**62  # codes are int64; d**N must stay below this
 _TABLE_LIMIT = 2**23  # entries of the two rank tables before falling back to binary search
-_CHUNK = 2048  # states per parallel work item
 _PIECE_RTOL = 1e-14  # local entries below this fraction of the matrix norm are rounding residue
 
 
-# ----------------------------------------------------------------------------------------------
-# compiled kernels
-# ----------------------------------------------------------------------------------------------
+def _kernels():
+    """The compiled kernels (:mod:`netprobe.engines.exact.kernels`), imported on first use.
 
+    Loading numba took 0.5 of the 1.4 s (CPU) that ``import netprobe`` needed, in every command and worker
+    process, most of which never diagonalise exactly (measured; benchmarks/RESULTS.md, 2026-12-03).
+    """
+    from netprobe.engines.exact import kernels  # numba only when exact diagonalisation runs (see the docstring)
 
-@njit(cache=True)
-def _enumerate_sector(num_sites, d, q, target, cnt_flat, cnt_base, cnt_lo, cnt_span, cnt_stride, out):
-    """Depth-first walk over prefixes, pruned by the suffix counts; writes sorted codes into ``out``."""
-    k = q.shape[1]
-    choice = np.full(num_sites, -1, np.int64)
-    charge = np.zeros((num_sites + 1, k), np.int64)
-    prefix = np.zeros(num_sites + 1, np.int64)
-    pos = 0
-    j = 0
-    while j >= 0:
-        m = num_sites - j - 1
-        s = choice[j] + 1
-        found = False
-        while s < d:
-            idx = cnt_base[m]
-            ok = True
-            for c in range(k):
-                r = target[c] - charge[j, c] - q[s, c] - cnt_lo[m, c]
-                if r < 0 or r > cnt_span[m, c]:
-                    ok = False
-                    break
-                idx += r * cnt_stride[m, c]
-            if ok and cnt_flat[idx] > 0:
-                found = True
-                break
-            s += 1
-        if not found:
-            choice[j] = -1
-            j -= 1
-            continue
-        choice[j] = s
-        for c in range(k):
-            charge[j + 1, c] = charge[j, c] + q[s, c]
-        prefix[j + 1] = prefix[j] * d + s
-        if j == num_sites - 1:
-            out[pos] = prefix[num_sites]
-            pos += 1
-        else:
-            j += 1
-    return pos
-
-
-@njit(cache=True)
-def _decode(code, num_sites, d, dbits, digits):
-    if dbits > 0:
-        mask = d - 1
-        x = code
-        for j in range(num_sites - 1, -1, -1):
-            digits[j] = x & mask
-            x = x >> dbits
-        return
-    x = code
-    for j in range(num_sites - 1, -1, -1):
-        y = x // d
-        digits[j] = x - y * d
-        x = y
-
-
-@njit(cache=True)
-def _lookup(hi, lo, dm, start, rank, codes, use_tables, verify):
-    code = hi * dm + lo
-    n = codes.size
-    if use_tables:
-        s = start[hi]
-        if s < 0:
-            return -1
-        i = s + rank[lo]
-        if not verify:
-            return i
-        if i < n and codes[i] == code:
-            return i
-        return -1
-    a = 0
-    b = n
-    while a < b:
-        mid = (a + b) >> 1
-        if codes[mid] < code:
-            a = mid + 1
-        else:
-            b = mid
-    if a < n and codes[a] == code:
-        return a
-    return -1
-
-
-@njit(cache=True)
-def _piece(o, digits, op_ptr, fsite, fdhi, fdlo, famp, coef):
-    """Amplitude and (hi, lo) code shifts of piece ``o`` on a decoded state; ok is False if it vanishes."""
-    amp = coef[o]
-    dh = 0
-    dl = 0
-    for f in range(op_ptr[o], op_ptr[o + 1]):
-        c = digits[fsite[f]]
-        a = famp[f, c]
-        if a == 0:
-            return False, 0, 0, amp * 0
-        amp = amp * a
-        dh += fdhi[f, c]
-        dl += fdlo[f, c]
-    return True, dh, dl, amp
-
-
-# Pieces come grouped by image (see _compile); last[o] marks the end of a group, whose summed
-# amplitude is then looked up once. One flat loop is markedly faster than a loop over groups.
-
-
-@njit(parallel=True, cache=True)
-def _count_kernel(rows, num_sites, d, dbits, dm, op_ptr, fsite, fdhi, fdlo, famp, coef, last, verify,
-                  cstart, crank, ccodes, use_tables, counts, leaks):
-    n = rows.size
-    nops = op_ptr.size - 1
-    nchunk = (n + _CHUNK - 1) // _CHUNK
-    for ch in prange(nchunk):
-        digits = np.empty(num_sites, np.int64)
-        for r in range(ch * _CHUNK, min(n, (ch + 1) * _CHUNK)):
-            code = rows[r]
-            _decode(code, num_sites, d, dbits, digits)
-            hi = code // dm
-            lo = code - hi * dm
-            cnt = 0
-            acc = coef[0] * 0
-            sh = 0
-            sl = 0
-            for o in range(nops):
-                ok, dh, dl, amp = _piece(o, digits, op_ptr, fsite, fdhi, fdlo, famp, coef)
-                if ok:
-                    acc += amp
-                    sh = dh
-                    sl = dl
-                if last[o]:
-                    if acc != 0:
-                        i = _lookup(hi + sh, lo + sl, dm, cstart, crank, ccodes, use_tables, verify[o] != 0)
-                        if i < 0:
-                            leaks[o] = 1
-                        else:
-                            cnt += 1
-                    acc = acc * 0
-            counts[r] = cnt
-
-
-@njit(parallel=True, cache=True)
-def _fill_kernel(rows, num_sites, d, dbits, dm, op_ptr, fsite, fdhi, fdlo, famp, coef, last, verify,
-                 cstart, crank, ccodes, use_tables, ptr, ind, val, lens):
-    n = rows.size
-    nops = op_ptr.size - 1
-    nchunk = (n + _CHUNK - 1) // _CHUNK
-    for ch in prange(nchunk):
-        digits = np.empty(num_sites, np.int64)
-        for r in range(ch * _CHUNK, min(n, (ch + 1) * _CHUNK)):
-            code = rows[r]
-            _decode(code, num_sites, d, dbits, digits)
-            hi = code // dm
-            lo = code - hi * dm
-            p = ptr[r]
-            acc = coef[0] * 0
-            sh = 0
-            sl = 0
-            for o in range(nops):
-                ok, dh, dl, amp = _piece(o, digits, op_ptr, fsite, fdhi, fdlo, famp, coef)
-                if ok:
-                    acc += amp
-                    sh = dh
-                    sl = dl
-                if last[o]:
-                    if acc != 0:
-                        i = _lookup(hi + sh, lo + sl, dm, cstart, crank, ccodes, use_tables, verify[o] != 0)
-                        if i >= 0:
-                            ind[p] = i
-                            val[p] = acc
-                            p += 1
-                    acc = acc * 0
-            lens[r] = p - ptr[r]
-
-
-@njit(cache=True)
-def _compact(ptr, lens, ind, val, newptr):
-    w = 0
-    newptr[0] = 0
-    for r in range(lens.size):
-        src = ptr[r]
-        if src != w:
-            for t in range(lens[r]):
-                ind[w + t] = ind[src + t]
-                val[w + t] = val[src + t]
-        w += lens[r]
-        newptr[r + 1] = w
-    return w
-
-
-@njit(parallel=True, cache=True)
-def _apply_kernel(rows, num_sites, d, dbits, dm, op_ptr, fsite, fdhi, fdlo, famp, coef, last, verify,
-                  cstart, crank, ccodes, use_tables, x, y):
-    n = rows.size
-    nops = op_ptr.size - 1
-    nchunk = (n + _CHUNK - 1) // _CHUNK
-    for ch in prange(nchunk):
-        digits = np.empty(num_sites, np.int64)
-        for r in range(ch * _CHUNK, min(n, (ch + 1) * _CHUNK)):
-            code = rows[r]
-            _decode(code, num_sites, d, dbits, digits)
-            hi = code // dm
-            lo = code - hi * dm
-            total = y[r]  # y arrives zeroed
-            acc = coef[0] * 0
-            sh = 0
-            sl = 0
-            for o in range(nops):
-                ok, dh, dl, amp = _piece(o, digits, op_ptr, fsite, fdhi, fdlo, famp, coef)
-                if ok:
-                    acc += amp
-                    sh = dh
-                    sl = dl
-                if last[o]:
-                    if acc != 0:
-                        i = _lookup(hi + sh, lo + sl, dm, cstart, crank, ccodes, use_tables, verify[o] != 0)
-                        if i >= 0:
-                            total += acc * x[i]
-                    acc = acc * 0
-            y[r] = total
+    return kernels
 
 
 # ----------------------------------------------------------------------------------------------
@@ -393,8 +176,8 @@ class SectorBasis:
             codes = np.arange(dim, dtype=np.int64)
         else:
             codes = np.empty(dim, dtype=np.int64)
-            written = _enumerate_sector(num_sites, d, q, np.array(target, np.int64), flat, base, lo, span,
-                                        stride, codes)
+            written = _kernels().enumerate_sector(num_sites, d, q, np.array(target, np.int64), flat, base, lo,
+                                                  span, stride, codes)
             assert written == dim
         codes.setflags(write=False)
         self.codes = codes
@@ -686,7 +469,7 @@ class _Action:
         if self._counts is None:
             counts = np.zeros(self.rows.dim, np.int64)
             leaks = np.zeros(max(self.pieces.num_pieces, 1), np.int64)
-            _count_kernel(*self._kernel_args(), counts, leaks)
+            _kernels().count_kernel(*self._kernel_args(), counts, leaks)
             self._counts = counts
             self.leaked = np.unique(self.pieces.source[np.nonzero(leaks[: self.pieces.num_pieces])[0]])
         return self._counts
@@ -708,11 +491,11 @@ class _Action:
         ind = np.empty(nnz_bound, idx_dtype)
         val = np.empty(nnz_bound, self.dtype)
         lens = np.zeros(self.rows.dim, np.int64)
-        _fill_kernel(*self._kernel_args(), ptr, ind, val, lens)
+        _kernels().fill_kernel(*self._kernel_args(), ptr, ind, val, lens)
         nnz = int(lens.sum())
         if nnz < nnz_bound:  # only if the two passes rounded differently; kept for safety
             newptr = np.empty_like(ptr)
-            _compact(ptr, lens, ind, val, newptr)
+            _kernels().compact(ptr, lens, ind, val, newptr)
             ptr, ind, val = newptr, ind[:nnz].copy(), val[:nnz].copy()
         return sp.csr_matrix((val, ind, ptr), shape=(self.rows.dim, self.cols.dim), copy=False)
 
@@ -720,7 +503,7 @@ class _Action:
         out_dtype = np.result_type(self.dtype, np.asarray(x).dtype)
         x = np.ascontiguousarray(x, dtype=out_dtype)
         y = np.zeros(self.rows.dim, out_dtype)
-        _apply_kernel(*self._kernel_args(out_dtype), x, y)
+        _kernels().apply_kernel(*self._kernel_args(out_dtype), x, y)
         return y
 
 

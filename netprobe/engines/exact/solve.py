@@ -1,7 +1,8 @@
 """Exact diagonalisation in a charge sector: the Hamiltonian as a sparse matrix or a matrix-free operator,
 ground states (scipy's eigensolvers) and measurements on state vectors.
 
-Sector bases and the numba kernels that assemble operators live in :mod:`netprobe.engines.exact.basis`.
+Sector bases live in :mod:`netprobe.engines.exact.basis`, the numba kernels that assemble operators in
+:mod:`netprobe.engines.exact.kernels`.
 """
 
 from __future__ import annotations
