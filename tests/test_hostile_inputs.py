@@ -7,8 +7,6 @@ are drawn either small (the run finishes in a moment) or absurd (it must be refu
 estimate), never in between. ``-m slow`` runs a longer profile.
 """
 
-import contextlib
-import io
 import math
 import os
 import resource
@@ -19,7 +17,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from netprobe.cli import main
+from conftest import run_main
 from netprobe.errors import NetprobeError
 from netprobe.study.reading import load_study
 
@@ -93,40 +91,9 @@ def _small_enough(args) -> bool:
     return True
 
 
-def _address_space() -> int:
-    """Bytes of address space this process maps now (VmSize from /proc)."""
-    with open("/proc/self/status") as status:
-        for line in status:
-            if line.startswith("VmSize:"):
-                return int(line.split()[1]) * 1024
-    return 0
-
-
-@contextlib.contextmanager
-def _bounded_memory():
-    """Let the in-process run map at most _MEMORY_LIMIT beyond what the process maps already."""
-    soft, hard = resource.getrlimit(resource.RLIMIT_AS)
-    used = _address_space()
-    limit = used + _MEMORY_LIMIT if used else soft
-    if hard != resource.RLIM_INFINITY:
-        limit = min(limit, hard)
-    resource.setrlimit(resource.RLIMIT_AS, (limit, hard))
-    try:
-        yield
-    finally:
-        resource.setrlimit(resource.RLIMIT_AS, (soft, hard))
-
-
 def _run_in_process(args):
-    out, err = io.StringIO(), io.StringIO()
-    with _bounded_memory(), contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        try:
-            code = main(args)
-        except SystemExit as exc:  # argparse usage errors
-            code = exc.code
-        except MemoryError:  # a runaway allocation: shown as the traceback it would print
-            code, _ = 1, err.write("Traceback: MemoryError (unbounded allocation)\n")
-    return code, err.getvalue()
+    proc = run_main(*args)
+    return proc.returncode, proc.stderr
 
 
 def _check_outcome(code, stderr, args):

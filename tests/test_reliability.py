@@ -1,8 +1,10 @@
 """Hostile input (issue #13): every user mistake ends in one line on stderr and exit status 2.
 
-CLI cases run real subprocesses (as tests/test_cli.py does) under an address-space limit, so an
-input that would allocate without bound fails the test instead of the machine. Damaged state files
-are made with h5py from real files written by netprobe.
+CLI cases run through ``netprobe.cli.main`` in this process (``conftest.run_main``) under an
+address-space limit, so an input that would allocate without bound fails the test instead of the
+machine; the cases that need a process of their own (a closed standard output, a named pipe, a deep
+recursion, a scheduler that must not be waited for) run real subprocesses under the same limit and a
+timeout. Damaged state files are made with h5py from real files written by netprobe.
 """
 
 import json
@@ -15,6 +17,7 @@ import h5py
 import numpy as np
 import pytest
 
+from conftest import run_main
 from netprobe.engines.dmrg import LadderSettings, SweepSettings, run_ladder
 from netprobe.errors import StateFileError
 from netprobe.engines.mps import random_state
@@ -30,7 +33,7 @@ def _limit_memory():
     resource.setrlimit(resource.RLIMIT_AS, (_MEMORY_LIMIT, _MEMORY_LIMIT))
 
 
-def run_cli(*args, cwd=None, close_stdout=False):
+def run_cli(*args, close_stdout=False):
     env = dict(os.environ, PYTHONUNBUFFERED="1", OMP_NUM_THREADS="1")
 
     def setup():
@@ -40,7 +43,7 @@ def run_cli(*args, cwd=None, close_stdout=False):
 
     return subprocess.run([sys.executable, "-m", "netprobe", *args], capture_output=not close_stdout,
                           stderr=subprocess.PIPE if close_stdout else None, text=True, env=env,
-                          timeout=_TIMEOUT, preexec_fn=setup, cwd=cwd)
+                          timeout=_TIMEOUT, preexec_fn=setup)
 
 
 def assert_one_line_error(proc, match):
@@ -69,12 +72,12 @@ def _model(tmp_path, name="m.toml", **replace):
     ("run", "heisenberg", "--set", "length=40", "--bond-dimension", "2000000"),
 ])
 def test_oversized_requests_are_refused_with_the_estimate(args):
-    assert_one_line_error(run_cli(*args), "over the memory budget")
+    assert_one_line_error(run_main(*args), "over the memory budget")
 
 
 @pytest.mark.parametrize("length", ["1000000000", "1e30"])
 def test_oversized_length_in_a_model_file(tmp_path, length):
-    proc = run_cli("check", _model(tmp_path, **{"length = 16": f"length = {length}"}))
+    proc = run_main("check", _model(tmp_path, **{"length = 16": f"length = {length}"}))
     assert_one_line_error(proc, "over the memory budget")
     assert "--set length=" in proc.stderr  # says what to shrink
 
@@ -88,14 +91,14 @@ def _study(tmp_path, body, name="s.toml"):
 def test_study_grid_too_large_is_refused(tmp_path):
     spec = _study(tmp_path, '[study]\nname = "big"\nmodel = "tfim"\nengine = "exact"\n'
                             '[grid]\nh = { start = 0.5, stop = 1.5, num = 100000000 }\n')
-    assert_one_line_error(run_cli("study", spec, "--out", str(tmp_path / "out")), "over the memory budget")
+    assert_one_line_error(run_main("study", spec, "--out", str(tmp_path / "out")), "over the memory budget")
 
 
 def test_study_with_an_impossible_point_is_refused_at_the_start(tmp_path):
     spec = _study(tmp_path, '[study]\nname = "ex400"\nmodel = "heisenberg"\nengine = "exact"\n'
                             '[set]\nlength = 400\n[grid]\nJ1 = { values = [1.0, 2.0] }\n')
     out = tmp_path / "out"
-    assert_one_line_error(run_cli("study", spec, "--out", str(out)), "exact diagonalisation of 400 sites")
+    assert_one_line_error(run_main("study", spec, "--out", str(out)), "exact diagonalisation of 400 sites")
     assert not out.exists()  # refused before the ledger was created
 
 
@@ -112,47 +115,47 @@ def test_term_that_is_not_a_table(tmp_path):
     text = TFIM[:TFIM.index("[[term]]")]
     path = tmp_path / "t.toml"
     path.write_text("term = [1, 2]\n" + text)
-    assert_one_line_error(run_cli("check", str(path)), "not a table")
+    assert_one_line_error(run_main("check", str(path)), "not a table")
 
 
 @pytest.mark.parametrize("value", ["nan", "inf", "1e400"])
 def test_non_finite_couplings(tmp_path, value):
-    proc = run_cli("check", _model(tmp_path, **{"h = 1.0": f"h = {value}"}))
+    proc = run_main("check", _model(tmp_path, **{"h = 1.0": f"h = {value}"}))
     assert_one_line_error(proc, "not a finite number")
     # through --set the value is an expression: a literal beyond double precision is named as such
-    assert_one_line_error(run_cli("check", "tfim", "--set", f"h={value}"),
+    assert_one_line_error(run_main("check", "tfim", "--set", f"h={value}"),
                           "too large for double precision" if value == "1e400" else "not a finite number")
 
 
 def test_paths_that_are_not_regular_files(tmp_path):
     folder = tmp_path / "folder.toml"
     folder.mkdir()
-    assert_one_line_error(run_cli("check", str(folder)), "is a folder")
+    assert_one_line_error(run_main("check", str(folder)), "is a folder")
     fifo = tmp_path / "pipe.toml"
     os.mkfifo(fifo)
     assert_one_line_error(run_cli("check", str(fifo)), "named pipe")
     (tmp_path / "a.toml").symlink_to(tmp_path / "b.toml")
     (tmp_path / "b.toml").symlink_to(tmp_path / "a.toml")
-    assert_one_line_error(run_cli("check", str(tmp_path / "a.toml")), "symbolic link that loops")
+    assert_one_line_error(run_main("check", str(tmp_path / "a.toml")), "symbolic link that loops")
 
 
 def test_invalid_utf8_is_named_with_its_offset(tmp_path):
     path = tmp_path / "bad.toml"
     path.write_bytes(b'[model]\nname = "\xff"\n')
-    assert_one_line_error(run_cli("check", str(path)), "byte offset 16")
+    assert_one_line_error(run_main("check", str(path)), "byte offset 16")
 
 
 # --- options ------------------------------------------------------------------------------------------
 
 
 def test_negative_seed():
-    assert_one_line_error(run_cli("run", "tfim", "--set", "length=4", "--bond-dimension", "4", "--seed", "-1"),
+    assert_one_line_error(run_main("run", "tfim", "--set", "length=4", "--bond-dimension", "4", "--seed", "-1"),
                           "--seed")
 
 
 @pytest.mark.parametrize("budget", ["nan", "inf", "0"])
 def test_memory_budget_must_be_positive_and_finite(budget):
-    proc = run_cli("probe", "tfim", "--set", "length=4", "--engine", "exact", "--region", "half:columns=2",
+    proc = run_main("probe", "tfim", "--set", "length=4", "--engine", "exact", "--region", "half:columns=2",
                    "--memory-budget", budget)
     assert_one_line_error(proc, "--memory-budget")
 
@@ -160,12 +163,12 @@ def test_memory_budget_must_be_positive_and_finite(budget):
 def test_out_naming_a_file_or_an_unwritable_place(tmp_path):
     taken = tmp_path / "taken"
     taken.write_text("x")
-    assert_one_line_error(run_cli("run", "tfim", "--set", "length=4", "--bond-dimension", "4", "--out", str(taken)),
+    assert_one_line_error(run_main("run", "tfim", "--set", "length=4", "--bond-dimension", "4", "--out", str(taken)),
                           "existing file")
     study = str(models_directory() / "studies" / "tfim_sweep.toml")
-    assert_one_line_error(run_cli("study", study, "--out", str(taken)), "existing file")
+    assert_one_line_error(run_main("study", study, "--out", str(taken)), "existing file")
     # /proc refuses new entries even to root, where permission bits would not
-    assert_one_line_error(run_cli("run", "tfim", "--set", "length=4", "--bond-dimension", "4", "--out",
+    assert_one_line_error(run_main("run", "tfim", "--set", "length=4", "--bond-dimension", "4", "--out",
                                   "/proc/netprobe-out"), "cannot write")
 
 
@@ -219,7 +222,7 @@ def test_damaged_state_files_are_named(saved_file, tmp_path, damage, match):
         damage(f)
     with pytest.raises(StateFileError, match=f"state file .*copy.h5 is damaged or incomplete: .*{match}"):
         store.load_state(path)
-    assert_one_line_error(run_cli("measure", str(path)), "is damaged or incomplete")
+    assert_one_line_error(run_main("measure", str(path)), "is damaged or incomplete")
 
 
 def test_one_bit_flip_in_tensor_data_is_detected(saved_file, tmp_path):
@@ -233,7 +236,7 @@ def test_one_bit_flip_in_tensor_data_is_detected(saved_file, tmp_path):
     path.write_bytes(bytes(raw))
     with pytest.raises(StateFileError, match="checksum"):
         store.load_state(path)
-    assert_one_line_error(run_cli("measure", str(path)), "is damaged or incomplete")
+    assert_one_line_error(run_main("measure", str(path)), "is damaged or incomplete")
 
 
 def test_version_1_files_without_checksums_stay_readable(saved_file, tmp_path, monkeypatch):
