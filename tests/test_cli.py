@@ -6,7 +6,7 @@ import subprocess
 import sys
 
 import pytest
-from conftest import run_cli
+from conftest import run_cli, run_main
 
 
 def assert_one_line_error(proc, match):
@@ -81,20 +81,20 @@ def test_exact_text_output():
     ],
 )
 def test_bad_input_is_one_line_exit_2(args, match):
-    assert_one_line_error(run_cli(*args), match)
+    assert_one_line_error(run_main(*args), match)
 
 
 def test_malformed_model_file(tmp_path):
     bad = tmp_path / "bad.toml"
     bad.write_text("[model\nname = 'x'\n")
-    assert_one_line_error(run_cli("check", str(bad)), "not valid TOML")
+    assert_one_line_error(run_main("check", str(bad)), "not valid TOML")
     nonherm = tmp_path / "nonherm.toml"
     nonherm.write_text(
         '[model]\nname = "nh"\nsite = "fermion"\nconserved = ["N"]\n'
         '[parameters]\nlattice = "chain"\nlength = 4\ncircumference = 1\n[sector]\nN = 2\n'
         '[[term]]\non = "nn"\nops = "cdag c"\ncoupling = "1j"\n'
     )
-    assert_one_line_error(run_cli("check", str(nonherm)), "not Hermitian")
+    assert_one_line_error(run_main("check", str(nonherm)), "not Hermitian")
 
 
 def test_cli_import_leaves_figures_kernels_and_clusters_unloaded():

@@ -9,7 +9,7 @@ import sys
 
 import h5py
 import pytest
-from conftest import run_cli
+from conftest import run_cli, run_main
 
 from test_cli import assert_one_line_error
 
@@ -72,15 +72,15 @@ def test_killed_run_resumes_to_the_same_energy(tmp_path):
     ],
 )
 def test_run_bad_input(args, match):
-    assert_one_line_error(run_cli(*args), match)
+    assert_one_line_error(run_main(*args), match)
 
 
 def test_measure_rejects_foreign_and_unreadable_files(tmp_path):
     text = tmp_path / "notes.h5"
     text.write_text("not a state\n")
-    assert_one_line_error(run_cli("measure", str(text)), str(text))
+    assert_one_line_error(run_main("measure", str(text)), str(text))
     foreign = tmp_path / "foreign.h5"
     with h5py.File(foreign, "w") as fh:
         fh["data"] = [1, 2, 3]
-    assert_one_line_error(run_cli("measure", str(foreign)), str(foreign))
-    assert_one_line_error(run_cli("measure", str(tmp_path / "missing.h5")), "missing.h5")
+    assert_one_line_error(run_main("measure", str(foreign)), str(foreign))
+    assert_one_line_error(run_main("measure", str(tmp_path / "missing.h5")), "missing.h5")

@@ -4,7 +4,7 @@ import json
 import math
 
 import pytest
-from conftest import run_cli
+from conftest import run_cli, run_main
 
 from test_cli import assert_one_line_error
 
@@ -43,7 +43,7 @@ def test_region_over_memory_budget_is_refused(tmp_path):
     run_cli("run", "heisenberg", "--set", "lattice=square", "--set", "length=6", "--set", "circumference=5",
             "--bond-dimension", "32", "--sweeps", "2", "--out", str(out), check=True)
     state = out / "stage1_D32.h5"
-    proc = run_cli("probe", str(state), "--region", "disk:radius=1.6", "--memory-budget", "0.000001")
+    proc = run_main("probe", str(state), "--region", "disk:radius=1.6", "--memory-budget", "0.000001")
     assert_one_line_error(proc, "memory budget")
     assert "GiB" in proc.stderr or "MiB" in proc.stderr or "KiB" in proc.stderr
 
@@ -59,7 +59,7 @@ def test_region_over_memory_budget_is_refused(tmp_path):
     ],
 )
 def test_probe_bad_input(args, match):
-    assert_one_line_error(run_cli(*args), match)
+    assert_one_line_error(run_main(*args), match)
 
 
 def test_regions_plot_and_json(tmp_path):

@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 import pytest
-from conftest import kron_all, run_cli, tol
+from conftest import kron_all, run_cli, run_main, tol
 
 from netprobe.pipeline.cut import (_mode_permutation, column_cut, exact_cut, gaussian_cut, mps_cut, signed_permutation,
                           translation_expectation_gaussian)
@@ -257,7 +257,7 @@ def test_edge_command_ladder_json_and_plot(tmp_path):
 ])
 def test_edge_command_user_errors(args, match):
     model = "hubbard" if "U=1" in args else "chern_square"
-    proc = run_cli("edge", model, "--engine", "gaussian", *args)
+    proc = run_main("edge", model, "--engine", "gaussian", *args)
     assert_one_line_error(proc, match)
 
 

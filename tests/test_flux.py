@@ -8,7 +8,7 @@ Phys. Rev. Lett. 61, 2015 (1988): |C| = 1 for |M| < 3 sqrt(3) |t2 sin phi| (here
 import math
 
 import pytest
-from conftest import run_cli
+from conftest import run_main
 
 from netprobe.errors import SpecError
 from netprobe.pipeline.flux import thread_flux
@@ -43,4 +43,4 @@ def test_flux_needs_a_twist_and_a_charge():
 
 
 def test_flux_cli_bad_input():
-    assert_one_line_error(run_cli("flux", "heisenberg", "--steps", "2"), "no 'twist' parameter")
+    assert_one_line_error(run_main("flux", "heisenberg", "--steps", "2"), "no 'twist' parameter")

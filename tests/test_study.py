@@ -15,6 +15,7 @@ import time
 import numpy as np
 import pytest
 
+from conftest import run_main
 from netprobe.errors import SpecError
 from netprobe.study.reading import parse_study
 from netprobe.study.ledger import Ledger, ledger_path
@@ -429,7 +430,7 @@ def test_cli_study_runs_and_reports_status(small_study):
     assert "3/3 done" in run.stderr  # progress on standard error
     after = json.loads(netprobe_cli("study", spec, "--out", out, "--status", "--json").stdout)
     assert (after["pending"], after["running"], after["done"], after["failed"]) == (0, 0, 3, 0)
-    text = netprobe_cli("study", spec, "--out", out, "--status")
+    text = run_main("study", spec, "--out", out, "--status")
     assert text.returncode == 0 and "3/3 done" in text.stdout
     with Ledger(ledger_path(out)) as ledger:
         for row in ledger.tasks():
@@ -452,7 +453,7 @@ def test_cli_report_writes_tables_plots_and_json(small_study):
         path = out / "report" / name
         assert path.is_file() and path.stat().st_size > 0
     assert (out / "report" / "phase_mean_X.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature
-    text = netprobe_cli("report", out, "--no-plots")
+    text = run_main("report", out, "--no-plots")
     assert text.returncode == 0 and "transition in h" in text.stdout
 
 
@@ -460,14 +461,14 @@ def test_cli_bad_input_is_one_line_and_keeps_the_ledger(small_study, tmp_path):
     spec, out, _, _ = small_study
     before = _snapshot(out)
     bad_grid = write_study(tmp_path, TFIM_EXACT.format(values="[0.5]").replace("h = {", "hx = {"), "bad.toml")
-    proc = netprobe_cli("study", bad_grid, "--out", out)
+    proc = run_main("study", bad_grid, "--out", out)
     assert_one_line_error(proc, "'hx' is not a parameter of model 'tfim'")
     empty = write_study(tmp_path, TFIM_EXACT.format(values="[]"), "empty.toml")
-    assert_one_line_error(netprobe_cli("study", empty, "--out", out), "the grid is empty")
+    assert_one_line_error(run_main("study", empty, "--out", out), "the grid is empty")
     with socket.socket() as s:  # a port that nothing listens on
         s.bind(("127.0.0.1", 0))
         port = s.getsockname()[1]
     proc = netprobe_cli("study", spec, "--out", out, "--scheduler", f"tcp://127.0.0.1:{port}")
     assert_one_line_error(proc, "cannot reach the Dask scheduler")
-    assert_one_line_error(netprobe_cli("report", tmp_path / "nothing"), "holds no study ledger")
+    assert_one_line_error(run_main("report", tmp_path / "nothing"), "holds no study ledger")
     assert _snapshot(out) == before  # every row and every attempt as it was
