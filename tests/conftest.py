@@ -1,4 +1,8 @@
-"""Shared test helpers: tolerances and small dense references built independently of netprobe."""
+"""Shared test helpers: tolerances, command-line runners and one-line error checks.
+
+References built independently of netprobe (dense Hamiltonians, exact solutions, free fermions) live in
+``references.py``.
+"""
 
 import contextlib
 import io
@@ -6,12 +10,12 @@ import os
 import resource
 import subprocess
 import sys
-from functools import reduce
 
 import numpy as np
 import pytest
 
 from netprobe.cli import main
+from references import dense_from_products, kron_all  # noqa: F401 (importable from conftest as before)
 
 EPS = np.finfo(float).eps
 
@@ -25,23 +29,6 @@ def tol(scale: float = 1.0, factor: float = 1e3) -> float:
     return factor * EPS * max(1.0, abs(scale))
 
 
-def kron_all(mats):
-    """Kronecker product, first factor leftmost (site 0 most significant)."""
-    return reduce(np.kron, mats, np.array([[1.0]]))
-
-
-def dense_from_products(ham):
-    """Full-space matrix of a netprobe Hamiltonian built by Kronecker products (small N only)."""
-    n, d = ham.num_sites, ham.space.dim
-    out = np.zeros((d**n, d**n), dtype=complex)
-    for p in ham.products:
-        ops = [np.eye(d)] * n
-        for s, m in zip(p.sites, p.matrices):
-            ops[s] = m
-        out += p.coefficient * kron_all(ops)
-    return out
-
-
 def run_cli(*args, check=False, timeout=600):
     """Run the netprobe command in a real subprocess; returns CompletedProcess (text)."""
     env = dict(os.environ, PYTHONUNBUFFERED="1")
@@ -50,6 +37,15 @@ def run_cli(*args, check=False, timeout=600):
     if check and proc.returncode != 0:
         raise AssertionError(f"netprobe {' '.join(args)} failed ({proc.returncode}):\n{proc.stderr}")
     return proc
+
+
+def assert_one_line_error(proc, match):
+    """A user error: exit status 2 and one line on standard error that contains ``match``, no traceback."""
+    assert proc.returncode == 2, proc.stderr
+    assert "Traceback" not in proc.stderr
+    lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1, proc.stderr
+    assert match in lines[0], lines[0]
 
 
 IN_PROCESS_MEMORY = 3 * 2**30  # address space an in-process command may map: far above a small run

@@ -6,15 +6,7 @@ import subprocess
 import sys
 
 import pytest
-from conftest import run_cli, run_main
-
-
-def assert_one_line_error(proc, match):
-    assert proc.returncode == 2, proc.stderr
-    lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
-    assert len(lines) == 1, proc.stderr
-    assert "Traceback" not in proc.stderr
-    assert match in lines[0], lines[0]
+from conftest import assert_one_line_error, run_cli, run_main
 
 
 def test_models_lists_every_bundled_model():

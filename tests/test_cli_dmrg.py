@@ -9,9 +9,8 @@ import sys
 
 import h5py
 import pytest
-from conftest import run_cli, run_main
+from conftest import assert_one_line_error, run_cli, run_main
 
-from test_cli import assert_one_line_error
 
 STAGE_KEYS = ("bond_dimension", "energy", "discarded_weight", "variance", "sweeps", "seconds", "state_file")
 

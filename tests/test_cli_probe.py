@@ -4,12 +4,11 @@ import json
 import math
 
 import pytest
-from conftest import run_cli, run_main
+from conftest import assert_one_line_error, run_cli, run_main
 from netprobe.engines.mps import random_state
 from netprobe.engines.mps.store import save_state
 from netprobe.model.spec import load_model
 
-from test_cli import assert_one_line_error
 
 KEYS = ("J", "c_minus", "gamma", "cmi", "entropies", "regions", "engine")
 

@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 import pytest
-from conftest import kron_all, run_cli, run_main, tol
+from conftest import assert_one_line_error, kron_all, run_cli, run_main, tol
 
 from netprobe.pipeline.cut import (_mode_permutation, column_cut, exact_cut, gaussian_cut, mps_cut, signed_permutation,
                           translation_expectation_gaussian)
@@ -15,7 +15,6 @@ from netprobe.errors import LatticeError
 from netprobe.engines.exact import ground_state
 from netprobe.engines.gaussian import gaussian_state
 from netprobe.model.spec import load_model, load_spec
-from test_cli import assert_one_line_error
 
 # DMRG at a bond dimension that holds the whole Schmidt spectrum of the small cylinders below, with
 # energy tolerance 1e-12: the state error is then ~1e-6 in norm (square root of the energy error over

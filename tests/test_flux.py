@@ -8,12 +8,11 @@ Phys. Rev. Lett. 61, 2015 (1988): |C| = 1 for |M| < 3 sqrt(3) |t2 sin phi| (here
 import math
 
 import pytest
-from conftest import run_main
+from conftest import assert_one_line_error, run_main
 
 from netprobe.errors import SpecError
 from netprobe.pipeline.flux import thread_flux
 
-from test_cli import assert_one_line_error
 
 BASE = {"length": "6", "circumference": "3", "t2": "0.3", "phi": "pi/2"}
 

@@ -15,7 +15,7 @@ from netprobe.model.sites import site_space
 from netprobe.model.spec import load_model
 
 from conftest import tol
-from test_rdm import filled_projector, single_particle_matrix, slater_vector
+from references import filled_projector, single_particle_matrix, slater_vector
 
 SPIN = site_space("spin-1/2")
 FERMION = site_space("fermion")

@@ -17,7 +17,7 @@ import h5py
 import numpy as np
 import pytest
 
-from conftest import run_main
+from conftest import assert_one_line_error, run_main
 from netprobe.engines.dmrg import LadderSettings, SweepSettings, run_ladder
 from netprobe.errors import StateFileError
 from netprobe.engines.mps import random_state
@@ -44,14 +44,6 @@ def run_cli(*args, close_stdout=False):
     return subprocess.run([sys.executable, "-m", "netprobe", *args], capture_output=not close_stdout,
                           stderr=subprocess.PIPE if close_stdout else None, text=True, env=env,
                           timeout=_TIMEOUT, preexec_fn=setup)
-
-
-def assert_one_line_error(proc, match):
-    assert proc.returncode == 2, proc.stderr
-    assert "Traceback" not in proc.stderr
-    lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
-    assert len(lines) == 1, proc.stderr
-    assert match in lines[0], lines[0]
 
 
 def _model(tmp_path, name="m.toml", **replace):

@@ -15,7 +15,8 @@ import time
 import numpy as np
 import pytest
 
-from conftest import run_main
+from conftest import assert_one_line_error, run_main
+from references import pfeuty_chain
 from netprobe.errors import SpecError
 from netprobe.study.reading import parse_study
 from netprobe.study.ledger import Ledger, ledger_path
@@ -40,14 +41,6 @@ def netprobe_popen(*args, **kwargs):
     """Start ``netprobe ARGS`` as a real subprocess without waiting."""
     env = dict(os.environ, PYTHONUNBUFFERED="1")
     return subprocess.Popen([sys.executable, "-m", "netprobe", *map(str, args)], env=env, **kwargs)
-
-
-def assert_one_line_error(proc, match):
-    assert proc.returncode == 2, proc.stderr
-    lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
-    assert len(lines) == 1, proc.stderr
-    assert "Traceback" not in proc.stderr
-    assert match in lines[0], lines[0]
 
 
 TFIM_EXACT = """
@@ -77,18 +70,6 @@ def write_study(folder, text, name="study.toml"):
     path = folder / name
     path.write_text(text)
     return path
-
-
-def pfeuty_chain(length, h, coupling=1.0):
-    """Open transverse-field Ising chain H = -J sum Z Z - h sum X from its free-fermion solution.
-
-    The quasiparticle energies are twice the singular values s_k of the bidiagonal matrix with h on the
-    diagonal and J above it; E0 = -sum s_k, and <X> per site = (1/L) sum_k ds_k/dh = tr(U V^T)/L
-    (Pfeuty, Ann. Phys. 57, 79 (1970); Lieb, Schultz, Mattis, Ann. Phys. 16, 407 (1961)).
-    """
-    t = np.diag(np.full(length, float(h))) + np.diag(np.full(length - 1, float(coupling)), 1)
-    u, s, vh = np.linalg.svd(t)
-    return -float(s.sum()), float(np.trace(u @ vh)) / length
 
 
 # ---- the description -------------------------------------------------------------------------------

@@ -13,7 +13,8 @@ import time
 
 import numpy as np
 import pytest
-from test_study import TFIM_EXACT, netprobe_cli, netprobe_popen, pfeuty_chain, write_study
+from references import pfeuty_chain
+from test_study import TFIM_EXACT, netprobe_cli, netprobe_popen, write_study
 
 from netprobe.model.spec import load_model
 from netprobe.engines.mps.store import load_state
