@@ -8,6 +8,7 @@ eigenvalue to ~1e-10 relative or better, and we allow 1e-8 absolute for a few te
 """
 
 import dataclasses
+import functools
 import math
 from functools import reduce
 
@@ -380,6 +381,7 @@ def test_spinful_fermion_cylinder_sectors_at_zero_interaction():
 # ---------------------------------------------------------------------------------------------
 
 
+@functools.lru_cache(maxsize=1)  # the dense reference is built once for the tests below
 def _j1j2_cylinder():
     model = load_model("heisenberg", {"lattice": "square", "length": "3", "circumference": "4", "J2": "0.5"})
     n = model.num_sites
