@@ -68,8 +68,8 @@ def _check_png(path: str):
 def _plots():
     """:mod:`netprobe.output.plots`, imported when a command draws a figure.
 
-    Importing matplotlib took 0.8 of the 2.3 s (CPU) that ``import netprobe.cli`` needed, on every command,
-    most of which draw nothing (measured; benchmarks/RESULTS.md, 2026-12-03).
+    With matplotlib and numba loaded up front, ``import netprobe.cli`` took 2.5 s CPU on every command, most of
+    which draw nothing; without them 1.1 s (``python -m benchmarks.startup``; benchmarks/RESULTS.md, 2026-12-03).
     """
     from netprobe.output import plots  # matplotlib only when a figure is drawn (see the docstring)
 

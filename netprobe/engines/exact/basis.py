@@ -50,8 +50,9 @@ _PIECE_RTOL = 1e-14  # local entries below this fraction of the matrix norm are 
 def _kernels():
     """The compiled kernels (:mod:`netprobe.engines.exact.kernels`), imported on first use.
 
-    Loading numba took 0.5 of the 1.4 s (CPU) that ``import netprobe`` needed, in every command and worker
-    process, most of which never diagonalise exactly (measured; benchmarks/RESULTS.md, 2026-12-03).
+    numba alone takes 0.6-0.75 s CPU to import; with it and matplotlib loaded up front, ``import netprobe.cli``
+    took 2.5 s CPU in every command and worker process, most of which never diagonalise exactly, without them
+    1.1 s (``python -m benchmarks.startup``; benchmarks/RESULTS.md, 2026-12-03).
     """
     from netprobe.engines.exact import kernels  # numba only when exact diagonalisation runs (see the docstring)
 
