@@ -14,7 +14,7 @@ import math
 import numpy as np
 import pytest
 
-from conftest import run_cli
+from conftest import assert_one_line_error, run_cli, run_main
 from netprobe.engines import SolveSettings, solve
 from netprobe.fitting import extrapolate_in_size, extrapolate_to_zero
 from netprobe.pipeline.assess import assess_states
@@ -166,12 +166,9 @@ def test_toric_code_gamma_ln2_at_every_size_and_not_chiral():
 
 
 def test_assess_refuses_when_no_region_fits():
-    proc = run_cli("assess", "haldane", "--engine", "gaussian", "--set", "length=2", "--set", "circumference=3",
-                   "--max-sites", "8", "--json")
-    assert proc.returncode == 2
-    lines = proc.stderr.strip().splitlines()
-    assert len(lines) == 1 and "no three-sector region" in lines[0]
-    assert "Traceback" not in proc.stderr
+    proc = run_main("assess", "haldane", "--engine", "gaussian", "--set", "length=2", "--set", "circumference=3",
+                    "--max-sites", "8", "--json")
+    assert_one_line_error(proc, "no three-sector region")
 
 
 def test_study_reports_assessed_c_minus_with_error(tmp_path):
