@@ -85,11 +85,12 @@ def _default_runner():
 
 
 def _limit_threads(threads: int | None) -> None:
-    if threads is None:
+    numba = sys.modules.get("numba")
+    if threads is None or numba is None:
+        # a numba loaded later (by the exact engine) reads NUMBA_NUM_THREADS, set for this worker at spawn;
+        # importing it here only for the cap cost every worker 0.6-0.75 s CPU (benchmarks/RESULTS.md, 2026-12-03)
         return
-    with contextlib.suppress(Exception):  # numba is optional for the threads cap, never for correctness
-        import numba
-
+    with contextlib.suppress(Exception):  # the threads cap is never needed for correctness
         numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
 
 
