@@ -42,6 +42,7 @@ from netprobe.errors import LatticeError, NetprobeError
 from netprobe.resources import check_memory_budget
 from netprobe.model.sites import SiteSpace
 from netprobe.tensor import contract, diag_multiply, svd
+from netprobe.tensor.entropy import entropy_from_weights, renyi_from_weights
 
 __all__ = [
     "PROBES",
@@ -83,31 +84,6 @@ _ABC = ("A", "B", "C")
 # --------------------------------------------------------------------------------------------------
 # Entropies
 # --------------------------------------------------------------------------------------------------
-
-
-def _normalised(weights) -> np.ndarray:
-    w = np.asarray(weights, dtype=float).ravel()
-    w = np.where(w > 0, w, 0.0)  # negative eigenvalues are rounding of zero ones
-    total = w.sum()
-    return w / total if total > 0 else w
-
-
-def entropy_from_weights(weights) -> float:
-    """Von Neumann entropy ``-sum w ln w`` of a spectrum (normalised to unit sum, negatives dropped)."""
-    w = _normalised(weights)
-    w = w[w > 0]
-    return float(-np.sum(w * np.log(w)))
-
-
-def renyi_from_weights(weights, order: float) -> float:
-    """Renyi entropy ``ln(sum w^n) / (1 - n)``; order 1 is von Neumann, ``inf`` gives ``-ln max w``."""
-    w = _normalised(weights)
-    w = w[w > 0]
-    if order == 1:
-        return entropy_from_weights(w)
-    if math.isinf(order):
-        return float(-np.log(w.max()))
-    return float(np.log(np.sum(w**order)) / (1.0 - order))
 
 
 def von_neumann_entropy(rho: np.ndarray) -> float:

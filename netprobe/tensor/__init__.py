@@ -1,5 +1,5 @@
 """Block-sparse tensors with abelian charges: charges and legs (``legs``), the block tensor and its index
-plans (``blocks``), contraction and factorisations (``linalg``).
+plans (``blocks``), contraction and factorisations (``linalg``), entropies of a spectrum (``entropy``).
 """
 
 from netprobe.tensor.legs import (  # noqa: F401 (re-exported)
@@ -11,6 +11,9 @@ from netprobe.tensor.blocks import (  # noqa: F401 (re-exported)
 from netprobe.tensor.linalg import (  # noqa: F401 (re-exported)
     Spectrum, SvdInfo, contract, svd, qr, lq,
     eigh, trace, diag_multiply, BlockLayout,
+)
+from netprobe.tensor.entropy import (  # noqa: F401 (re-exported)
+    entropy_from_weights, renyi_from_weights,
 )
 
 __all__ = [
@@ -31,4 +34,6 @@ __all__ = [
     "trace",
     "diag_multiply",
     "BlockLayout",
+    "entropy_from_weights",
+    "renyi_from_weights",
 ]

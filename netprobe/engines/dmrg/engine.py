@@ -49,6 +49,7 @@ from netprobe.engines.dmrg.solvers import check_eigensolver, lowest_eigenpair
 from netprobe.errors import NetprobeError
 from netprobe.engines.mps import MPS, BlockMPO, random_state
 from netprobe.tensor import BlockLayout, BlockTensor, Leg, contract, diag_multiply, eigh, lq, matmul_tally, qr, svd
+from netprobe.tensor.entropy import entropy_from_weights
 from netprobe.engines.mps.mpo import build_mpo
 
 __all__ = ["SweepSettings", "SweepRecord", "DmrgResult", "GroundStateSearch", "ConvergenceWarning",
@@ -397,15 +398,6 @@ def _keep_largest(spectrum, u: BlockTensor, max_dim: int, max_discarded: float) 
     return BlockTensor((u.legs[0], u.legs[1], leg), None, u.rule, blocks)
 
 
-def _entropy(values) -> float:
-    p = np.asarray(values, float) ** 2
-    total = p.sum()
-    if total <= 0:
-        return 0.0
-    p = p[p > 0] / total
-    return float(-np.sum(p * np.log(p)))
-
-
 class GroundStateSearch:
     """A two-site DMRG ground-state search: :meth:`step` does one sweep, :meth:`finish` sweeps to convergence.
 
@@ -587,7 +579,7 @@ class GroundStateSearch:
                 centre = right if direction > 0 else left
                 axes = ([0], [1, 2]) if direction > 0 else ([0, 1], [2])
                 values = svd(centre, *axes)[1].values
-            stats["entropy"] = _entropy(values)
+            stats["entropy"] = entropy_from_weights(np.asarray(values, float) ** 2)
 
     def _expand_site(self, a, op, direction, chi, alpha):
         """Subspace expansion of the optimised site tensor ``a``: the kept isometry and the centre factor.
@@ -636,7 +628,7 @@ class GroundStateSearch:
         stats["energy"] = pair.value
         a = layout.unpack(pair.vector)
         if direction < 0 and i == self.state.num_sites // 2:
-            stats["entropy"] = _entropy(svd(a, [0], [1, 2])[1].values)
+            stats["entropy"] = entropy_from_weights(svd(a, [0], [1, 2])[1].values ** 2)
         if noise > 0 and ((direction > 0 and i + 1 < self.state.num_sites) or (direction < 0 and i > 0)):
             u, centre, discarded = self._expand_site(a, op, direction, chi, noise)
             stats["discarded"] = max(stats["discarded"], discarded)

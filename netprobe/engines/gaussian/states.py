@@ -313,10 +313,6 @@ class _Probes:
             return 0.0  # J vanishes when one part is empty (rho_ABC factorises)
         return self._commutator(self._units(np.sort(ra)), self._units(np.sort(rb)), self._units(np.sort(rc)))
 
-    def chiral_central_charge(self, a: Iterable[int], b: Iterable[int], c: Iterable[int]) -> float:
-        """The estimate ``c_- = 3 J / pi`` from a counterclockwise three-sector disk."""
-        return 3.0 * self.modular_commutator(a, b, c) / math.pi
-
 
 def _sector_blocks(form: QuadraticForm, hamiltonian, label: str):
     """(modes, particle number or None) for each block the conserved charges fix separately."""
