@@ -31,7 +31,6 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass, field
-from types import MappingProxyType
 from typing import Mapping, Sequence
 
 import numpy as np
@@ -41,11 +40,12 @@ from netprobe import rdm
 from netprobe.errors import LatticeError, NetprobeError
 from netprobe.resources import check_memory_budget
 from netprobe.model.sites import SiteSpace
+from netprobe.probes.registry import probes_of_kind
 from netprobe.tensor import contract, diag_multiply, svd
 from netprobe.tensor.entropy import entropy_from_weights, renyi_from_weights
 
 __all__ = [
-    "PROBES",
+    "MANY_BODY_PROBES",
     "DEFAULT_EPS",
     "ModularCommutator",
     "ProbeReport",
@@ -67,13 +67,8 @@ __all__ = [
     "probe_state",
 ]
 
-#: Probes by name, with what each needs.
-PROBES: Mapping[str, str] = MappingProxyType({
-    "S": "von Neumann entropy of every part and of their union",
-    "CMI": "conditional mutual information I(A:C|B); needs parts A, B, C",
-    "J": "modular commutator J(A, B, C) and c- = 3 J / pi; needs parts A, B, C",
-    "TEE": "Kitaev-Preskill combination (= -gamma) and gamma; needs parts A, B, C",
-})
+#: The probes these kernels evaluate (the many-body ones of the registry :data:`PROBES`).
+MANY_BODY_PROBES = probes_of_kind("many-body")
 
 #: Default kernel floor of the modular Hamiltonians, relative to the largest eigenvalue.
 DEFAULT_EPS = 1e-12
@@ -454,10 +449,10 @@ def _check_probes(probes) -> tuple[str, ...]:
     if isinstance(probes, str):
         probes = (probes,)
     probes = tuple(probes)
-    unknown = [p for p in probes if p not in PROBES]
+    unknown = [p for p in probes if p not in MANY_BODY_PROBES]
     if unknown or not probes:
         named = ", ".join(map(repr, unknown)) or "(none given)"
-        raise NetprobeError(f"unknown probe(s) {named}; valid probes: {', '.join(PROBES)}")
+        raise NetprobeError(f"unknown probe(s) {named}; valid probes: {', '.join(MANY_BODY_PROBES)}")
     return probes
 
 
@@ -488,7 +483,7 @@ def measure_probes(state, layout_parts, space: SiteSpace, *, probes: Sequence[st
         for J, so that c- = 3 J / pi).
     space : SiteSpace
     probes : sequence of str
-        Names in :data:`PROBES`.
+        Names in :data:`MANY_BODY_PROBES`.
     eps : float
         Kernel floor of the modular Hamiltonians (J is also reported at ``100 eps``).
     memory_budget : int, optional

@@ -87,11 +87,6 @@ def _abc(layout, text: str):
 
 _ASSESS_SITES = {"gaussian": 100, "many-body": 12}  # free-fermion regions of 100 sites take seconds
 
-_REGISTRY_NAME = {"J": "J", "c_minus": "J", "cmi": "CMI", "gamma": "TEE", "entropy": "S",
-                  "chern_number": "chern_number"}
-"""Study probe name (as written in study files) -> the pipeline's probe (:data:`netprobe.pipeline.PROBES`)."""
-
-
 def evaluate_probes(description: StudyDescription, ground: GroundState) -> dict:
     """Values of the study's probes on one ground state.
 
@@ -111,7 +106,7 @@ def evaluate_probes(description: StudyDescription, ground: GroundState) -> dict:
     layouts = _region_layouts(description, model.lattice) if description.regions else {}
     wanted: dict[str, set] = {}
     for probe in description.probes:
-        need = _REGISTRY_NAME.get(probe.name)
+        need = probe.kind.measures
         if need is not None:
             if need != "S":
                 _abc(layouts[probe.region], probe.text)
