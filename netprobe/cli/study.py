@@ -30,7 +30,8 @@ from netprobe.study.description import StudyDescription
 from netprobe.study.reading import load_study
 from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.executors import DaskExecutor, LocalExecutor, run_study
-from netprobe.study.report import build_report, summary_lines, write_report
+from netprobe.study.report import build_report
+from netprobe.output.study_report import summary_lines, write_report
 
 __all__ = ["add_study_parser", "add_report_parser", "cmd_study", "cmd_report", "default_folder"]
 
