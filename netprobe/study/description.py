@@ -53,7 +53,7 @@ from __future__ import annotations
 import hashlib
 import json
 import numbers
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Mapping
@@ -598,8 +598,6 @@ class StudyDescription:
 
     def with_executor(self, **changes) -> "StudyDescription":
         """A copy with some executor settings changed (e.g. from the command line)."""
-        from dataclasses import replace
-
         return replace(self, executor=replace(self.executor, **changes))
 
     def check(self) -> None:

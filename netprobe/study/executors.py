@@ -21,6 +21,7 @@ from __future__ import annotations
 import contextlib
 import multiprocessing
 import os
+import signal
 import socket
 import sys
 import time
@@ -29,6 +30,8 @@ from multiprocessing.connection import wait as wait_for
 from pathlib import Path
 from types import MappingProxyType
 from typing import Callable, Mapping
+
+import numba
 
 from netprobe.errors import StudyError
 from netprobe.study.description import StudyDescription
@@ -87,16 +90,12 @@ def _default_runner():
 def _limit_threads(threads: int | None) -> None:
     if threads is None:
         return
-    with contextlib.suppress(Exception):  # numba is optional for the threads cap, never for correctness
-        import numba
-
+    with contextlib.suppress(Exception):  # the threads cap is best effort, never needed for correctness
         numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
 
 
 def _local_worker(conn, ledger_file: str, threads: int | None, runner) -> None:
     """Main function of a local worker process: run tasks sent through ``conn`` until told to stop."""
-    import signal
-
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the dispatcher's to handle
     _limit_threads(threads)
     runner = runner or _default_runner()

@@ -14,6 +14,7 @@ replace the file of a finished task.
 from __future__ import annotations
 
 import math
+import sqlite3
 import threading
 import time
 import warnings
@@ -22,6 +23,7 @@ from pathlib import Path
 from typing import Any, Mapping
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from netprobe.engines.dmrg import ConvergenceWarning, SweepSettings
 from netprobe.engines import GroundState, SolveSettings, ground_state
@@ -270,8 +272,6 @@ class _Heartbeat:
         self._thread = threading.Thread(target=self._run, name="netprobe-lease", daemon=True)
 
     def _run(self):
-        import sqlite3
-
         ledger = Ledger(self._path)
         try:
             while not self._stop.wait(self._interval):
@@ -310,8 +310,6 @@ def run_task(ledger_file, task: int, lease: str, *, blas_threads: int | None = 1
         taken back; nothing was recorded).
 
     """
-    from threadpoolctl import threadpool_limits
-
     ledger = Ledger(ledger_file)
     try:
         if not ledger.start(task, lease):
