@@ -54,7 +54,6 @@ __all__ = [
     "von_neumann_entropy",
     "renyi_entropy",
     "root_weights",
-    "mutual_information",
     "conditional_mutual_information",
     "kitaev_preskill_combination",
     "levin_wen_gamma",
@@ -96,11 +95,6 @@ def renyi_entropy(rho: np.ndarray, order: float) -> float:
 def root_weights(y: np.ndarray) -> np.ndarray:
     """Eigenvalues of ``Y Y^dag`` as squared singular values of ``Y`` (accurate far below ``eps * |rho|``)."""
     return scipy.linalg.svdvals(np.asarray(y), check_finite=False) ** 2
-
-
-def mutual_information(s_a: float, s_b: float, s_ab: float) -> float:
-    """``I(A:B) = S_A + S_B - S_AB``."""
-    return s_a + s_b - s_ab
 
 
 def conditional_mutual_information(s_ab: float, s_bc: float, s_b: float, s_abc: float) -> float:

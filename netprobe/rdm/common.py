@@ -219,17 +219,6 @@ class PartRoot:
         """Dimension of each part."""
         return tuple(leg.dim for leg in self.tensor.legs[:-1])
 
-    def dense_root(self) -> np.ndarray:
-        """``Y`` as a dense matrix, rows in part order (part 0 most significant), original local basis."""
-        t = self.tensor.to_dense()
-        for axis, order in enumerate(self.orders):
-            back = np.empty_like(t)
-            index = [slice(None)] * t.ndim
-            index[axis] = order
-            back[tuple(index)] = t
-            t = back
-        return t.reshape(int(np.prod(self.dims)), -1)
-
     def __repr__(self) -> str:
         parts = ", ".join(f"{n}: {len(s)} sites" for n, s in zip(self.names, self.sites))
         return f"PartRoot({parts}; {self.route})"

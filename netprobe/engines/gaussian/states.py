@@ -67,7 +67,6 @@ __all__ = [
     "majorana_modular_matrix",
     "fermion_modular_commutator",
     "majorana_modular_commutator",
-    "real_space_chern_number",
 ]
 
 
@@ -167,16 +166,12 @@ def majorana_modular_commutator(gamma: np.ndarray, sizes: tuple[int, int, int], 
     return float(0.5 * np.sum((gamma[na:, : na + nb] @ w_ab_b) * w_bc_b.T))
 
 
-def real_space_chern_number(p: np.ndarray, a: np.ndarray, b: np.ndarray, c: np.ndarray) -> float:
-    """``nu = 12 pi i sum_{j in A, k in B, l in C} (P_jk P_kl P_lj - P_jl P_lk P_kj)``.
+def _chern_from_blocks(p_ab: np.ndarray, p_bc: np.ndarray, p_ca: np.ndarray) -> float:
+    """``nu = 12 pi i sum_{j in A, k in B, l in C} (P_jk P_kl P_lj - P_jl P_lk P_kj)`` from the blocks of P.
 
     The first sum is ``t = Tr(P_AB P_BC P_CA)``, the second its complex conjugate (P is Hermitian),
     so ``nu = -24 pi Im t`` (Kitaev, Annals of Physics 321, 2 (2006), appendix).
     """
-    return _chern_from_blocks(p[np.ix_(a, b)], p[np.ix_(b, c)], p[np.ix_(c, a)])
-
-
-def _chern_from_blocks(p_ab: np.ndarray, p_bc: np.ndarray, p_ca: np.ndarray) -> float:
     t = np.sum((p_ab @ p_bc) * p_ca.T)
     return float(-24.0 * math.pi * np.imag(t))
 
@@ -268,13 +263,6 @@ class _Probes:
         if not 0 < order < math.inf:
             raise GaussianStateError(f"entropy order must be a positive finite number, got {order}")
         return self._set_entropy(self._check(sites, "region"), order, "region")
-
-    def mutual_information(self, a: Iterable[int], b: Iterable[int]) -> float:
-        """``I(A:B) = S_A + S_B - S_AB``."""
-        ra, rb = self._regions([("A", a), ("B", b)])
-        ab = np.concatenate([ra, rb])
-        s = self._set_entropy
-        return s(ra, 1.0, "A") + s(rb, 1.0, "B") - s(ab, 1.0, "AB")
 
     def cmi(self, a: Iterable[int], b: Iterable[int], c: Iterable[int]) -> float:
         """Conditional mutual information ``I(A:C|B) = S_AB + S_BC - S_B - S_ABC``."""
@@ -701,12 +689,6 @@ class MajoranaState(_Probes):
             source = CylinderMatrix(gamma, majorana_layout(layout))
         return cls(source, state.levels, state.energy, state.num_sites, state.modes_per_site, state.clip,
                    state.spin_like, state.name)
-
-    def covariance_matrix(self, sites: Iterable[int]) -> np.ndarray:
-        """``Gamma_X`` for a set of sites (Majoranas of each site in turn, in the given site order)."""
-        arr = self._check(sites, "region")
-        u = self._units(arr)
-        return np.array(self._block(u, u))
 
     def _spectrum_entropy(self, units, order) -> float:
         return majorana_entropy(np.linalg.eigvalsh(1j * self._block(units, units)), order)
