@@ -209,6 +209,14 @@ class _Probes:
     source: np.ndarray | CylinderMatrix
     _units_per_site: int
 
+    @classmethod
+    def from_model(cls, model, *, options: GaussianOptions | None = None):
+        """Build the ground state of a model (``load_model``) in its sector; see :meth:`from_hamiltonian`."""
+        return cls.from_hamiltonian(model.hamiltonian, name=model.name, options=options, model=model)
+
+    def _dense(self) -> np.ndarray:
+        return self.source if isinstance(self.source, np.ndarray) else self.source.dense()
+
     def _block(self, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
         if isinstance(self.source, np.ndarray):
             return self.source[np.ix_(rows, cols)]
@@ -300,6 +308,18 @@ class _Probes:
         if ra.size == 0 or rb.size == 0 or rc.size == 0:
             return 0.0  # J vanishes when one part is empty (rho_ABC factorises)
         return self._commutator(self._units(np.sort(ra)), self._units(np.sort(rb)), self._units(np.sort(rc)))
+
+
+def _label(form: QuadraticForm) -> str:
+    """How messages name the model of a quadratic form."""
+    return f"model '{form.name}'" if form.name else "the Hamiltonian"
+
+
+def _quadratic(hamiltonian, name: str, options: GaussianOptions | None, model):
+    """(options, quadratic form, label) of a Hamiltonian: the first steps of every ``from_hamiltonian``."""
+    options = options or GaussianOptions()
+    form = quadratic_form(hamiltonian, name=name, options=options, model=model)
+    return options, form, _label(form)
 
 
 def _sector_blocks(form: QuadraticForm, hamiltonian, label: str):
@@ -430,12 +450,7 @@ class FreeFermionState(_Probes):
     @property
     def correlation(self) -> np.ndarray:
         """``G_ij = <c_j^dag c_i>``, modes in Jordan-Wigner order (by momentum: formed on first use)."""
-        return self.source if isinstance(self.source, np.ndarray) else self.source.dense()
-
-    @classmethod
-    def from_model(cls, model, *, options: GaussianOptions | None = None) -> "FreeFermionState":
-        """Build the ground state of a model (``load_model``) in its sector."""
-        return cls.from_hamiltonian(model.hamiltonian, name=model.name, options=options, model=model)
+        return self._dense()
 
     @classmethod
     def from_hamiltonian(cls, hamiltonian, *, name: str = "", options: GaussianOptions | None = None,
@@ -450,9 +465,7 @@ class FreeFermionState(_Probes):
             If it has pairing terms (use :class:`MajoranaState`) or its ground state in the sector
             is not unique (degenerate levels at the Fermi energy).
         """
-        options = options or GaussianOptions()
-        form = quadratic_form(hamiltonian, name=name, options=options, model=model)
-        label = f"model '{form.name}'" if form.name else "the Hamiltonian"
+        options, form, label = _quadratic(hamiltonian, name, options, model)
         if form.has_pairing:
             raise GaussianStateError(
                 f"{label} has pairing terms; use MajoranaState.from_model or gaussian_state for it")
@@ -476,7 +489,7 @@ class FreeFermionState(_Probes):
             The lattice of the form's sites; needed for the momentum route (``options.route``).
         """
         options = options or GaussianOptions()
-        label = f"model '{form.name}'" if form.name else "the Hamiltonian"
+        label = _label(form)
         if form.has_pairing:
             raise GaussianStateError(f"{label} has pairing terms; use MajoranaState.from_form for it")
         n = form.num_modes
@@ -597,17 +610,12 @@ class MajoranaState(_Probes):
     @property
     def covariance(self) -> np.ndarray:
         """``Gamma_pq = (i/2) <[g_p, g_q]>``, real antisymmetric; Majoranas ``2j, 2j+1`` belong to mode j."""
-        return self.source if isinstance(self.source, np.ndarray) else self.source.dense()
-
-    @classmethod
-    def from_model(cls, model, *, options: GaussianOptions | None = None) -> "MajoranaState":
-        """Build the ground state of a model; number-conserving models are filled in their sector first."""
-        return cls.from_hamiltonian(model.hamiltonian, name=model.name, options=options, model=model)
+        return self._dense()
 
     @classmethod
     def from_hamiltonian(cls, hamiltonian, *, name: str = "", options: GaussianOptions | None = None,
                          model=None) -> "MajoranaState":
-        """Build the ground state of a Hamiltonian (see :meth:`from_model`).
+        """Build the ground state of a Hamiltonian; number-conserving ones are filled in their sector first.
 
         Raises
         ------
@@ -616,9 +624,7 @@ class MajoranaState(_Probes):
         GaussianStateError
             If it conserves a particle number but has pairing terms, or its ground state is not unique.
         """
-        options = options or GaussianOptions()
-        form = quadratic_form(hamiltonian, name=name, options=options, model=model)
-        label = f"model '{form.name}'" if form.name else "the Hamiltonian"
+        options, form, label = _quadratic(hamiltonian, name, options, model)
         lattice = getattr(hamiltonian, "lattice", None)
         if not form.has_pairing:
             blocks = _sector_blocks(form, hamiltonian, label)
@@ -638,7 +644,7 @@ class MajoranaState(_Probes):
         ``lattice`` (optional) enables the momentum route (``options.route``).
         """
         options = options or GaussianOptions()
-        label = f"model '{form.name}'" if form.name else "the Hamiltonian"
+        label = _label(form)
         w, shift = form.majorana_matrix()
         plan = _translation_plan(w, lattice, 2 * form.modes_per_site, options, label)
         if plan is None:
