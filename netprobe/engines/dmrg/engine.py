@@ -373,6 +373,23 @@ class DmrgResult:
                 f"discarded_weight={self.discarded_weight:.2e}, converged={self.converged})")
 
 
+def _perturbed_isometry(rho, pert, xnorm2: float, alpha: float, chi: int, truncation_weight: float):
+    """The kept eigenvectors (:func:`_keep_largest`) of ``rho + alpha pert / |x|^2``.
+
+    ``rho`` is the normalised reduced density matrix of the optimised tensor and ``pert`` the
+    perturbation from its expansion ``x`` (of squared norm ``xnorm2``), whose weight ``alpha`` is the noise.
+    """
+    mixed = rho + pert * (alpha / xnorm2) if xnorm2 > 0 else rho
+    spec, u = eigh(mixed, [0, 1], [2, 3])
+    return _keep_largest(spec, u, chi, truncation_weight)
+
+
+def _normalised_centre(centre, norm2: float):
+    """``(centre / |centre|, discarded weight 1 - |centre|^2 / norm2)``: the centre after truncation."""
+    kept = centre.norm() ** 2
+    return centre / math.sqrt(kept), max(0.0, 1.0 - kept / norm2)
+
+
 def _keep_largest(spectrum, u: BlockTensor, max_dim: int, max_discarded: float) -> BlockTensor:
     """Columns of ``u`` (legs ``(x, y, bond)``) for the largest eigenvalues of a density matrix."""
     vals = np.clip(np.asarray(spectrum.values, float), 0.0, None)
@@ -524,12 +541,7 @@ class GroundStateSearch:
             rho = contract(theta.conj(), theta, ([0, 1], [0, 1]))  # (s2*, b*, s2, b): rho_right transposed
             x = op.right_expansion(theta)  # (a, s1, b*, u, s2')
             pert = contract(x.conj(), x, ([0, 1, 3], [0, 1, 3])).transpose((1, 0, 3, 2))
-        xnorm2 = x.norm() ** 2
-        mixed = rho * (1.0 / norm2)
-        if xnorm2 > 0:
-            mixed = mixed + pert * (noise / xnorm2)
-        spec, u = eigh(mixed, [0, 1], [2, 3])
-        u = _keep_largest(spec, u, chi, s.truncation_weight)
+        u = _perturbed_isometry(rho * (1.0 / norm2), pert, x.norm() ** 2, noise, chi, s.truncation_weight)
         if direction > 0:
             centre = contract(u.conj(), theta, ([0, 1], [0, 1]))  # (k, s2, b)
         else:
@@ -537,9 +549,7 @@ class GroundStateSearch:
             # right-orthonormal tensor is V^dag, i.e. conj(u) with the bond first.
             u = u.conj().transpose((2, 0, 1))  # (k, s2, b)
             centre = contract(theta, u.conj(), ([2, 3], [1, 2]))  # (a, s1, k)
-        kept = centre.norm() ** 2
-        discarded = max(0.0, 1.0 - kept / norm2)
-        centre = centre / math.sqrt(kept)
+        centre, discarded = _normalised_centre(centre, norm2)
         if direction > 0:
             return u, centre, discarded, None
         return centre, u, discarded, None
@@ -597,20 +607,13 @@ class GroundStateSearch:
             rho = contract(a.conj(), a, ([0], [0]))  # (s*, b*, s, b)
             x = op.right_expansion(a)  # (a, b*, w, s')
             pert = contract(x.conj(), x, ([0, 2], [0, 2])).transpose((1, 0, 3, 2))
-        xnorm2 = x.norm() ** 2
-        mixed = rho * (1.0 / norm2)
-        if xnorm2 > 0:
-            mixed = mixed + pert * (alpha / xnorm2)
-        spec, u = eigh(mixed, [0, 1], [2, 3])
-        u = _keep_largest(spec, u, chi, s.truncation_weight)
+        u = _perturbed_isometry(rho * (1.0 / norm2), pert, x.norm() ** 2, alpha, chi, s.truncation_weight)
         if direction > 0:
             centre = contract(u.conj(), a, ([0, 1], [0, 1]))  # (k, b)
         else:
             u = u.conj().transpose((2, 0, 1))  # (k, s, b)
             centre = contract(a, u.conj(), ([1, 2], [1, 2]))  # (a, k)
-        kept = centre.norm() ** 2
-        discarded = max(0.0, 1.0 - kept / norm2)
-        centre = centre / math.sqrt(kept)
+        centre, discarded = _normalised_centre(centre, norm2)
         return u, centre, discarded
 
     def _update_site(self, i, direction, stats, *, chi=None, noise=0.0):
