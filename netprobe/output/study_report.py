@@ -244,32 +244,15 @@ def _map_plot(report: StudyReport, probe: str, out: Path) -> Path | None:
     bar = fig.colorbar(mesh, ax=ax)
     bar.set_label(probe, fontsize=8)
     bar.ax.tick_params(labelsize=7)
-    for b in report.boundaries.get(xa.name, []):
-        if b.probe == probe:
-            ax.errorbar(
-                [b.location],
-                [b.at[ya.name]],
-                xerr=[[b.uncertainty / 2], [b.uncertainty / 2]],
-                fmt="o",
-                color="white",
-                markeredgecolor=_INK,
-                markersize=4,
-                capsize=2,
-                linewidth=0.8,
-            )
-    for b in report.boundaries.get(ya.name, []):
-        if b.probe == probe:
-            ax.errorbar(
-                [b.at[xa.name]],
-                [b.location],
-                yerr=[[b.uncertainty / 2], [b.uncertainty / 2]],
-                fmt="s",
-                color="white",
-                markeredgecolor=_INK,
-                markersize=3.5,
-                capsize=2,
-                linewidth=0.8,
-            )
+    # transitions along x (circles, horizontal bars) and along y (squares, vertical bars)
+    for along, other, marker, size in ((xa, ya, "o", 4), (ya, xa, "s", 3.5)):
+        for b in report.boundaries.get(along.name, []):
+            if b.probe == probe:
+                bar = [[b.uncertainty / 2], [b.uncertainty / 2]]
+                x, y = (b.location, b.at[other.name]) if along is xa else (b.at[other.name], b.location)
+                ax.errorbar([x], [y], xerr=bar if along is xa else None, yerr=None if along is xa else bar,
+                            fmt=marker, color="white", markeredgecolor=_INK, markersize=size, capsize=2,
+                            linewidth=0.8)
     ax.set_xlabel(xa.name, color=_INK)
     ax.set_ylabel(ya.name, color=_INK)
     ax.set_title(f"{d.name}: {probe} (markers: steepest change)", fontsize=9, color=_INK, loc="left")
