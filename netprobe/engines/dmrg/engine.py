@@ -554,8 +554,18 @@ class GroundStateSearch:
             return u, centre, discarded, None
         return centre, u, discarded, None
 
-    def _update_bond(self, i, direction, *, chi, noise, stats):
+    def _solve_local(self, op, v0, stats) -> np.ndarray:
+        """The lowest eigenvector of ``op`` from ``v0``; its energy and costs go into ``stats``."""
         s = self.settings
+        flops = matmul_tally().flops
+        pair = lowest_eigenpair(s.eigensolver, op, v0, tol=stats["tolerance"],
+                                krylov_dimension=s.krylov_dimension, restarts=s.solver_restarts)
+        stats["matvec_flops"] += matmul_tally().flops - flops
+        stats["matvecs"] += pair.matvecs
+        stats["energy"] = pair.value
+        return pair.vector
+
+    def _update_bond(self, i, direction, *, chi, noise, stats):
         tensors = self.state.tensors
         theta = contract(tensors[i], tensors[i + 1], ([2], [0]))
         layout = BlockLayout(theta.legs, None, self.state.basis.rule, self.dtype)
@@ -566,13 +576,7 @@ class GroundStateSearch:
             v0 = self.rng.standard_normal(layout.size)
             if self.dtype.kind == "c":
                 v0 = v0 + 1j * self.rng.standard_normal(layout.size)
-        flops = matmul_tally().flops
-        pair = lowest_eigenpair(s.eigensolver, op, v0, tol=stats["tolerance"],
-                                krylov_dimension=s.krylov_dimension, restarts=s.solver_restarts)
-        stats["matvec_flops"] += matmul_tally().flops - flops
-        stats["matvecs"] += pair.matvecs
-        stats["energy"] = pair.value
-        theta = layout.unpack(pair.vector)
+        theta = layout.unpack(self._solve_local(op, v0, stats))
         if noise > 0:
             left, right, discarded, values = self._split_perturbed(theta, op, direction, chi, noise)
         else:
@@ -617,19 +621,12 @@ class GroundStateSearch:
         return u, centre, discarded
 
     def _update_site(self, i, direction, stats, *, chi=None, noise=0.0):
-        s = self.settings
         tensors = self.state.tensors
         a = tensors[i]
         layout = BlockLayout(a.legs, None, self.state.basis.rule, self.dtype)
         op = SiteOperator(self._env.left[i], self.mpo.tensors[i], self._env.right[i + 1], layout)
         v0 = layout.pack(a)
-        flops = matmul_tally().flops
-        pair = lowest_eigenpair(s.eigensolver, op, v0, tol=stats["tolerance"],
-                                krylov_dimension=s.krylov_dimension, restarts=s.solver_restarts)
-        stats["matvec_flops"] += matmul_tally().flops - flops
-        stats["matvecs"] += pair.matvecs
-        stats["energy"] = pair.value
-        a = layout.unpack(pair.vector)
+        a = layout.unpack(self._solve_local(op, v0, stats))
         if direction < 0 and i == self.state.num_sites // 2:
             stats["entropy"] = entropy_from_weights(svd(a, [0], [1, 2])[1].values ** 2)
         if noise > 0 and ((direction > 0 and i + 1 < self.state.num_sites) or (direction < 0 and i > 0)):
