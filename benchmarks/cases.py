@@ -438,6 +438,7 @@ def free_fermions(ctx: Context) -> list[Figure]:
     """J and the real-space Chern number of Haldane-model disks of about 100, 400 and 1600 sites."""
     from netprobe.engines.gaussian import GaussianOptions, gaussian_state
     from netprobe.model.spec import load_model
+    from netprobe.probes import c_minus_from_j
 
     # 44 x 36 zigzag cells (3168 sites) hold a 1600-site disk with margins of several bonds; the twist
     # of 1 rad keeps the two edge modes of the cylinder away from zero energy (a unique ground state).
@@ -484,7 +485,7 @@ def free_fermions(ctx: Context) -> list[Figure]:
         nu = state.chern_number(a, b, c)
         seconds = time.perf_counter() - start
         n = len(a) + len(b) + len(c)
-        ctx.log(f"    {n} sites: J = {j:.6f} (c- = {3 * j / math.pi:.4f}), Chern number {nu:.6f}: {seconds:.2f} s")
+        ctx.log(f"    {n} sites: J = {j:.6f} (c- = {c_minus_from_j(j):.4f}), Chern number {nu:.6f}: {seconds:.2f} s")
         figures.append(Figure(f"free_fermion_{size}_sites_time_vs_10s", seconds / 10.0, 1.0, "<=", {
             "sites": n, "seconds": seconds, "J": j, "chern_number": nu, "ground_state_seconds": prepare,
             "lattice_sites": model.lattice.num_sites}))

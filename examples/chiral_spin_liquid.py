@@ -31,6 +31,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
 import netprobe  # noqa: E402
+from netprobe.probes import c_minus_from_j  # noqa: E402
 
 
 def main(argv=None):
@@ -54,8 +55,8 @@ def main(argv=None):
     sizes = result["sizes"]
     n = [s["sites"] for s in sizes]
     fig, (left, right) = plt.subplots(1, 2, figsize=(9, 3.8))
-    left.errorbar(n, [s["J"] / (math.pi / 3) for s in sizes], yerr=[(s["J_error"] or 0) / (math.pi / 3)
-                                                                    for s in sizes], fmt="o")
+    left.errorbar(n, [c_minus_from_j(s["J"]) for s in sizes], yerr=[c_minus_from_j(s["J_error"] or 0)
+                                                                     for s in sizes], fmt="o")
     left.axhline(1.0, color="0.6", lw=0.8)
     left.set_xlabel("region sites")
     left.set_ylabel("J / (pi/3)")

@@ -18,7 +18,8 @@ from test_study import TFIM_EXACT, netprobe_cli, netprobe_popen, write_study
 
 from netprobe.model.spec import load_model
 from netprobe.engines.mps.store import load_state
-from netprobe.study import build_report, load_study, parse_study, run_study, write_report
+from netprobe.output.study_report import write_report
+from netprobe.study import build_report, load_study, parse_study, run_study
 from netprobe.study.executors import DaskExecutor, LocalExecutor
 from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.report import steepest_change

@@ -8,7 +8,8 @@
 from __future__ import annotations
 
 from netprobe.cli.common import _print_json
-from netprobe.study.report import build_report, summary_lines, write_report
+from netprobe.study.report import build_report
+from netprobe.output.study_report import summary_lines, write_report
 
 __all__ = ["add_parser", "cmd_report"]
 

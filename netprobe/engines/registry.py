@@ -107,6 +107,7 @@ class Engine(Protocol):
     """The ground-state protocol: ``solve`` calls ``visit`` once per ground state and returns a summary."""
 
     name: str
+    kind: str  # the kind of the ground states it hands over ("many-body" or "gaussian")
 
     def solve(self, model, settings: SolveSettings, visit: Callable[[GroundState], None]) -> dict:
         ...
@@ -116,11 +117,12 @@ class ExactEngine:
     """Exact diagonalisation in the model's sector (:func:`netprobe.engines.exact.ground_state`)."""
 
     name = "exact"
+    kind = "many-body"
 
     def solve(self, model, settings, visit):
         result = exact_ground_state(model.hamiltonian)
         dimension = int(result.basis.dim)
-        visit(GroundState("exact", "many-body", result, float(result.energy), model,
+        visit(GroundState(self.name, self.kind, result, float(result.energy), model,
                           info={"dimension": dimension, "method": result.method}))
         return {"dimension": dimension, "method": result.method}
 
@@ -129,6 +131,7 @@ class GaussianEngine:
     """Free fermions (:func:`netprobe.engines.gaussian.gaussian_state`); quadratic models only."""
 
     name = "gaussian"
+    kind = "gaussian"
 
     def solve(self, model, settings, visit):
         info = {}
@@ -141,7 +144,7 @@ class GaussianEngine:
             model, info["note"] = retry
             state = gaussian_state(model)
         info["state"] = type(state).__name__
-        visit(GroundState("gaussian", "gaussian", state, float(state.energy), model, info=info))
+        visit(GroundState(self.name, self.kind, state, float(state.energy), model, info=info))
         return info
 
 
@@ -174,6 +177,7 @@ class LadderEngine:
     """A DMRG ladder (:func:`netprobe.engines.dmrg.run_ladder`); every rung is handed over in memory."""
 
     name = "dmrg"
+    kind = "many-body"
 
     def solve(self, model, settings, visit):
         sweeps = settings.sweeps or SweepSettings()
@@ -183,7 +187,7 @@ class LadderEngine:
                                          variance=settings.variance)
 
         def on_stage(stage, state):
-            visit(GroundState("dmrg", "many-body", state, float(stage.energy), model,
+            visit(GroundState(self.name, self.kind, state, float(stage.energy), model,
                               bond_dimension=int(stage.bond_dimension),
                               discarded_weight=float(stage.discarded_weight), info=stage.to_dict()))
 

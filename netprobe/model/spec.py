@@ -49,7 +49,7 @@ from netprobe.model.lattice import Lattice, build_lattice
 from netprobe.model.limits import check_model_size, estimate_model_size
 from netprobe.model.sites import SiteSpace, operator_charge_change, site_space
 from netprobe.model.terms import Hamiltonian, Term
-from netprobe.model.tomlio import describe_path_problem, parse_toml, read_text
+from netprobe.model.tomlio import check_keys, describe_path_problem, main_table, parse_toml, read_text
 
 __all__ = ["ModelSpec", "Model", "load_spec", "parse_spec", "parse_overrides", "models_directory",
            "find_model", "list_models", "find_toml", "bundled_files", "build_model", "load_model", "check_size",
@@ -143,12 +143,6 @@ def _where(path: str) -> str:
     return f"model file {path}" if path else "model description"
 
 
-def _check_keys(table: Mapping, allowed: set, where: str, what: str):
-    for key in table:
-        if key not in allowed:
-            raise SpecError(f"{where}: unknown key '{key}' in {what}; valid keys: {', '.join(sorted(allowed))}")
-
-
 _PRODUCT_SPLIT = re.compile(r"\s*([+-])\s*")
 
 
@@ -219,11 +213,7 @@ def parse_spec(text: str, *, path: str = "") -> ModelSpec:
     """
     where = _where(path)
     raw = parse_toml(text, where)
-    _check_keys(raw, _TOP_KEYS, where, "the top level")
-    model = raw.get("model")
-    if not isinstance(model, dict):
-        raise SpecError(f"{where}: missing [model] table with at least name and site")
-    _check_keys(model, _MODEL_KEYS, where, "[model]")
+    model = main_table(raw, _TOP_KEYS, "model", _MODEL_KEYS, where, "name and site")
     for key in ("name", "site"):
         if not isinstance(model.get(key), str):
             raise SpecError(f"{where}: [model] needs a string '{key}'")
@@ -265,7 +255,7 @@ def parse_spec(text: str, *, path: str = "") -> ModelSpec:
         if not isinstance(entry, dict):
             raise SpecError(
                 f"{label} is {entry!r}, not a table; write each term as [[term]] with on, ops, coupling")
-        _check_keys(entry, _TERM_KEYS, where, f"[[term]] #{index + 1}")
+        check_keys(entry, _TERM_KEYS, where, f"[[term]] #{index + 1}")
         for key in ("on", "ops"):
             if key not in entry:
                 raise SpecError(f"{label} needs '{key}'")

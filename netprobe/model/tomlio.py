@@ -3,7 +3,8 @@
 :func:`read_text` checks that a path names a regular readable file and decodes it as UTF-8 (a bad
 byte is named with its offset); :func:`parse_toml` parses the text, refuses nesting deeper than our
 layouts use and numbers that are not finite, so that later stages only see tables, lists, strings,
-booleans and finite numbers.
+booleans and finite numbers. :func:`check_keys` and :func:`main_table` check the keys of a table
+the same way for every kind of file: an unknown key is an error that lists the valid ones.
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ from pathlib import Path
 
 from netprobe.errors import SpecError
 
-__all__ = ["MAX_DEPTH", "read_text", "parse_toml", "describe_path_problem"]
+__all__ = ["MAX_DEPTH", "read_text", "parse_toml", "describe_path_problem", "check_keys", "main_table"]
 
 #: Deepest nesting of tables and lists that a model or study file may use (ours use at most 3).
 MAX_DEPTH = 8
@@ -100,6 +101,34 @@ def parse_toml(text: str, where: str) -> dict:
             f"{MAX_DEPTH} levels") from None
     _check_values(raw, where)
     return raw
+
+
+def check_keys(table, allowed, where: str, what: str) -> None:
+    """Refuse a value that is not a table, and any key of ``table`` not in ``allowed``.
+
+    Raises
+    ------
+    SpecError
+        Naming ``where`` and ``what`` (``"[study]"``, ``"the top level"``) and listing the valid keys.
+    """
+    if not isinstance(table, dict):
+        raise SpecError(f"{where}: {what} must be a table")
+    for key in table:
+        if key not in allowed:
+            raise SpecError(f"{where}: unknown key '{key}' in {what}; valid keys: {', '.join(sorted(allowed))}")
+
+
+def main_table(raw: dict, top_keys, name: str, keys, where: str, needs: str) -> dict:
+    """The table ``[name]`` of a parsed file, after checking the top-level keys and its own.
+
+    ``needs`` says in the message for a missing table what it must hold ("name and site").
+    """
+    check_keys(raw, top_keys, where, "the top level")
+    table = raw.get(name)
+    if not isinstance(table, dict):
+        raise SpecError(f"{where}: missing [{name}] table with at least {needs}")
+    check_keys(table, keys, where, f"[{name}]")
+    return table
 
 
 def _check_values(raw: dict, where: str) -> None:

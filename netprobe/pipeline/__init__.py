@@ -3,7 +3,8 @@
 Modules
 -------
 ``measure``
-    :data:`PROBES`, one registry of bulk probes with an implementation per kind of ground state;
+    :data:`PROBES` (the registry of bulk probes, :mod:`netprobe.probes.registry`), measured with an
+    implementation per kind of ground state;
     :func:`measure` returns a :class:`Measurement`.
 ``point``
     :func:`probe_model` (ground states by any engine, then the probes on a region plan),

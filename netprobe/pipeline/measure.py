@@ -1,7 +1,7 @@
-"""One registry of bulk probes, with an implementation per kind of ground state.
+"""Bulk probes measured with an implementation per kind of ground state.
 
-A probe name (:data:`PROBES`) says what is measured on a region layout; the kind of the ground state
-(:class:`~netprobe.engines.GroundState` ``kind``) says how:
+A probe name (the registry :data:`netprobe.probes.PROBES`, re-exported here) says what is measured on a
+region layout; the kind of the ground state (:class:`~netprobe.engines.GroundState` ``kind``) says how:
 
 ``many-body``
     one reduced state of the parts A, B, C (:func:`netprobe.probes.measure_probes`), shared by every
@@ -24,20 +24,9 @@ import numpy as np
 from netprobe.errors import LatticeError, NetprobeError
 from netprobe.engines.exact import local_expectations as exact_local_expectations
 from netprobe.engines.mps import local_expectations as mps_local_expectations
-from netprobe.probes import DEFAULT_EPS, c_minus_from_j, measure_probes
+from netprobe.probes import DEFAULT_EPS, PROBES, c_minus_from_j, measure_probes
 
 __all__ = ["PROBES", "Measurement", "measure", "check_probes", "local_means"]
-
-PROBES: dict[str, tuple[str, ...]] = {
-    "S": ("many-body", "gaussian"),
-    "TEE": ("many-body", "gaussian"),
-    "J": ("many-body", "gaussian"),
-    "CMI": ("many-body", "gaussian"),
-    "chern_number": ("gaussian",),
-}
-"""Probe name -> the state kinds that implement it. ``S``: entropies of the parts and their unions;
-``TEE``: Kitaev-Preskill gamma; ``J``: modular commutator and c- = 3 J / pi; ``CMI``: I(A:C|B);
-``chern_number``: Kitaev's real-space Chern number (free fermions)."""
 
 
 def check_probes(probes: Sequence[str] | str, kind: str | None = None) -> tuple[str, ...]:
@@ -49,7 +38,7 @@ def check_probes(probes: Sequence[str] | str, kind: str | None = None) -> tuple[
         p = p.strip()
         if p not in PROBES:
             raise NetprobeError(f"unknown probe '{p}'; valid probes: {', '.join(PROBES)}")
-        if kind is not None and kind not in PROBES[p]:
+        if kind is not None and kind not in PROBES[p].kinds:
             continue
         out.append(p)
     if not out and not probes:
@@ -181,7 +170,7 @@ def measure(ground, layout, *, probes: Sequence[str] = ("S", "TEE", "J", "CMI"),
         Parts A, B, C (counterclockwise) for J, TEE and (without ``cmi_layout``) the CMI; any parts
         for the entropies alone.
     probes : sequence of str
-        Names in :data:`PROBES`; probes the state's kind does not implement are skipped.
+        Names in :data:`netprobe.probes.PROBES`; probes the state's kind does not implement are skipped.
     cmi_layout : Layout, optional
         A layout whose B separates A from C, for the CMI.
     eps : float

@@ -1,31 +1,10 @@
-"""Probes of reduced states: entropies, CMI, topological combinations and the modular commutator."""
+"""Probes of reduced states: the registry of bulk probes (``registry``) and the kernels (``kernels``):
+entropies, CMI, topological combinations and the modular commutator.
+"""
 
-from netprobe.probes.kernels import (  # noqa: F401 (re-exported)
-    PROBES, DEFAULT_EPS, ModularCommutator, ProbeReport, entropy_from_weights, renyi_from_weights,
-    von_neumann_entropy, renyi_entropy, root_weights, mutual_information, conditional_mutual_information, kitaev_preskill_combination,
-    levin_wen_gamma, c_minus_from_j, partial_trace, modular_hamiltonian, modular_commutator, modular_commutator_root,
-    measure_probes, probe_state,
-)
+from netprobe.probes import kernels as _kernels
+from netprobe.probes import registry as _registry
+from netprobe.probes.kernels import *  # noqa: F401,F403 (re-exported: its __all__)
+from netprobe.probes.registry import *  # noqa: F401,F403 (re-exported: its __all__)
 
-__all__ = [
-    "PROBES",
-    "DEFAULT_EPS",
-    "ModularCommutator",
-    "ProbeReport",
-    "entropy_from_weights",
-    "renyi_from_weights",
-    "von_neumann_entropy",
-    "renyi_entropy",
-    "root_weights",
-    "mutual_information",
-    "conditional_mutual_information",
-    "kitaev_preskill_combination",
-    "levin_wen_gamma",
-    "c_minus_from_j",
-    "partial_trace",
-    "modular_hamiltonian",
-    "modular_commutator",
-    "modular_commutator_root",
-    "measure_probes",
-    "probe_state",
-]
+__all__ = [*_registry.__all__, *_kernels.__all__]

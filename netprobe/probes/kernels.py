@@ -31,7 +31,6 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass, field
-from types import MappingProxyType
 from typing import Mapping, Sequence
 
 import numpy as np
@@ -41,10 +40,12 @@ from netprobe import rdm
 from netprobe.errors import LatticeError, NetprobeError
 from netprobe.resources import check_memory_budget
 from netprobe.model.sites import SiteSpace
+from netprobe.probes.registry import probes_of_kind
 from netprobe.tensor import contract, diag_multiply, svd
+from netprobe.tensor.entropy import entropy_from_weights, renyi_from_weights
 
 __all__ = [
-    "PROBES",
+    "MANY_BODY_PROBES",
     "DEFAULT_EPS",
     "ModularCommutator",
     "ProbeReport",
@@ -53,7 +54,6 @@ __all__ = [
     "von_neumann_entropy",
     "renyi_entropy",
     "root_weights",
-    "mutual_information",
     "conditional_mutual_information",
     "kitaev_preskill_combination",
     "levin_wen_gamma",
@@ -66,13 +66,8 @@ __all__ = [
     "probe_state",
 ]
 
-#: Probes by name, with what each needs.
-PROBES: Mapping[str, str] = MappingProxyType({
-    "S": "von Neumann entropy of every part and of their union",
-    "CMI": "conditional mutual information I(A:C|B); needs parts A, B, C",
-    "J": "modular commutator J(A, B, C) and c- = 3 J / pi; needs parts A, B, C",
-    "TEE": "Kitaev-Preskill combination (= -gamma) and gamma; needs parts A, B, C",
-})
+#: The probes these kernels evaluate (the many-body ones of the registry :data:`PROBES`).
+MANY_BODY_PROBES = probes_of_kind("many-body")
 
 #: Default kernel floor of the modular Hamiltonians, relative to the largest eigenvalue.
 DEFAULT_EPS = 1e-12
@@ -83,31 +78,6 @@ _ABC = ("A", "B", "C")
 # --------------------------------------------------------------------------------------------------
 # Entropies
 # --------------------------------------------------------------------------------------------------
-
-
-def _normalised(weights) -> np.ndarray:
-    w = np.asarray(weights, dtype=float).ravel()
-    w = np.where(w > 0, w, 0.0)  # negative eigenvalues are rounding of zero ones
-    total = w.sum()
-    return w / total if total > 0 else w
-
-
-def entropy_from_weights(weights) -> float:
-    """Von Neumann entropy ``-sum w ln w`` of a spectrum (normalised to unit sum, negatives dropped)."""
-    w = _normalised(weights)
-    w = w[w > 0]
-    return float(-np.sum(w * np.log(w)))
-
-
-def renyi_from_weights(weights, order: float) -> float:
-    """Renyi entropy ``ln(sum w^n) / (1 - n)``; order 1 is von Neumann, ``inf`` gives ``-ln max w``."""
-    w = _normalised(weights)
-    w = w[w > 0]
-    if order == 1:
-        return entropy_from_weights(w)
-    if math.isinf(order):
-        return float(-np.log(w.max()))
-    return float(np.log(np.sum(w**order)) / (1.0 - order))
 
 
 def von_neumann_entropy(rho: np.ndarray) -> float:
@@ -125,11 +95,6 @@ def renyi_entropy(rho: np.ndarray, order: float) -> float:
 def root_weights(y: np.ndarray) -> np.ndarray:
     """Eigenvalues of ``Y Y^dag`` as squared singular values of ``Y`` (accurate far below ``eps * |rho|``)."""
     return scipy.linalg.svdvals(np.asarray(y), check_finite=False) ** 2
-
-
-def mutual_information(s_a: float, s_b: float, s_ab: float) -> float:
-    """``I(A:B) = S_A + S_B - S_AB``."""
-    return s_a + s_b - s_ab
 
 
 def conditional_mutual_information(s_ab: float, s_bc: float, s_b: float, s_abc: float) -> float:
@@ -478,10 +443,10 @@ def _check_probes(probes) -> tuple[str, ...]:
     if isinstance(probes, str):
         probes = (probes,)
     probes = tuple(probes)
-    unknown = [p for p in probes if p not in PROBES]
+    unknown = [p for p in probes if p not in MANY_BODY_PROBES]
     if unknown or not probes:
         named = ", ".join(map(repr, unknown)) or "(none given)"
-        raise NetprobeError(f"unknown probe(s) {named}; valid probes: {', '.join(PROBES)}")
+        raise NetprobeError(f"unknown probe(s) {named}; valid probes: {', '.join(MANY_BODY_PROBES)}")
     return probes
 
 
@@ -512,7 +477,7 @@ def measure_probes(state, layout_parts, space: SiteSpace, *, probes: Sequence[st
         for J, so that c- = 3 J / pi).
     space : SiteSpace
     probes : sequence of str
-        Names in :data:`PROBES`.
+        Names in :data:`MANY_BODY_PROBES`.
     eps : float
         Kernel floor of the modular Hamiltonians (J is also reported at ``100 eps``).
     memory_budget : int, optional

@@ -112,7 +112,29 @@ class RootBlock:
 
 
 @dataclass(frozen=True, eq=False)
-class GradedRoot:
+class _ChargeBlocks:
+    """The fields that :class:`GradedRoot` and :class:`BlockedRho` share: a site set and its charge blocks."""
+
+    sites: tuple[int, ...]
+    space: SiteSpace = field(repr=False)
+    grading: tuple[str, ...]
+    local_charges: np.ndarray = field(repr=False)
+    moduli: tuple[int, ...]
+    blocks: tuple[RootBlock, ...] = field(repr=False)
+
+    @property
+    def dim(self) -> int:
+        """Dimension ``d**m`` of the set's Hilbert space."""
+        return self.space.dim ** len(self.sites)
+
+    @property
+    def nbytes(self) -> int:
+        """Bytes held by the blocks."""
+        return sum(b.matrix.nbytes + b.codes.nbytes for b in self.blocks)
+
+
+@dataclass(frozen=True, eq=False)
+class GradedRoot(_ChargeBlocks):
     """Square-root factor of a reduced density matrix, graded by charge: ``rho_S = sum_q Y_q Y_q^dag``.
 
     Attributes
@@ -134,12 +156,6 @@ class GradedRoot:
         (what the budget was checked against); 0 for the other routes.
     """
 
-    sites: tuple[int, ...]
-    space: SiteSpace = field(repr=False)
-    grading: tuple[str, ...]
-    local_charges: np.ndarray = field(repr=False)
-    moduli: tuple[int, ...]
-    blocks: tuple[RootBlock, ...] = field(repr=False)
     route: str = "vector"
     peak_estimate: float = 0.0
 
@@ -149,19 +165,9 @@ class GradedRoot:
         return len(self.sites)
 
     @property
-    def dim(self) -> int:
-        """Dimension ``d**m`` of the set's Hilbert space."""
-        return self.space.dim ** len(self.sites)
-
-    @property
     def rank(self) -> int:
         """Total number of columns (an upper bound on the rank of ``rho_S``)."""
         return sum(b.matrix.shape[1] for b in self.blocks)
-
-    @property
-    def nbytes(self) -> int:
-        """Bytes held by the blocks."""
-        return sum(b.matrix.nbytes + b.codes.nbytes for b in self.blocks)
 
     def weights(self) -> np.ndarray:
         """Eigenvalues of ``rho_S`` (squared singular values of every block), descending, zeros dropped."""
@@ -218,17 +224,6 @@ class PartRoot:
     def dims(self) -> tuple[int, ...]:
         """Dimension of each part."""
         return tuple(leg.dim for leg in self.tensor.legs[:-1])
-
-    def dense_root(self) -> np.ndarray:
-        """``Y`` as a dense matrix, rows in part order (part 0 most significant), original local basis."""
-        t = self.tensor.to_dense()
-        for axis, order in enumerate(self.orders):
-            back = np.empty_like(t)
-            index = [slice(None)] * t.ndim
-            index[axis] = order
-            back[tuple(index)] = t
-            t = back
-        return t.reshape(int(np.prod(self.dims)), -1)
 
     def __repr__(self) -> str:
         parts = ", ".join(f"{n}: {len(s)} sites" for n, s in zip(self.names, self.sites))
@@ -361,7 +356,7 @@ def _code_tables(space, conserved, m: int):
 
 
 @dataclass(frozen=True, eq=False)
-class BlockedRho:
+class BlockedRho(_ChargeBlocks):
     """A reduced density matrix kept in its charge blocks: ``rho_S = sum_q P_q rho_q P_q``.
 
     Attributes
@@ -380,24 +375,8 @@ class BlockedRho:
         The up-front estimate of the route, in bytes.
     """
 
-    sites: tuple[int, ...]
-    space: SiteSpace = field(repr=False)
-    grading: tuple[str, ...]
-    local_charges: np.ndarray = field(repr=False)
-    moduli: tuple[int, ...]
-    blocks: tuple[RootBlock, ...] = field(repr=False)
     route: str = "mps-split"
     peak_estimate: float = 0.0
-
-    @property
-    def dim(self) -> int:
-        """Dimension ``d**m`` of the set's Hilbert space."""
-        return self.space.dim ** len(self.sites)
-
-    @property
-    def nbytes(self) -> int:
-        """Bytes held by the blocks."""
-        return sum(b.matrix.nbytes + b.codes.nbytes for b in self.blocks)
 
     def density_matrix(self) -> np.ndarray:
         """The dense ``rho_S`` (small sets only)."""

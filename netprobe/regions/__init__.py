@@ -2,28 +2,9 @@
 growing regions (``ladders``).
 """
 
-from netprobe.regions.layout import (  # noqa: F401 (re-exported)
-    Layout, RegionLimits, CENTER_OFFSET, default_center,
-)
-from netprobe.regions.shapes import (  # noqa: F401 (re-exported)
-    LAYOUTS, SYNTAX, build_layout, parse_region, disk, sectors,
-    annulus, levin_wen, shielded, strips, half,
-)
+from netprobe.regions import layout as _layout
+from netprobe.regions import shapes as _shapes
+from netprobe.regions.layout import *  # noqa: F401,F403 (re-exported: its __all__)
+from netprobe.regions.shapes import *  # noqa: F401,F403 (re-exported: its __all__)
 
-__all__ = [
-    "Layout",
-    "RegionLimits",
-    "CENTER_OFFSET",
-    "default_center",
-    "LAYOUTS",
-    "SYNTAX",
-    "build_layout",
-    "parse_region",
-    "disk",
-    "sectors",
-    "annulus",
-    "levin_wen",
-    "shielded",
-    "strips",
-    "half",
-]
+__all__ = [*_layout.__all__, *_shapes.__all__]

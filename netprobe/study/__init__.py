@@ -12,15 +12,16 @@ Execution
     ``tasks`` (one task: model, ground state, probes; :func:`run_task`), ``executors`` (local
     spawned processes or ``dask.distributed``; :func:`run_study`).
 Results
-    ``verdicts`` (convergence against the bond dimension), ``report`` (tables, transition estimates,
-    phase maps; :func:`build_report`), ``commands`` (``netprobe study`` and ``netprobe report``).
+    ``verdicts`` (convergence against the bond dimension), ``report`` (the data of tables, transition
+    estimates and phase maps; :func:`build_report`); the files themselves are written by
+    :mod:`netprobe.output.study_report`.
 """
 
 from netprobe.study.description import StudyDescription
 from netprobe.study.reading import load_study, parse_study
 from netprobe.study.executors import DaskExecutor, LocalExecutor, StudyRun, run_study
 from netprobe.study.ledger import Ledger
-from netprobe.study.report import build_report, write_report
+from netprobe.study.report import build_report
 
 __all__ = [
     "StudyDescription",
@@ -32,5 +33,4 @@ __all__ = [
     "StudyRun",
     "run_study",
     "build_report",
-    "write_report",
 ]

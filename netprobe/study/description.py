@@ -53,7 +53,7 @@ from __future__ import annotations
 import hashlib
 import json
 import numbers
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Mapping
@@ -61,11 +61,13 @@ from typing import Any, Mapping
 
 from netprobe.errors import NetprobeError, SpecError
 from netprobe.engines.limits import check_dmrg_model, check_exact_model
+from netprobe.engines.registry import ENGINES as ENGINE_REGISTRY
 from netprobe.model.spec import (
     LATTICE_KEYS, ModelSpec, _resolve_parameters, check_size, find_toml, models_directory, parse_spec,
 )
 from netprobe.errors import OperatorError
 from netprobe.model.spec import build_model
+from netprobe.probes import PROBES as BULK_PROBES
 from netprobe.regions import parse_region
 
 __all__ = [
@@ -97,14 +99,32 @@ ENGINES: Mapping[str, str] = MappingProxyType(
 
 @dataclass(frozen=True)
 class ProbeKind:
-    """What a probe needs: a region with parts A, B, C, and which engines can evaluate it."""
+    """What a study probe needs: a region with parts A, B, C, and which engines can evaluate it.
+
+    ``measures`` names the bulk probe of the registry :data:`netprobe.probes.PROBES` that computes it
+    (None for the energy, local means and assessed values, which the registry does not hold).
+    """
 
     text: str
     region: str  # "none", "A" (part A of any layout) or "ABC"
     engines: frozenset
+    measures: str | None = None
+
+    @property
+    def unit(self) -> str | None:
+        """The unit of the registry probe (None where ``measures`` is None)."""
+        return None if self.measures is None else BULK_PROBES[self.measures].unit
 
 
 _ALL = frozenset(ENGINES)
+
+
+def _bulk(text: str, measures: str, region: str = "ABC") -> ProbeKind:
+    """A study probe computed by a registry probe; the engines are those whose state kind implements it."""
+    kinds = BULK_PROBES[measures].kinds
+    engines = frozenset(name for name, engine in ENGINE_REGISTRY.items() if engine.kind in kinds)
+    return ProbeKind(text, region, engines, measures)
+
 
 #: Probes by name. ``mean:OP`` averages a local operator over the lattice (or, with ``@region``,
 #: over the union of the region's parts).
@@ -112,18 +132,13 @@ PROBES: Mapping[str, ProbeKind] = MappingProxyType(
     {
         "energy": ProbeKind("ground-state energy", "none", _ALL),
         "energy_per_site": ProbeKind("ground-state energy divided by the number of sites", "none", _ALL),
-        "entropy": ProbeKind("von Neumann entropy of part A (nats)", "A", _ALL),
-        "J": ProbeKind("modular commutator J(A, B, C)", "ABC", _ALL),
-        "c_minus": ProbeKind("chiral central charge estimate 3 J / pi", "ABC", _ALL),
-        "cmi": ProbeKind("conditional mutual information I(A:C|B) (nats)", "ABC", _ALL),
-        "gamma": ProbeKind(
-            "topological entanglement entropy from the Kitaev-Preskill combination", "ABC", _ALL
-        ),
-        "chern_number": ProbeKind(
-            "real-space Chern number of three sectors (number-conserving fermions)",
-            "ABC",
-            frozenset({"gaussian"}),
-        ),
+        "entropy": _bulk("von Neumann entropy of part A (nats)", "S", "A"),
+        "J": _bulk("modular commutator J(A, B, C)", "J"),
+        "c_minus": _bulk("chiral central charge estimate 3 J / pi", "J"),
+        "cmi": _bulk("conditional mutual information I(A:C|B) (nats)", "CMI"),
+        "gamma": _bulk("topological entanglement entropy from the Kitaev-Preskill combination", "TEE"),
+        "chern_number": _bulk("real-space Chern number of three sectors (number-conserving fermions)",
+                              "chern_number"),
         "mean:OP": ProbeKind("mean of a local operator OP over the sites", "optional", _ALL),
         "assessed_c_minus": ProbeKind(
             "c- from a region-size ladder extrapolated to the infinite region, with its error "
@@ -583,8 +598,6 @@ class StudyDescription:
 
     def with_executor(self, **changes) -> "StudyDescription":
         """A copy with some executor settings changed (e.g. from the command line)."""
-        from dataclasses import replace
-
         return replace(self, executor=replace(self.executor, **changes))
 
     def check(self) -> None:

@@ -21,6 +21,7 @@ from __future__ import annotations
 import contextlib
 import multiprocessing
 import os
+import signal
 import socket
 import sys
 import time
@@ -90,14 +91,12 @@ def _limit_threads(threads: int | None) -> None:
         # a numba loaded later (by the exact engine) reads NUMBA_NUM_THREADS, set for this worker at spawn;
         # importing it here only for the cap cost every worker 0.6-0.75 s CPU (benchmarks/RESULTS.md, 2026-12-03)
         return
-    with contextlib.suppress(Exception):  # the threads cap is never needed for correctness
+    with contextlib.suppress(Exception):  # the threads cap is best effort, never needed for correctness
         numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
 
 
 def _local_worker(conn, ledger_file: str, threads: int | None, runner) -> None:
     """Main function of a local worker process: run tasks sent through ``conn`` until told to stop."""
-    import signal
-
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the dispatcher's to handle
     _limit_threads(threads)
     runner = runner or _default_runner()

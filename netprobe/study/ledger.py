@@ -71,6 +71,8 @@ FORMAT_NAME = "netprobe-study-ledger"
 FORMAT_VERSION = 1
 STATUSES = ("pending", "running", "done", "failed")
 _BUSY_MS = 30_000
+# the status of a task given back after a failed or interrupted try
+_PENDING_WHILE_TRIES_LEFT = "CASE WHEN attempts < attempt_limit THEN 'pending' ELSE 'failed' END"
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
@@ -409,16 +411,8 @@ class Ledger:
                 dead.append((task, lease, why))
         taken = []
         for task, lease, why in dead:
-            with _transaction(self._conn):
-                changed = self._conn.execute(
-                    "UPDATE tasks SET status = "
-                    "CASE WHEN attempts < attempt_limit THEN 'pending' ELSE 'failed' END, "
-                    "error = ?, lease = NULL WHERE id = ? AND lease = ? AND status = 'running'",
-                    (why, task, lease),
-                ).rowcount
-                if changed:
-                    self._close_attempt(lease, "interrupted", why, now)
-                    taken.append(task)
+            if self._take_back(task, lease, why, now, _PENDING_WHILE_TRIES_LEFT):
+                taken.append(task)
         return taken
 
     def claim(self, *, owner_pid: int, owner_host: str | None = None) -> Claim | None:
@@ -523,8 +517,7 @@ class Ledger:
         error = " ".join(str(error).split()) or "failed without a message"
         with _transaction(self._conn):
             changed = self._conn.execute(
-                "UPDATE tasks SET status = "
-                "CASE WHEN attempts < attempt_limit THEN 'pending' ELSE 'failed' END, "
+                f"UPDATE tasks SET status = {_PENDING_WHILE_TRIES_LEFT}, "
                 "error = ?, lease = NULL, finished_at = ? WHERE id = ? AND lease = ? AND status = 'running'",
                 (error, now, task, lease),
             ).rowcount
@@ -539,10 +532,14 @@ class Ledger:
         The task becomes pending again and the try is logged as interrupted. Returns False if the
         lease was already lost.
         """
-        now = time.time()
+        return self._take_back(task, lease, why, time.time(), "'pending'")
+
+    def _take_back(self, task, lease, why, now, status: str) -> bool:
+        """Set a running task held under ``lease`` to ``status`` (an SQL expression of ours, never user
+        text) and log the try as interrupted; False if the lease was already lost."""
         with _transaction(self._conn):
             changed = self._conn.execute(
-                "UPDATE tasks SET status = 'pending', error = ?, lease = NULL WHERE id = ? AND lease = ? "
+                f"UPDATE tasks SET status = {status}, error = ?, lease = NULL WHERE id = ? AND lease = ? "
                 "AND status = 'running'",
                 (why, task, lease),
             ).rowcount

@@ -14,7 +14,7 @@ import numpy as np
 from netprobe.errors import NetprobeError, SpecError
 from netprobe.model.limits import check_grid_size
 from netprobe.model.spec import LATTICE_KEYS, find_model, parse_spec
-from netprobe.model.tomlio import parse_toml, read_text
+from netprobe.model.tomlio import check_keys, main_table, parse_toml, read_text
 from netprobe.engines.dmrg import SweepSettings
 from netprobe.study.description import (
     ENGINES, ExecutorSettings, GridAxis, StudyDescription, StudyPoint,
@@ -28,16 +28,6 @@ __all__ = [
     "load_study",
 ]
 
-def _check_keys(table, allowed, where, what):
-    if not isinstance(table, dict):
-        raise SpecError(f"{where}: {what} must be a table")
-    for key in table:
-        if key not in allowed:
-            raise SpecError(
-                f"{where}: unknown key '{key}' in {what}; valid keys: {', '.join(sorted(allowed))}"
-            )
-
-
 def _is_number(value) -> bool:
     return isinstance(value, numbers.Real) and not isinstance(value, bool) and math.isfinite(value)
 
@@ -46,7 +36,7 @@ def _axis(name: str, entry, where: str) -> GridAxis:
     what = f"[grid] {name}"
     if isinstance(entry, list):
         entry = {"values": entry}
-    _check_keys(entry, _AXIS_KEYS, where, what)
+    check_keys(entry, _AXIS_KEYS, where, what)
     if "values" in entry:
         if set(entry) - {"values"}:
             raise SpecError(f"{where}: {what}: give either values = [...] or start, stop, num, not both")
@@ -112,11 +102,7 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
     """
     where = _where(path)
     raw = parse_toml(text, where)
-    _check_keys(raw, _TOP_KEYS, where, "the top level")
-    study = raw.get("study")
-    if not isinstance(study, dict):
-        raise SpecError(f"{where}: missing [study] table with at least name, model and engine")
-    _check_keys(study, _STUDY_KEYS, where, "[study]")
+    study = main_table(raw, _TOP_KEYS, "study", _STUDY_KEYS, where, "name, model and engine")
     for key in ("name", "model", "engine"):
         if not isinstance(study.get(key), str) or not study[key].strip():
             raise SpecError(f"{where}: [study] needs a string '{key}'")
@@ -142,7 +128,7 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
     parameters = list(spec.parameters)
 
     fixed_raw = raw.get("set", {})
-    _check_keys(fixed_raw, set(parameters), where, f"[set] (parameters of model '{spec.name}')")
+    check_keys(fixed_raw, set(parameters), where, f"[set] (parameters of model '{spec.name}')")
     fixed = {k: _fixed_value(k, v, where) for k, v in fixed_raw.items()}
 
     axes: tuple[GridAxis, ...] = ()
@@ -198,7 +184,7 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
     swept = _swept_names(axes, points)
 
     ladder_raw = raw.get("ladder", {})
-    _check_keys(ladder_raw, _LADDER_ONLY | _SWEEP_KEYS, where, "[ladder]")
+    check_keys(ladder_raw, _LADDER_ONLY | _SWEEP_KEYS, where, "[ladder]")
     if engine == "dmrg":
         chis = ladder_raw.get("bond_dimensions")
         if not isinstance(chis, list) or not chis:
@@ -220,7 +206,7 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
         _check_sweep_settings(sweep_settings, ladder, where)
 
     measure = raw.get("measure", {})
-    _check_keys(measure, _MEASURE_KEYS, where, "[measure]")
+    check_keys(measure, _MEASURE_KEYS, where, "[measure]")
     if "region" in measure and "regions" in measure:
         raise SpecError(f'{where}: [measure] takes region = "..." or regions = {{ ... }}, not both')
     regions: dict[str, str] = {}
@@ -245,9 +231,9 @@ def parse_study(text: str, *, path: str = "") -> StudyDescription:
         raise SpecError(f"{where}: [measure] probes lists a probe twice")
 
     exec_raw = raw.get("executor", {})
-    _check_keys(exec_raw, {f.name for f in fields(ExecutorSettings)}, where, "[executor]")
+    check_keys(exec_raw, {f.name for f in fields(ExecutorSettings)}, where, "[executor]")
     verdict_raw = raw.get("verdicts", {})
-    _check_keys(verdict_raw, {f.name for f in fields(VerdictSettings)}, where, "[verdicts]")
+    check_keys(verdict_raw, {f.name for f in fields(VerdictSettings)}, where, "[verdicts]")
     try:
         executor = ExecutorSettings(**exec_raw)
         verdicts = VerdictSettings(**verdict_raw)

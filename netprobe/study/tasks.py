@@ -14,6 +14,7 @@ replace the file of a finished task.
 from __future__ import annotations
 
 import math
+import sqlite3
 import threading
 import time
 import warnings
@@ -22,6 +23,7 @@ from pathlib import Path
 from typing import Any, Mapping
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from netprobe.engines.dmrg import ConvergenceWarning, SweepSettings
 from netprobe.engines import GroundState, SolveSettings, ground_state
@@ -87,11 +89,6 @@ def _abc(layout, text: str):
 
 _ASSESS_SITES = {"gaussian": 100, "many-body": 12}  # free-fermion regions of 100 sites take seconds
 
-_REGISTRY_NAME = {"J": "J", "c_minus": "J", "cmi": "CMI", "gamma": "TEE", "entropy": "S",
-                  "chern_number": "chern_number"}
-"""Study probe name (as written in study files) -> the pipeline's probe (:data:`netprobe.pipeline.PROBES`)."""
-
-
 def evaluate_probes(description: StudyDescription, ground: GroundState) -> dict:
     """Values of the study's probes on one ground state.
 
@@ -111,7 +108,7 @@ def evaluate_probes(description: StudyDescription, ground: GroundState) -> dict:
     layouts = _region_layouts(description, model.lattice) if description.regions else {}
     wanted: dict[str, set] = {}
     for probe in description.probes:
-        need = _REGISTRY_NAME.get(probe.name)
+        need = probe.kind.measures
         if need is not None:
             if need != "S":
                 _abc(layouts[probe.region], probe.text)
@@ -275,8 +272,6 @@ class _Heartbeat:
         self._thread = threading.Thread(target=self._run, name="netprobe-lease", daemon=True)
 
     def _run(self):
-        import sqlite3
-
         ledger = Ledger(self._path)
         try:
             while not self._stop.wait(self._interval):
@@ -315,8 +310,6 @@ def run_task(ledger_file, task: int, lease: str, *, blas_threads: int | None = 1
         taken back; nothing was recorded).
 
     """
-    from threadpoolctl import threadpool_limits
-
     ledger = Ledger(ledger_file)
     try:
         if not ledger.start(task, lease):

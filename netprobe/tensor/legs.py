@@ -123,11 +123,6 @@ class ChargeRule:
         """Number of charge components."""
         return len(self.moduli)
 
-    @property
-    def is_trivial(self) -> bool:
-        """True when every component is the trivial one."""
-        return all(m == 1 for m in self.moduli)
-
     def zero(self) -> np.ndarray:
         """Return the neutral charge, shape ``(k,)``."""
         return np.zeros(self.k, dtype=np.int64)

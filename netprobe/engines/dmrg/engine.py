@@ -49,6 +49,7 @@ from netprobe.engines.dmrg.solvers import check_eigensolver, lowest_eigenpair
 from netprobe.errors import NetprobeError
 from netprobe.engines.mps import MPS, BlockMPO, random_state
 from netprobe.tensor import BlockLayout, BlockTensor, Leg, contract, diag_multiply, eigh, lq, matmul_tally, qr, svd
+from netprobe.tensor.entropy import entropy_from_weights
 from netprobe.engines.mps.mpo import build_mpo
 
 __all__ = ["SweepSettings", "SweepRecord", "DmrgResult", "GroundStateSearch", "ConvergenceWarning",
@@ -372,6 +373,23 @@ class DmrgResult:
                 f"discarded_weight={self.discarded_weight:.2e}, converged={self.converged})")
 
 
+def _perturbed_isometry(rho, pert, xnorm2: float, alpha: float, chi: int, truncation_weight: float):
+    """The kept eigenvectors (:func:`_keep_largest`) of ``rho + alpha pert / |x|^2``.
+
+    ``rho`` is the normalised reduced density matrix of the optimised tensor and ``pert`` the
+    perturbation from its expansion ``x`` (of squared norm ``xnorm2``), whose weight ``alpha`` is the noise.
+    """
+    mixed = rho + pert * (alpha / xnorm2) if xnorm2 > 0 else rho
+    spec, u = eigh(mixed, [0, 1], [2, 3])
+    return _keep_largest(spec, u, chi, truncation_weight)
+
+
+def _normalised_centre(centre, norm2: float):
+    """``(centre / |centre|, discarded weight 1 - |centre|^2 / norm2)``: the centre after truncation."""
+    kept = centre.norm() ** 2
+    return centre / math.sqrt(kept), max(0.0, 1.0 - kept / norm2)
+
+
 def _keep_largest(spectrum, u: BlockTensor, max_dim: int, max_discarded: float) -> BlockTensor:
     """Columns of ``u`` (legs ``(x, y, bond)``) for the largest eigenvalues of a density matrix."""
     vals = np.clip(np.asarray(spectrum.values, float), 0.0, None)
@@ -395,15 +413,6 @@ def _keep_largest(spectrum, u: BlockTensor, max_dim: int, max_discarded: float) 
         if c:
             blocks[key[:2] + (int(new_index[key[2]]),)] = np.ascontiguousarray(blk[..., ::-1][..., :c])
     return BlockTensor((u.legs[0], u.legs[1], leg), None, u.rule, blocks)
-
-
-def _entropy(values) -> float:
-    p = np.asarray(values, float) ** 2
-    total = p.sum()
-    if total <= 0:
-        return 0.0
-    p = p[p > 0] / total
-    return float(-np.sum(p * np.log(p)))
 
 
 class GroundStateSearch:
@@ -532,12 +541,7 @@ class GroundStateSearch:
             rho = contract(theta.conj(), theta, ([0, 1], [0, 1]))  # (s2*, b*, s2, b): rho_right transposed
             x = op.right_expansion(theta)  # (a, s1, b*, u, s2')
             pert = contract(x.conj(), x, ([0, 1, 3], [0, 1, 3])).transpose((1, 0, 3, 2))
-        xnorm2 = x.norm() ** 2
-        mixed = rho * (1.0 / norm2)
-        if xnorm2 > 0:
-            mixed = mixed + pert * (noise / xnorm2)
-        spec, u = eigh(mixed, [0, 1], [2, 3])
-        u = _keep_largest(spec, u, chi, s.truncation_weight)
+        u = _perturbed_isometry(rho * (1.0 / norm2), pert, x.norm() ** 2, noise, chi, s.truncation_weight)
         if direction > 0:
             centre = contract(u.conj(), theta, ([0, 1], [0, 1]))  # (k, s2, b)
         else:
@@ -545,15 +549,23 @@ class GroundStateSearch:
             # right-orthonormal tensor is V^dag, i.e. conj(u) with the bond first.
             u = u.conj().transpose((2, 0, 1))  # (k, s2, b)
             centre = contract(theta, u.conj(), ([2, 3], [1, 2]))  # (a, s1, k)
-        kept = centre.norm() ** 2
-        discarded = max(0.0, 1.0 - kept / norm2)
-        centre = centre / math.sqrt(kept)
+        centre, discarded = _normalised_centre(centre, norm2)
         if direction > 0:
             return u, centre, discarded, None
         return centre, u, discarded, None
 
-    def _update_bond(self, i, direction, *, chi, noise, stats):
+    def _solve_local(self, op, v0, stats) -> np.ndarray:
+        """The lowest eigenvector of ``op`` from ``v0``; its energy and costs go into ``stats``."""
         s = self.settings
+        flops = matmul_tally().flops
+        pair = lowest_eigenpair(s.eigensolver, op, v0, tol=stats["tolerance"],
+                                krylov_dimension=s.krylov_dimension, restarts=s.solver_restarts)
+        stats["matvec_flops"] += matmul_tally().flops - flops
+        stats["matvecs"] += pair.matvecs
+        stats["energy"] = pair.value
+        return pair.vector
+
+    def _update_bond(self, i, direction, *, chi, noise, stats):
         tensors = self.state.tensors
         theta = contract(tensors[i], tensors[i + 1], ([2], [0]))
         layout = BlockLayout(theta.legs, None, self.state.basis.rule, self.dtype)
@@ -564,13 +576,7 @@ class GroundStateSearch:
             v0 = self.rng.standard_normal(layout.size)
             if self.dtype.kind == "c":
                 v0 = v0 + 1j * self.rng.standard_normal(layout.size)
-        flops = matmul_tally().flops
-        pair = lowest_eigenpair(s.eigensolver, op, v0, tol=stats["tolerance"],
-                                krylov_dimension=s.krylov_dimension, restarts=s.solver_restarts)
-        stats["matvec_flops"] += matmul_tally().flops - flops
-        stats["matvecs"] += pair.matvecs
-        stats["energy"] = pair.value
-        theta = layout.unpack(pair.vector)
+        theta = layout.unpack(self._solve_local(op, v0, stats))
         if noise > 0:
             left, right, discarded, values = self._split_perturbed(theta, op, direction, chi, noise)
         else:
@@ -587,7 +593,7 @@ class GroundStateSearch:
                 centre = right if direction > 0 else left
                 axes = ([0], [1, 2]) if direction > 0 else ([0, 1], [2])
                 values = svd(centre, *axes)[1].values
-            stats["entropy"] = _entropy(values)
+            stats["entropy"] = entropy_from_weights(np.asarray(values, float) ** 2)
 
     def _expand_site(self, a, op, direction, chi, alpha):
         """Subspace expansion of the optimised site tensor ``a``: the kept isometry and the centre factor.
@@ -605,38 +611,24 @@ class GroundStateSearch:
             rho = contract(a.conj(), a, ([0], [0]))  # (s*, b*, s, b)
             x = op.right_expansion(a)  # (a, b*, w, s')
             pert = contract(x.conj(), x, ([0, 2], [0, 2])).transpose((1, 0, 3, 2))
-        xnorm2 = x.norm() ** 2
-        mixed = rho * (1.0 / norm2)
-        if xnorm2 > 0:
-            mixed = mixed + pert * (alpha / xnorm2)
-        spec, u = eigh(mixed, [0, 1], [2, 3])
-        u = _keep_largest(spec, u, chi, s.truncation_weight)
+        u = _perturbed_isometry(rho * (1.0 / norm2), pert, x.norm() ** 2, alpha, chi, s.truncation_weight)
         if direction > 0:
             centre = contract(u.conj(), a, ([0, 1], [0, 1]))  # (k, b)
         else:
             u = u.conj().transpose((2, 0, 1))  # (k, s, b)
             centre = contract(a, u.conj(), ([1, 2], [1, 2]))  # (a, k)
-        kept = centre.norm() ** 2
-        discarded = max(0.0, 1.0 - kept / norm2)
-        centre = centre / math.sqrt(kept)
+        centre, discarded = _normalised_centre(centre, norm2)
         return u, centre, discarded
 
     def _update_site(self, i, direction, stats, *, chi=None, noise=0.0):
-        s = self.settings
         tensors = self.state.tensors
         a = tensors[i]
         layout = BlockLayout(a.legs, None, self.state.basis.rule, self.dtype)
         op = SiteOperator(self._env.left[i], self.mpo.tensors[i], self._env.right[i + 1], layout)
         v0 = layout.pack(a)
-        flops = matmul_tally().flops
-        pair = lowest_eigenpair(s.eigensolver, op, v0, tol=stats["tolerance"],
-                                krylov_dimension=s.krylov_dimension, restarts=s.solver_restarts)
-        stats["matvec_flops"] += matmul_tally().flops - flops
-        stats["matvecs"] += pair.matvecs
-        stats["energy"] = pair.value
-        a = layout.unpack(pair.vector)
+        a = layout.unpack(self._solve_local(op, v0, stats))
         if direction < 0 and i == self.state.num_sites // 2:
-            stats["entropy"] = _entropy(svd(a, [0], [1, 2])[1].values)
+            stats["entropy"] = entropy_from_weights(svd(a, [0], [1, 2])[1].values ** 2)
         if noise > 0 and ((direction > 0 and i + 1 < self.state.num_sites) or (direction < 0 and i > 0)):
             u, centre, discarded = self._expand_site(a, op, direction, chi, noise)
             stats["discarded"] = max(stats["discarded"], discarded)

@@ -2,26 +2,9 @@
 on first use), operators, ground states and measurements (``solve``).
 """
 
-from netprobe.engines.exact.basis import (  # noqa: F401 (re-exported)
-    SectorBasis, sector_basis,
-)
-from netprobe.engines.exact.solve import (  # noqa: F401 (re-exported)
-    ExactOptions, ExactResult, hamiltonian_matrix, hamiltonian_operator, operator_matrix, apply_operator,
-    ground_state, expectation, local_expectations, correlation, full_vector,
-)
+from netprobe.engines.exact import basis as _basis
+from netprobe.engines.exact import solve as _solve
+from netprobe.engines.exact.basis import *  # noqa: F401,F403 (re-exported: its __all__)
+from netprobe.engines.exact.solve import *  # noqa: F401,F403 (re-exported: its __all__)
 
-__all__ = [
-    "SectorBasis",
-    "sector_basis",
-    "ExactOptions",
-    "ExactResult",
-    "hamiltonian_matrix",
-    "hamiltonian_operator",
-    "operator_matrix",
-    "apply_operator",
-    "ground_state",
-    "expectation",
-    "local_expectations",
-    "correlation",
-    "full_vector",
-]
+__all__ = [*_basis.__all__, *_solve.__all__]

@@ -67,7 +67,6 @@ __all__ = [
     "majorana_modular_matrix",
     "fermion_modular_commutator",
     "majorana_modular_commutator",
-    "real_space_chern_number",
 ]
 
 
@@ -167,16 +166,12 @@ def majorana_modular_commutator(gamma: np.ndarray, sizes: tuple[int, int, int], 
     return float(0.5 * np.sum((gamma[na:, : na + nb] @ w_ab_b) * w_bc_b.T))
 
 
-def real_space_chern_number(p: np.ndarray, a: np.ndarray, b: np.ndarray, c: np.ndarray) -> float:
-    """``nu = 12 pi i sum_{j in A, k in B, l in C} (P_jk P_kl P_lj - P_jl P_lk P_kj)``.
+def _chern_from_blocks(p_ab: np.ndarray, p_bc: np.ndarray, p_ca: np.ndarray) -> float:
+    """``nu = 12 pi i sum_{j in A, k in B, l in C} (P_jk P_kl P_lj - P_jl P_lk P_kj)`` from the blocks of P.
 
     The first sum is ``t = Tr(P_AB P_BC P_CA)``, the second its complex conjugate (P is Hermitian),
     so ``nu = -24 pi Im t`` (Kitaev, Annals of Physics 321, 2 (2006), appendix).
     """
-    return _chern_from_blocks(p[np.ix_(a, b)], p[np.ix_(b, c)], p[np.ix_(c, a)])
-
-
-def _chern_from_blocks(p_ab: np.ndarray, p_bc: np.ndarray, p_ca: np.ndarray) -> float:
     t = np.sum((p_ab @ p_bc) * p_ca.T)
     return float(-24.0 * math.pi * np.imag(t))
 
@@ -213,6 +208,14 @@ class _Probes:
     spin_like: bool
     source: np.ndarray | CylinderMatrix
     _units_per_site: int
+
+    @classmethod
+    def from_model(cls, model, *, options: GaussianOptions | None = None):
+        """Build the ground state of a model (``load_model``) in its sector; see :meth:`from_hamiltonian`."""
+        return cls.from_hamiltonian(model.hamiltonian, name=model.name, options=options, model=model)
+
+    def _dense(self) -> np.ndarray:
+        return self.source if isinstance(self.source, np.ndarray) else self.source.dense()
 
     def _block(self, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
         if isinstance(self.source, np.ndarray):
@@ -269,13 +272,6 @@ class _Probes:
             raise GaussianStateError(f"entropy order must be a positive finite number, got {order}")
         return self._set_entropy(self._check(sites, "region"), order, "region")
 
-    def mutual_information(self, a: Iterable[int], b: Iterable[int]) -> float:
-        """``I(A:B) = S_A + S_B - S_AB``."""
-        ra, rb = self._regions([("A", a), ("B", b)])
-        ab = np.concatenate([ra, rb])
-        s = self._set_entropy
-        return s(ra, 1.0, "A") + s(rb, 1.0, "B") - s(ab, 1.0, "AB")
-
     def cmi(self, a: Iterable[int], b: Iterable[int], c: Iterable[int]) -> float:
         """Conditional mutual information ``I(A:C|B) = S_AB + S_BC - S_B - S_ABC``."""
         ra, rb, rc = self._regions([("A", a), ("B", b), ("C", c)])
@@ -313,9 +309,17 @@ class _Probes:
             return 0.0  # J vanishes when one part is empty (rho_ABC factorises)
         return self._commutator(self._units(np.sort(ra)), self._units(np.sort(rb)), self._units(np.sort(rc)))
 
-    def chiral_central_charge(self, a: Iterable[int], b: Iterable[int], c: Iterable[int]) -> float:
-        """The estimate ``c_- = 3 J / pi`` from a counterclockwise three-sector disk."""
-        return 3.0 * self.modular_commutator(a, b, c) / math.pi
+
+def _label(form: QuadraticForm) -> str:
+    """How messages name the model of a quadratic form."""
+    return f"model '{form.name}'" if form.name else "the Hamiltonian"
+
+
+def _quadratic(hamiltonian, name: str, options: GaussianOptions | None, model):
+    """(options, quadratic form, label) of a Hamiltonian: the first steps of every ``from_hamiltonian``."""
+    options = options or GaussianOptions()
+    form = quadratic_form(hamiltonian, name=name, options=options, model=model)
+    return options, form, _label(form)
 
 
 def _sector_blocks(form: QuadraticForm, hamiltonian, label: str):
@@ -446,12 +450,7 @@ class FreeFermionState(_Probes):
     @property
     def correlation(self) -> np.ndarray:
         """``G_ij = <c_j^dag c_i>``, modes in Jordan-Wigner order (by momentum: formed on first use)."""
-        return self.source if isinstance(self.source, np.ndarray) else self.source.dense()
-
-    @classmethod
-    def from_model(cls, model, *, options: GaussianOptions | None = None) -> "FreeFermionState":
-        """Build the ground state of a model (``load_model``) in its sector."""
-        return cls.from_hamiltonian(model.hamiltonian, name=model.name, options=options, model=model)
+        return self._dense()
 
     @classmethod
     def from_hamiltonian(cls, hamiltonian, *, name: str = "", options: GaussianOptions | None = None,
@@ -466,9 +465,7 @@ class FreeFermionState(_Probes):
             If it has pairing terms (use :class:`MajoranaState`) or its ground state in the sector
             is not unique (degenerate levels at the Fermi energy).
         """
-        options = options or GaussianOptions()
-        form = quadratic_form(hamiltonian, name=name, options=options, model=model)
-        label = f"model '{form.name}'" if form.name else "the Hamiltonian"
+        options, form, label = _quadratic(hamiltonian, name, options, model)
         if form.has_pairing:
             raise GaussianStateError(
                 f"{label} has pairing terms; use MajoranaState.from_model or gaussian_state for it")
@@ -492,7 +489,7 @@ class FreeFermionState(_Probes):
             The lattice of the form's sites; needed for the momentum route (``options.route``).
         """
         options = options or GaussianOptions()
-        label = f"model '{form.name}'" if form.name else "the Hamiltonian"
+        label = _label(form)
         if form.has_pairing:
             raise GaussianStateError(f"{label} has pairing terms; use MajoranaState.from_form for it")
         n = form.num_modes
@@ -613,17 +610,12 @@ class MajoranaState(_Probes):
     @property
     def covariance(self) -> np.ndarray:
         """``Gamma_pq = (i/2) <[g_p, g_q]>``, real antisymmetric; Majoranas ``2j, 2j+1`` belong to mode j."""
-        return self.source if isinstance(self.source, np.ndarray) else self.source.dense()
-
-    @classmethod
-    def from_model(cls, model, *, options: GaussianOptions | None = None) -> "MajoranaState":
-        """Build the ground state of a model; number-conserving models are filled in their sector first."""
-        return cls.from_hamiltonian(model.hamiltonian, name=model.name, options=options, model=model)
+        return self._dense()
 
     @classmethod
     def from_hamiltonian(cls, hamiltonian, *, name: str = "", options: GaussianOptions | None = None,
                          model=None) -> "MajoranaState":
-        """Build the ground state of a Hamiltonian (see :meth:`from_model`).
+        """Build the ground state of a Hamiltonian; number-conserving ones are filled in their sector first.
 
         Raises
         ------
@@ -632,9 +624,7 @@ class MajoranaState(_Probes):
         GaussianStateError
             If it conserves a particle number but has pairing terms, or its ground state is not unique.
         """
-        options = options or GaussianOptions()
-        form = quadratic_form(hamiltonian, name=name, options=options, model=model)
-        label = f"model '{form.name}'" if form.name else "the Hamiltonian"
+        options, form, label = _quadratic(hamiltonian, name, options, model)
         lattice = getattr(hamiltonian, "lattice", None)
         if not form.has_pairing:
             blocks = _sector_blocks(form, hamiltonian, label)
@@ -654,7 +644,7 @@ class MajoranaState(_Probes):
         ``lattice`` (optional) enables the momentum route (``options.route``).
         """
         options = options or GaussianOptions()
-        label = f"model '{form.name}'" if form.name else "the Hamiltonian"
+        label = _label(form)
         w, shift = form.majorana_matrix()
         plan = _translation_plan(w, lattice, 2 * form.modes_per_site, options, label)
         if plan is None:
@@ -705,12 +695,6 @@ class MajoranaState(_Probes):
             source = CylinderMatrix(gamma, majorana_layout(layout))
         return cls(source, state.levels, state.energy, state.num_sites, state.modes_per_site, state.clip,
                    state.spin_like, state.name)
-
-    def covariance_matrix(self, sites: Iterable[int]) -> np.ndarray:
-        """``Gamma_X`` for a set of sites (Majoranas of each site in turn, in the given site order)."""
-        arr = self._check(sites, "region")
-        u = self._units(arr)
-        return np.array(self._block(u, u))
 
     def _spectrum_entropy(self, units, order) -> float:
         return majorana_entropy(np.linalg.eigvalsh(1j * self._block(units, units)), order)

@@ -2,33 +2,9 @@
 (``measure``); the MPO (``mpo``), its compression and state files (``store``) live beside.
 """
 
-from netprobe.engines.mps.state import (  # noqa: F401 (re-exported)
-    SiteBasis, BlockMPO, MPS, random_state, product_state, overlap,
-)
-from netprobe.engines.mps.measure import (  # noqa: F401 (re-exported)
-    SchmidtSpectrum, expectation_value, energy_variance, local_expectations, correlation, product_expectation,
-    schmidt_spectra, entanglement_entropies, entanglement_spectrum, left_boundary, right_boundary, left_environment_step,
-    right_environment_step,
-)
+from netprobe.engines.mps import state as _state
+from netprobe.engines.mps import measure as _measure
+from netprobe.engines.mps.state import *  # noqa: F401,F403 (re-exported: its __all__)
+from netprobe.engines.mps.measure import *  # noqa: F401,F403 (re-exported: its __all__)
 
-__all__ = [
-    "SiteBasis",
-    "BlockMPO",
-    "MPS",
-    "random_state",
-    "product_state",
-    "overlap",
-    "SchmidtSpectrum",
-    "expectation_value",
-    "energy_variance",
-    "local_expectations",
-    "correlation",
-    "product_expectation",
-    "schmidt_spectra",
-    "entanglement_entropies",
-    "entanglement_spectrum",
-    "left_boundary",
-    "right_boundary",
-    "left_environment_step",
-    "right_environment_step",
-]
+__all__ = [*_state.__all__, *_measure.__all__]

@@ -14,6 +14,7 @@ import numpy as np
 from netprobe.errors import NetprobeError, OperatorError
 from netprobe.model.sites import operator_charge_change, operator_parity
 from netprobe.tensor import BlockTensor, contract, diag_multiply, svd, trace
+from netprobe.tensor.entropy import entropy_from_weights, renyi_from_weights
 from netprobe.model.terms import LocalProduct, Term, normal_form
 from netprobe.engines.mps.state import (
     BlockMPO, MPS, SiteBasis,
@@ -312,15 +313,11 @@ class SchmidtSpectrum:
 
     def entropy(self) -> float:
         """Von Neumann entanglement entropy ``-sum p ln p`` (nats)."""
-        p = self.weights[self.weights > 0]
-        return float(-np.sum(p * np.log(p)))
+        return entropy_from_weights(self.weights)
 
     def renyi(self, alpha: float) -> float:
         """Renyi entropy ``ln(sum p**alpha) / (1 - alpha)`` (nats); alpha = 1 gives :meth:`entropy`."""
-        if alpha == 1:
-            return self.entropy()
-        p = self.weights[self.weights > 0]
-        return float(np.log(np.sum(p**alpha)) / (1 - alpha))
+        return renyi_from_weights(self.weights, alpha)
 
     def per_charge(self) -> dict[tuple[int, ...], np.ndarray]:
         """Schmidt values grouped by the charge of the left part (descending in each group)."""
