@@ -436,6 +436,14 @@ def _sectors_of_size(lattice, size: int):
 
 def free_fermions(ctx: Context) -> list[Figure]:
     """J and the real-space Chern number of Haldane-model disks of about 100, 400 and 1600 sites."""
+    # one BLAS thread, as in the sweep and matvec figures: on this shared 2-core machine under load,
+    # two threads made the two eigendecompositions of J (order ~1070, complex) about 9x slower
+    # (93 s against 10 s for the 1600-site disk in runs minutes apart)
+    with threadpool_limits(limits=1):
+        return _free_fermions(ctx)
+
+
+def _free_fermions(ctx: Context) -> list[Figure]:
     from netprobe.engines.gaussian import GaussianOptions, gaussian_state
     from netprobe.model.spec import load_model
 
@@ -467,7 +475,7 @@ def free_fermions(ctx: Context) -> list[Figure]:
         "ground_state_seconds": prepare, "region_seconds": placed - prepared,
         "j_seconds": measured_j - placed, "chern_seconds": start + end_to_end - measured_j,
         "route": state.route, "J": j, "chern_number": nu, "sites": len(a) + len(b) + len(c),
-        "lattice_sites": model.lattice.num_sites})]
+        "lattice_sites": model.lattice.num_sites, "blas_threads": 1})]
     if not ctx.quick:  # the dense route for comparison (one eigendecomposition of 3168 modes)
         begin = time.perf_counter()
         dense = gaussian_state(model, options=GaussianOptions(route="dense"))
