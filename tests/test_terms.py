@@ -60,6 +60,25 @@ def test_fermion_products_match_jordan_wigner_definition(space_name, rng):
         assert np.allclose(got, expected, atol=tol()), ops
 
 
+def test_one_operator_pattern_on_many_site_sets_matches_jordan_wigner_definition():
+    # normal forms are worked out once per pattern (operator names, order of the sites) and placed
+    # on each term's sites: the placed strings must still equal the definition (Jordan and Wigner
+    # 1928, built by brute force above) for strings of every length, an even factor inside a
+    # string and two strings in one term
+    space = site_space("fermion")
+    n = 6
+    patterns = [("cdag", "c"), ("c", "cdag"), ("cdag", "n", "c"), ("cdag", "c", "cdag", "c")]
+    for names in patterns:
+        for sites in itertools.permutations(range(n), len(names)):
+            ops = tuple(zip(sites, names))
+            expected = np.eye(2**n)
+            for site, name in ops:
+                expected = expected @ physical_operator(space, n, site, name)
+            prod = normal_form(Term(0.7, ops), space)
+            got = np.zeros_like(expected) if prod is None else dense_of(prod, n, 2)
+            assert np.allclose(got, 0.7 * expected, atol=tol()), ops
+
+
 def test_anticommutation_across_sites():
     # {c_i, c_j^dag} = delta_ij, built from normal forms only (canonical anticommutation, common practice)
     space = site_space("fermion")

@@ -297,6 +297,15 @@ class Lattice:
 
     def _instantiate(self, templates):
         families: dict[str, list[Bond]] = {"sites": []}
+        placed_at: dict[tuple[int, int, int], np.ndarray] = {}
+
+        def position(ix, iy, s):  # each member position recurs in several bonds: computed once
+            key = (ix, iy, s)
+            pos = placed_at.get(key)
+            if pos is None:
+                pos = placed_at[key] = self._cell.position(ix, iy, s)
+            return pos
+
         for k in range(self.num_sites):
             ix, iy = self.cells[k]
             families["sites"].append(
@@ -313,7 +322,7 @@ class Lattice:
                     jx, jy, w = placed
                     slots.append(slot)
                     sites.append(self._index[(jx, jy, s)])
-                    positions.append(self._cell.position(ix + dx, iy + dy, s))
+                    positions.append(position(ix + dx, iy + dy, s))
                     winds.append(w)
                 if len(sites) < len(t.members) and not (t.partial_ok and len(sites) >= 2):
                     continue

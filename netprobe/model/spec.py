@@ -430,8 +430,10 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None, *,
         raise SpecError(f"{where}: a uniform flux is only supported on cylinders and strips; use geometry = \"cylinder\"")
     terms: list[Term] = []
     conjugated: set[str] = set()
+    charge_changes: dict[str, int | None] = {}  # flux-charge change of each operator name, for Peierls phases
     for entry in spec.terms:
         bonds = lattice.family(entry.on)
+        couplings: dict[int, Any] = {}  # without site variables a coupling depends on the member count only
         uses_site_vars = bool(entry.coupling.names & set(_SITE_VARIABLES))
         if uses_site_vars and entry.on != "sites":
             raise SpecError(
@@ -448,10 +450,14 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None, *,
                 site = bond.sites[0]
                 local_env.update(x=float(lattice.positions[site, 0]), y=float(lattice.positions[site, 1]),
                                  sublattice=int(lattice.sublattice[site]), eps=1 - 2 * int(lattice.sublattice[site] % 2))
-            try:
-                coupling = entry.coupling.evaluate(local_env)
-            except ExpressionError as err:
-                raise SpecError(f"{where}: {entry.label}: {err}") from None
+            coupling = None if uses_site_vars else couplings.get(len(bond.sites))
+            if coupling is None:
+                try:
+                    coupling = entry.coupling.evaluate(local_env)
+                except ExpressionError as err:
+                    raise SpecError(f"{where}: {entry.label}: {err}") from None
+                if not uses_site_vars:
+                    couplings[len(bond.sites)] = coupling
             if coupling == 0:
                 continue
             slots = bond.slots
@@ -473,7 +479,8 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None, *,
                     if slot in slots:
                         ops.append((bond.sites[slots.index(slot)], name))
                 if entry.peierls and (flux or twist) and len(ops) == 2 and space.flux_charge:
-                    coeff *= _peierls_factor(lattice, bond, ops, slots, names, space, flux, twist)
+                    coeff *= _peierls_factor(lattice, bond, ops, slots, names, space, flux, twist,
+                                             charge_changes)
                 origin = f"{entry.label} on sites {bond.sites}"
                 terms.append(Term(coeff, tuple(ops), origin))
                 if entry.conjugate:
@@ -519,11 +526,17 @@ def _evaluate_factor(factor, env, where, entry):
         raise SpecError(f"{where}: {entry.label}: {err}") from None
 
 
-def _peierls_factor(lattice, bond, ops, slots, names, space, flux, twist) -> complex:
-    """exp(i q A) for a pair that moves the flux charge from one member to the other."""
+def _peierls_factor(lattice, bond, ops, slots, names, space, flux, twist, cache=None) -> complex:
+    """exp(i q A) for a pair that moves the flux charge from one member to the other.
+
+    ``cache`` (a dict) keeps the charge change of each operator name between calls.
+    """
     changes = []
+    cache = {} if cache is None else cache
     for site, name in ops:
-        delta = operator_charge_change(space, space.operator(name), space.flux_charge)
+        if name not in cache:
+            cache[name] = operator_charge_change(space, space.operator(name), space.flux_charge)
+        delta = cache[name]
         if delta is None:
             return 1.0
         changes.append(delta * space.flux_charge_scale)

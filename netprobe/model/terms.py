@@ -70,8 +70,16 @@ class LocalProduct:
         shared = {id(m) for m in _STRINGS.values()}
         return LocalProduct(
             np.conj(self.coefficient), self.sites,
-            tuple(m if id(m) in shared else m.conj().T for m in self.matrices), self.origin
+            tuple(m if id(m) in shared else _adjoint(m) for m in self.matrices), self.origin
         )
+
+
+def _adjoint(mat: np.ndarray) -> np.ndarray:
+    """``mat.conj().T``, shared for the matrices of the normal-form patterns."""
+    entry = _ADJOINTS.get(id(mat))
+    if entry is not None and entry[0] is mat:
+        return entry[1]
+    return mat.conj().T
 
 
 def _proportional_to_identity(mat: np.ndarray):
@@ -105,49 +113,152 @@ def _string_operator(space: SiteSpace) -> np.ndarray:
 def normal_form(term: Term, space: SiteSpace) -> LocalProduct | None:
     """Bring a term into normal form (see the module notes); ``None`` if it vanishes.
 
+    Terms that differ only in their sites, not in their operators or in the order of their sites,
+    share one normal form up to where the strings run: it is worked out once (a :class:`_Pattern`)
+    and placed on the sites of each such term.
+
     Raises
     ------
     OperatorError
         For an unknown operator, or a term that changes the fermion parity (such a term cannot
         appear in a Hamiltonian).
     """
-    mats = [space.operator(name) for _, name in term.operators]
     sites = [int(s) for s, _ in term.operators]
-    parities = [operator_parity(space, m) for m in mats]
-    if sum(parities) % 2:
-        raise OperatorError(
-            f"term {term.origin or term.operators} changes the fermion parity; a Hamiltonian term needs an "
-            "even number of fermion operators"
-        )
-    sign = 1
-    for a in range(len(sites)):  # odd operators exchanged by the stable sort
-        if parities[a]:
-            for b in range(a + 1, len(sites)):
-                if parities[b] and sites[a] > sites[b]:
-                    sign = -sign
-    order = sorted(range(len(sites)), key=lambda k: sites[k])
-    grouped: dict[int, np.ndarray] = {}
-    for k in order:
-        s = sites[k]
-        grouped[s] = grouped[s] @ mats[k] if s in grouped else mats[k]
-    coefficient = complex(term.coefficient) * sign
-    local = {}
-    for s, mat in grouped.items():
-        scale = _proportional_to_identity(mat)
-        if scale is None:
-            local[s] = mat
-        else:
+    distinct = sorted(set(sites))
+    rank = {s: r for r, s in enumerate(distinct)}
+    ranks = tuple(rank[s] for s in sites)
+    key = (id(space), tuple(name for _, name in term.operators), ranks)
+    pattern = _PATTERNS.get(key)
+    if pattern is None:
+        pattern = _Pattern.build(term, space, ranks)
+        if len(_PATTERNS) >= _PATTERN_LIMIT:
+            _PATTERNS.clear()
+            _ADJOINTS.clear()
+        _PATTERNS[key] = (pattern, space)  # the space is held so that its id stays unique
+    else:
+        pattern = pattern[0]
+    return pattern.place(term, distinct)
+
+
+_PATTERN_LIMIT = 4096  # distinct (operators, site order) patterns kept; models have a handful
+_PATTERNS: dict[tuple, tuple["_Pattern", SiteSpace]] = {}
+# adjoints of the pattern matrices, by id (the patterns hold the matrices, so the ids stay valid)
+_ADJOINTS: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+
+
+@dataclass(frozen=True)
+class _Pattern:
+    """The normal form of a term on sites given by their ranks (0 for the lowest site, ...).
+
+    ``kept`` lists (rank, matrix) of the factors that are not proportional to the identity, in
+    site order, strings already multiplied in where a factor lies on or inside a string;
+    ``pairs`` the rank pairs of odd factors whose strict interior carries ``F``; ``inside`` is True
+    when a kept factor lies strictly inside a string (the sites are then merged one by one).
+    """
+
+    sign: int
+    scales: tuple
+    kept: tuple
+    pairs: tuple
+    inside: bool
+    string: np.ndarray | None
+
+    @classmethod
+    def build(cls, term: Term, space: SiteSpace, ranks: tuple[int, ...]) -> "_Pattern":
+        mats = [space.operator(name) for _, name in term.operators]
+        parities = [operator_parity(space, m) for m in mats]
+        if sum(parities) % 2:
+            raise OperatorError(
+                f"term {term.origin or term.operators} changes the fermion parity; a Hamiltonian term needs an "
+                "even number of fermion operators"
+            )
+        sign = 1
+        for a in range(len(ranks)):  # odd operators exchanged by the stable sort
+            if parities[a]:
+                for b in range(a + 1, len(ranks)):
+                    if parities[b] and ranks[a] > ranks[b]:
+                        sign = -sign
+        order = sorted(range(len(ranks)), key=lambda k: ranks[k])
+        grouped: dict[int, np.ndarray] = {}
+        for k in order:
+            r = ranks[k]
+            grouped[r] = grouped[r] @ mats[k] if r in grouped else mats[k]
+        scales, local = [], {}
+        for r, mat in grouped.items():
+            scale = _proportional_to_identity(mat)
+            if scale is None:
+                local[r] = mat
+            else:
+                scales.append(scale)
+        odd = [r for r in sorted(local) if operator_parity(space, local[r])]
+        fmat = _string_operator(space) if odd else None
+        pairs = tuple(zip(odd[0::2], odd[1::2]))
+        inside = False
+        for p, q in pairs:
+            local[p] = local[p] @ fmat
+            for r in local:
+                if p < r < q:
+                    local[r] = local[r] @ fmat
+                    inside = True
+        kept = []
+        for r in sorted(local):
+            mat = np.asarray(local[r])
+            if mat is fmat:
+                kept.append((r, mat))
+                continue
+            mat = mat.copy()
+            mat.setflags(write=False)
+            adj = mat.conj().T
+            adj.setflags(write=False)
+            _ADJOINTS[id(mat)] = (mat, adj)
+            kept.append((r, mat))
+        return cls(sign, tuple(scales), tuple(kept), pairs, inside, fmat)
+
+    def place(self, term: Term, distinct: list[int]) -> LocalProduct | None:
+        coefficient = complex(term.coefficient) * self.sign
+        for scale in self.scales:
             coefficient *= scale
-    if abs(coefficient) == 0.0:
-        return None
-    odd = [s for s in sorted(local) if operator_parity(space, local[s])]
-    fmat = _string_operator(space)
-    for p, q in zip(odd[0::2], odd[1::2]):
-        local[p] = local[p] @ fmat
-        for s in range(p + 1, q):
-            local[s] = local[s] @ fmat if s in local else fmat
-    keep = sorted(local)
-    return LocalProduct(coefficient, tuple(keep), tuple(np.asarray(local[s]) for s in keep), term.origin)
+        if abs(coefficient) == 0.0:
+            return None
+        if not self.pairs:
+            sites = tuple(distinct[r] for r, _ in self.kept)
+            return LocalProduct(coefficient, sites, tuple(m for _, m in self.kept), term.origin)
+        if self.inside:
+            local = {distinct[r]: m for r, m in self.kept}
+            for p, q in self.pairs:
+                for s in range(distinct[p] + 1, distinct[q]):
+                    local.setdefault(s, self.string)
+            keep = sorted(local)
+            return LocalProduct(coefficient, tuple(keep), tuple(local[s] for s in keep), term.origin)
+        starts = {p: distinct[q] for p, q in self.pairs}
+        sites, mats = [], []
+        for r, m in self.kept:
+            s = distinct[r]
+            sites.append(s)
+            mats.append(m)
+            end = starts.get(r)
+            if end is not None and end > s + 1:
+                sites.extend(range(s + 1, end))
+                mats.extend([self.string] * (end - s - 1))
+        return LocalProduct(coefficient, tuple(sites), tuple(mats), term.origin)
+
+
+def _any_complex(products) -> bool:
+    """True if a coefficient or a matrix of the products has a nonzero imaginary part.
+
+    Matrices shared between products (strings, normal-form patterns) are looked at once.
+    """
+    seen: set[int] = set()
+    for p in products:
+        if abs(np.imag(p.coefficient)) > 0:
+            return True
+        for m in p.matrices:
+            if id(m) in seen:
+                continue
+            seen.add(id(m))
+            if np.iscomplexobj(m) and np.any(np.imag(m)):
+                return True
+    return False
 
 
 class Hamiltonian:
@@ -172,23 +283,26 @@ class Hamiltonian:
         self.products = tuple(products)
         self.conserved = tuple(conserved)
         self.sector = dict(sector or {})
-        self.is_complex = any(
-            abs(np.imag(p.coefficient)) > 0 or any(np.iscomplexobj(m) and np.any(np.imag(m)) for m in p.matrices)
-            for p in self.products
-        )
+        # indices of products added as the exact adjoint of their neighbour (see from_terms): a
+        # group of such pairs is Hermitian by construction, and check_hermitian passes over it
+        self._paired: frozenset[int] = frozenset()
+        self.is_complex = _any_complex(self.products)
 
     @classmethod
     def from_terms(cls, lattice, space: SiteSpace, terms: Iterable[Term], *, add_conjugate=(), **kwargs):
         """Build from written terms; ``add_conjugate`` holds the origins whose conjugates are added."""
-        products = []
+        products, paired = [], []
         for term in terms:
             prod = normal_form(term, space)
             if prod is None:
                 continue
             products.append(prod)
             if term.origin in add_conjugate:
+                paired.extend((len(products) - 1, len(products)))
                 products.append(prod.adjoint())
-        return cls(lattice, space, products, **kwargs)
+        ham = cls(lattice, space, products, **kwargs)
+        ham._paired = frozenset(paired)
+        return ham
 
     def with_sector(self, sector: dict[str, int]) -> "Hamiltonian":
         """The same Hamiltonian targeting another charge sector (e.g. N + 1 for a charge gap)."""
@@ -218,18 +332,24 @@ class Hamiltonian:
         every term of a group are split off first, so only the varying sites are made dense.
         """
         groups: dict[tuple[int, ...], list[LocalProduct]] = {}
-        for p in self.products:
+        unpaired: set[tuple[int, ...]] = set()
+        for i, p in enumerate(self.products):
             groups.setdefault(p.sites, []).append(p)
+            if i not in self._paired:
+                unpaired.add(p.sites)
         scale = max((abs(p.coefficient) for p in self.products), default=1.0) or 1.0
         string = _STRINGS.get(getattr(self.space, "name", None))
+        string_id = id(string) if string is not None else None
         for support, prods in groups.items():
+            if support not in unpaired:
+                continue  # sums of a product and its adjoint (from_terms): Hermitian by construction
             varying = []
             # factors shared by identity (the string matrices) need no element-wise comparison
-            shared = [len(set(col)) == 1 for col in zip(*(map(id, q.matrices) for q in prods))]
-            for k in range(len(support)):
+            ids = np.array([list(map(id, q.matrices)) for q in prods], dtype=np.uint64)
+            shared = (ids == ids[0]).all(axis=0)
+            skip = shared & (ids[0] == np.uint64(string_id)) if string_id is not None else np.zeros_like(shared)
+            for k in np.flatnonzero(~skip).tolist():
                 first = prods[0].matrices[k]
-                if shared[k] and first is string:
-                    continue
                 common = shared[k] or all(np.array_equal(q.matrices[k], first) for q in prods[1:])
                 if not common:
                     varying.append(k)

@@ -267,7 +267,6 @@ def _face_centres(lat: Lattice) -> np.ndarray:
                 return np.array([b.positions.mean(axis=0) for b in bonds])
     # lattices whose bonds meet at 120 degrees (honeycomb): site + e1 + e2 is the centre of the
     # hexagon between the bonds e1 and e2
-    out = []
     try:
         pairs = list(_bond_pairs(lat, "nn"))
     except LatticeError:
@@ -276,13 +275,20 @@ def _face_centres(lat: Lattice) -> np.ndarray:
     for i, j, v in pairs:
         vectors.setdefault(i, []).append(v)
         vectors.setdefault(j, []).append(-v)
+    # every pair of bond vectors at one site, in the order site by site, then p < q
+    site, first, second = [], [], []
     for i, vs in vectors.items():
         for p in range(len(vs)):
             for q in range(p + 1, len(vs)):
-                cos = float(vs[p] @ vs[q]) / (np.linalg.norm(vs[p]) * np.linalg.norm(vs[q]))
-                if abs(cos + 0.5) < 1e-6:
-                    out.append(lat.positions[i] + vs[p] + vs[q])
-    return np.array(out).reshape(-1, 2)
+                site.append(i)
+                first.append(vs[p])
+                second.append(vs[q])
+    if not site:
+        return np.zeros((0, 2))
+    first, second = np.array(first, dtype=float), np.array(second, dtype=float)
+    cos = np.sum(first * second, axis=1) / (np.hypot(first[:, 0], first[:, 1]) * np.hypot(second[:, 0], second[:, 1]))
+    keep = np.abs(cos + 0.5) < 1e-6
+    return (lat.positions[np.array(site)[keep]] + first[keep] + second[keep]).reshape(-1, 2)
 
 
 def _is_generic(lat: Lattice, center, start: float = 90.0) -> bool:
@@ -331,7 +337,9 @@ def default_center(lattice: Lattice) -> tuple[float, float]:
         d = faces - centre
         d[:, 1] = _wrap_dy(lattice, d[:, 1])
         dist = np.round(np.hypot(d[:, 0], d[:, 1]), 9)
-        best = min(range(len(faces)), key=lambda k: (dist[k], round(d[k, 0], 9), round(d[k, 1], 9)))
+        # the nearest faces first (dist is rounded already), then the tie-break on the few of them
+        nearest = np.flatnonzero(dist == dist.min()).tolist()
+        best = min(nearest, key=lambda k: (dist[k], round(d[k, 0], 9), round(d[k, 1], 9)))
         centre = centre + d[best]
     if not _is_generic(lattice, centre):
         centre = centre + np.array(CENTER_OFFSET) * _nn_length(lattice)

@@ -62,7 +62,7 @@ __all__ = [
 
 _REAL = np.dtype(np.float64)
 _COMPLEX = np.dtype(np.complex128)
-_PLAN_CACHE_SIZE = 256
+_PLAN_CACHE_SIZE = 2048  # a sweep of a 36-site cylinder at D = 128 builds about 1000 matrix plans
 
 
 # --------------------------------------------------------------------------------------------------
@@ -435,10 +435,34 @@ def _combos(legs, rule):
     return idx, rule.reduce(charge), dims
 
 
+def _row_codes(*arrays: np.ndarray) -> tuple[np.ndarray, ...] | None:
+    """One int64 per charge row, in the same lexicographic order as the rows; None if they overflow.
+
+    The codes of all ``arrays`` (each of shape (n_i, k)) share one mixed-radix base, so equal rows
+    get equal codes across them: sorting and matching rows becomes sorting and matching integers.
+    """
+    stacked = np.concatenate(arrays) if len(arrays) > 1 else arrays[0]
+    low = stacked.min(axis=0)
+    span = stacked.max(axis=0) - low + 1
+    if float(np.prod(span.astype(float))) >= 2.0**62:
+        return None
+    strides = np.ones(len(span), np.int64)
+    for i in range(len(span) - 2, -1, -1):
+        strides[i] = strides[i + 1] * span[i + 1]
+    return tuple((a - low) @ strides for a in arrays)
+
+
 def _row_lookup(table: np.ndarray, queries: np.ndarray) -> np.ndarray:
     """Index of each query row in ``table`` (rows unique), or -1."""
     if len(queries) == 0 or len(table) == 0:
         return np.full(len(queries), -1, dtype=np.int64)
+    codes = _row_codes(table, queries) if table.shape[1] else None
+    if codes is not None:
+        tcode, qcode = codes
+        order = np.argsort(tcode, kind="stable")
+        pos = np.minimum(np.searchsorted(tcode[order], qcode), len(order) - 1)
+        found = order[pos]
+        return np.where(tcode[found] == qcode, found, -1).astype(np.int64)
     _, inverse = np.unique(np.concatenate([table, queries]), axis=0, return_inverse=True)
     inverse = inverse.reshape(-1)
     where = np.full(inverse.max() + 1, -1, dtype=np.int64)
@@ -450,7 +474,12 @@ def _groups(charges: np.ndarray):
     """Unique charge rows and, for each, the indices (in order) of the rows carrying it."""
     if len(charges) == 0:
         return charges, []
-    uniq, inverse = np.unique(charges, axis=0, return_inverse=True)
+    codes = _row_codes(charges) if charges.shape[1] else None
+    if codes is not None:  # rows as integers in the same order: a 1-D unique, much cheaper
+        ucodes, first, inverse = np.unique(codes[0], return_index=True, return_inverse=True)
+        uniq = charges[first]
+    else:
+        uniq, inverse = np.unique(charges, axis=0, return_inverse=True)
     inverse = inverse.reshape(-1)
     order = np.argsort(inverse, kind="stable")
     bounds = np.cumsum(np.bincount(inverse, minlength=len(uniq)))[:-1]

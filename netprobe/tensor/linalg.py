@@ -4,6 +4,7 @@ LQ, eigh), each worked sector by sector on the fused matrices planned in :mod:`n
 
 from __future__ import annotations
 
+import functools
 import numbers
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -94,6 +95,23 @@ def contract(a: BlockTensor, b: BlockTensor, axes=2) -> BlockTensor:
 
 
 def _axes_pair(axes, nda: int, ndb: int) -> tuple[tuple[int, ...], tuple[int, ...]]:
+    # the same few leg lists recur in every matvec: their checked form is kept (cheap Python saved)
+    if not isinstance(axes, numbers.Integral):
+        try:
+            first, second = axes
+            key = (first if isinstance(first, numbers.Integral) else tuple(first),
+                   second if isinstance(second, numbers.Integral) else tuple(second))
+            hash(key)
+        except (TypeError, ValueError):
+            key = None
+        if key is None:
+            return _axes_pair_checked.__wrapped__(axes, nda, ndb)
+        return _axes_pair_checked(key, nda, ndb)
+    return _axes_pair_checked(axes, nda, ndb)
+
+
+@functools.lru_cache(maxsize=256)
+def _axes_pair_checked(axes, nda: int, ndb: int) -> tuple[tuple[int, ...], tuple[int, ...]]:
     if isinstance(axes, numbers.Integral):
         if not 0 <= axes <= min(nda, ndb):
             raise ValueError(f"contract: axes={axes} but the tensors have {nda} and {ndb} legs")

@@ -123,7 +123,8 @@ def majorana_layout(layout: CylinderLayout) -> CylinderLayout:
     return _from_index(index, 2 * layout.slice_of.size)
 
 
-def translation_blocks(matrix: np.ndarray, layout: CylinderLayout, atol: float) -> np.ndarray | None:
+def translation_blocks(matrix: np.ndarray, layout: CylinderLayout, atol: float,
+                       entries: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> np.ndarray | None:
     """The blocks ``t_d = M[(d, .), (0, .)]`` of a translation-invariant matrix, or None if it is not.
 
     Parameters
@@ -132,20 +133,38 @@ def translation_blocks(matrix: np.ndarray, layout: CylinderLayout, atol: float) 
     layout : CylinderLayout
     atol : float
         Largest entry of ``M - T M T^-1`` accepted as rounding.
+    entries : (rows, cols, values), optional
+        The nonzero entries of ``matrix`` (``np.nonzero`` order), if already at hand.
 
     Returns
     -------
     ndarray, shape (L_y, R, R) or None
+
+    Notes
+    -----
+    Invariance means ``M[(y, a), (y', b)] = t_((y - y') mod L_y)[a, b]`` for every entry. It is
+    checked on the stored (nonzero) entries of M, and, for every block entry that some zero of M
+    should equal (fewer than L_y nonzeros fall on it), by ``|t_d[a, b]| <= atol``: the same test
+    as comparing every translated copy, without gathering the whole matrix.
     """
     w, r = layout.index.shape
     flat = layout.index.ravel()
     if flat.size != matrix.shape[0]:
         return None
-    m4 = matrix[np.ix_(flat, flat)].reshape(w, r, w, r)
-    blocks = np.ascontiguousarray(m4[:, :, 0, :])
-    for shift in range(1, w):
-        if np.max(np.abs(m4[:, :, shift, :] - np.roll(blocks, shift, axis=0)), initial=0.0) > atol:
-            return None
+    blocks = np.ascontiguousarray(matrix[np.ix_(layout.index.ravel(), layout.index[0])].reshape(w, r, r))
+    if entries is None:
+        rows, cols = np.nonzero(matrix)
+        values = matrix[rows, cols]
+    else:
+        rows, cols, values = entries
+    d = (layout.slice_of[rows] - layout.slice_of[cols]) % w
+    where = (d * r + layout.orbital_of[rows]) * r + layout.orbital_of[cols]
+    flat_blocks = blocks.reshape(-1)
+    if np.max(np.abs(values - flat_blocks[where]), initial=0.0) > atol:
+        return None
+    covered = np.bincount(where, minlength=flat_blocks.size) == w
+    if np.max(np.abs(flat_blocks[~covered]), initial=0.0) > atol:
+        return None
     return blocks
 
 

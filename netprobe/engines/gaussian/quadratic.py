@@ -287,53 +287,121 @@ class _Collector:
         return None
 
 
+@dataclass(frozen=True)
+class _Layout:
+    """How the products with one tuple of local matrices expand, worked out once for all of them.
+
+    ``factors`` are (c, count) of the factors with one monomial each (count sites share the
+    matrix); ``f_index``/``f_offset`` and ``odd_index``/``odd_offset``/``odd_letter`` give the F
+    and odd letters as (position in the product's sites, mode offset); ``varying`` lists
+    (position, monomials) of the factors with several monomials. ``vanishes``: a factor is zero.
+    """
+
+    factors: tuple
+    f_index: np.ndarray
+    f_offset: np.ndarray
+    odd_index: np.ndarray
+    odd_offset: np.ndarray
+    odd_letter: tuple
+    varying: tuple
+    vanishes: bool
+
+
+def _layout_of(matrices, mode_map: _ModeMap, cache: dict) -> _Layout:
+    # group the positions by matrix content (the byte strings of float and complex d x d matrices
+    # differ in length, so bytes are a key); strings repeat one matrix over many sites
+    keys = list(map(np.ndarray.tobytes, matrices))
+    index = {key: i for i, key in enumerate(dict.fromkeys(keys))}
+    codes = np.fromiter(map(index.__getitem__, keys), dtype=np.int64, count=len(keys))
+    k = mode_map.modes_per_site
+    factors, f_index, f_offset, odd_index, odd_offset, odd_letter, varying = [], [], [], [], [], [], []
+    for key, i in index.items():
+        positions = np.flatnonzero(codes == i)
+        dec = cache.get(key)
+        if dec is None:
+            dec = cache[key] = _site_monomials(matrices[positions[0]], mode_map)
+        if not dec:
+            return _Layout((), *(np.zeros(0, dtype=np.int64),) * 4, (), (), True)
+        if len(dec) == 1:
+            c, letters = dec[0]
+            factors.append((c, positions.size))
+            for offset, letter in enumerate(letters):
+                if letter == _F:
+                    f_index.append(positions)
+                    f_offset.append(np.full(positions.size, offset))
+                elif letter != _I:
+                    odd_index.append(positions)
+                    odd_offset.append(np.full(positions.size, offset))
+                    odd_letter.extend([letter] * positions.size)
+        else:
+            varying.extend((int(p), dec) for p in positions)
+
+    def cat(parts):
+        return np.concatenate(parts).astype(np.int64) if parts else np.zeros(0, dtype=np.int64)
+
+    return _Layout(tuple(factors), cat(f_index), cat(f_offset), cat(odd_index), cat(odd_offset),
+                   tuple(odd_letter), tuple(varying), False)
+
+
 def _collect(products, mode_map: _ModeMap) -> _Collector:
+    """Expand every product into monomials of the physical modes and sum them (module notes).
+
+    Products with the same local matrices (by identity: the normal forms of one model share them)
+    share one :class:`_Layout`, and their modes are computed together, one array per layout.
+    """
     col = _Collector()
     k = mode_map.modes_per_site
     cache: dict = {}
-    empty = np.zeros(0, dtype=np.int64)
-    for prod in products:
-        # strings repeat one matrix over many sites: group the sites by matrix content first
-        # (the byte strings of float and complex d x d matrices differ in length, so bytes are a key)
-        keys = list(map(np.ndarray.tobytes, prod.matrices))
-        index = {key: i for i, key in enumerate(dict.fromkeys(keys))}
-        codes = np.fromiter(map(index.__getitem__, keys), dtype=np.int64, count=len(keys))
-        sites = np.asarray(prod.sites, dtype=np.int64)
+    layouts: dict[tuple, _Layout] = {}
+    by_layout: dict[tuple, list[int]] = {}
+    products = list(products)
+    keys = []
+    for i, prod in enumerate(products):
+        key = tuple(map(id, prod.matrices))
+        if key not in layouts:
+            layouts[key] = _layout_of(prod.matrices, mode_map, cache)
+        by_layout.setdefault(key, []).append(i)
+        keys.append(key)
+    # modes of the F and odd letters of every product, one array operation per layout
+    expanded: list = [None] * len(products)
+    for key, members in by_layout.items():
+        lay = layouts[key]
+        if lay.vanishes:
+            continue
+        sites = np.array([products[i].sites for i in members], dtype=np.int64).reshape(len(members), -1)
+        fmodes = np.sort(sites[:, lay.f_index] * k + lay.f_offset, axis=1)
+        odd = sites[:, lay.odd_index] * k + lay.odd_offset
+        for row, i in enumerate(members):
+            expanded[i] = (fmodes[row], odd[row].tolist(), sites[row])
+    for i, prod in enumerate(products):
+        if expanded[i] is None:
+            continue
+        lay = layouts[keys[i]]
+        fmodes, odd_modes, sites = expanded[i]
         coef = complex(prod.coefficient)
-        fparts, odd, varying = [], [], []
-        for key, i in index.items():
-            positions = np.flatnonzero(codes == i)
-            dec = cache.get(key)
-            if dec is None:
-                dec = cache[key] = _site_monomials(prod.matrices[positions[0]], mode_map)
-            if not dec:
-                break
-            where = sites[positions] * k
-            if len(dec) == 1:
-                c, letters = dec[0]
-                coef *= c ** where.size
+        for c, count in lay.factors:
+            coef *= c ** count
+        odd = list(zip(odd_modes, lay.odd_letter))
+        if not lay.varying:
+            odd.sort()
+            col.add(coef, odd, fmodes, prod.origin)
+            continue
+        fparts = [fmodes] if fmodes.size else []
+        for combo in itertools.product(*(dec for _, dec in lay.varying)):
+            c_all = coef
+            f_all = list(fparts)
+            odd_all = list(odd)
+            for (position, _), (c, letters) in zip(lay.varying, combo):
+                c_all *= c
+                base = int(sites[position]) * k
                 for offset, letter in enumerate(letters):
                     if letter == _F:
-                        fparts.append(where + offset)
+                        f_all.append(np.array([base + offset]))
                     elif letter != _I:
-                        odd.extend((int(m), letter) for m in where + offset)
-            else:
-                varying.extend((int(base), dec) for base in where)
-        else:
-            for combo in itertools.product(*(dec for _, dec in varying)):
-                c_all = coef
-                f_all = list(fparts)
-                odd_all = list(odd)
-                for (base, _), (c, letters) in zip(varying, combo):
-                    c_all *= c
-                    for offset, letter in enumerate(letters):
-                        if letter == _F:
-                            f_all.append(np.array([base + offset]))
-                        elif letter != _I:
-                            odd_all.append((base + offset, letter))
-                fmodes = np.sort(np.concatenate(f_all)) if f_all else empty
-                odd_all.sort()
-                col.add(c_all, odd_all, fmodes, prod.origin)
+                        odd_all.append((base + offset, letter))
+            fmodes_all = np.sort(np.concatenate(f_all)) if f_all else np.zeros(0, dtype=np.int64)
+            odd_all.sort()
+            col.add(c_all, odd_all, fmodes_all, prod.origin)
     return col
 
 
@@ -342,6 +410,36 @@ def _dense(n: int, triples, dtype=complex) -> np.ndarray:
     if triples[0]:
         np.add.at(out, (np.array(triples[0]), np.array(triples[1])), np.array(triples[2]))
     return out
+
+
+def _hermitian_part(n: int, triples, atol: float) -> tuple[bool, np.ndarray]:
+    """``(max |h - h^dag| <= atol, (h + h^dag) / 2)`` for h summed from (row, column, value) triples.
+
+    Works on the stored entries only (the matrix is sparse): the same sums in the same order as
+    the dense ``np.add.at`` and the same entry-wise arithmetic, so the result is identical to the
+    dense computation; the dense matrix is written once at the end (real if no entry is complex).
+    """
+    if not triples[0]:
+        return True, np.zeros((n, n))
+    rows, cols = np.array(triples[0], dtype=np.int64), np.array(triples[1], dtype=np.int64)
+    keys, inverse = np.unique(rows * n + cols, return_inverse=True)
+    values = np.zeros(keys.size, dtype=complex)
+    np.add.at(values, inverse.ravel(), np.array(triples[2], dtype=complex))
+    # the pattern closed under transposition, with h and h^T read on it (zero where not stored)
+    both = np.union1d(keys, (keys % n) * n + keys // n)
+    transposed = (both % n) * n + both // n
+
+    def read(at):
+        pos = np.minimum(np.searchsorted(keys, at), keys.size - 1)
+        return np.where(keys[pos] == at, values[pos], 0.0)
+
+    v, vt = read(both), read(transposed)
+    hermitian = bool(np.max(np.abs(v - vt.conj()), initial=0.0) <= atol)
+    sym = 0.5 * (v + vt.conj())
+    real = not np.any(sym.imag)
+    out = np.zeros((n, n), dtype=float if real else complex)
+    out.ravel()[both] = sym.real if real else sym
+    return hermitian, out
 
 
 def _maybe_real(mat: np.ndarray) -> np.ndarray:
@@ -410,9 +508,8 @@ def quadratic_form(hamiltonian, *, name: str = "", options: GaussianOptions | No
             failures.append((mode_map, culprit))
             continue
         n = hamiltonian.num_sites * mode_map.modes_per_site
-        h = _dense(n, col.hop)
         scale = max(col.scale, 1.0)
-        hermitian = np.max(np.abs(h - h.conj().T), initial=0.0) <= 1e-10 * scale
+        hermitian, h = _hermitian_part(n, col.hop, 1e-10 * scale)
         if col.cdcd[0] or col.cc[0]:
             cdcd = _dense(n, col.cdcd)
             cc = _dense(n, col.cc)
@@ -424,7 +521,6 @@ def quadratic_form(hamiltonian, *, name: str = "", options: GaussianOptions | No
             raise HermiticityError(
                 f"{label}: the quadratic form is not Hermitian; add the conjugate of every hopping and "
                 "pairing term (conjugate = true)")
-        h = _maybe_real(0.5 * (h + h.conj().T))
         for arr in (h, pairing):
             arr.setflags(write=False)
         return QuadraticForm(h, pairing, float(col.constant.real), hamiltonian.num_sites,

@@ -358,8 +358,10 @@ def _translation_plan(matrix: np.ndarray, lattice, units_per_site: int, options:
     layout = cylinder_layout(lattice, units_per_site) if lattice is not None else None
     blocks = None
     if layout is not None:
-        scale = max(float(np.max(np.abs(matrix), initial=0.0)), 1.0)
-        blocks = translation_blocks(matrix, layout, _TRANSLATION_RTOL * scale)
+        rows, cols = np.nonzero(matrix)  # hopping matrices are sparse: read them once, entry by entry
+        values = matrix[rows, cols]
+        scale = max(float(np.max(np.abs(values), initial=0.0)), 1.0)
+        blocks = translation_blocks(matrix, layout, _TRANSLATION_RTOL * scale, entries=(rows, cols, values))
     if blocks is not None:
         return layout, blocks
     if options.route == "momentum":
