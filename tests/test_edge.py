@@ -3,6 +3,7 @@
 import cmath
 import json
 import math
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -12,6 +13,7 @@ from netprobe.pipeline.cut import (_mode_permutation, column_cut, exact_cut, gau
                           translation_expectation_gaussian, translation_unitary)
 from netprobe.pipeline.edge import (CHARACTERS, ZERO_MODE_RATIO, count_levels, edge_ladder, edge_state,
                                     fit_polarization)
+from netprobe.cli.assess import polarization_line
 from netprobe.errors import LatticeError
 from netprobe.engines.exact import ground_state
 from netprobe.engines.gaussian import gaussian_state, quadratic_form
@@ -334,6 +336,30 @@ def test_edge_command_ladder_json_and_plot(tmp_path):
         assert key in pol
     assert pol["circumferences"] == [5, 7, 9, 11]
     assert png.stat().st_size > 1000
+
+
+def test_assess_reports_the_polarization_beside_the_bulk_estimate():
+    # the free-fermion Chern insulator at m = 1 has c- = +1 (Qi, Wu, Zhang, PRB 74, 085308 (2006)) by both
+    # routes: bulk J (PRL 128, 176402 (2022)) and the cut's momentum polarization (Tu, Zhang, Qi, PRB 88,
+    # 195412 (2013)); at these small sizes both fall short of 1 (bulk regions of 9 sites, L_y <= 13)
+    proc = run_cli("assess", "chern_square", "--engine", "gaussian", "--set", "length=8", "--set",
+                   "circumference=8", "--max-sites", "9", "--circumferences", "7,9,11,13", "--json", check=True)
+    out = json.loads(proc.stdout)
+    for key in ("c_minus", "c_minus_error", "gamma", "verdict", "sizes", "fits", "markov", "notes"):
+        assert key in out  # the keys of netprobe assess stay
+    pol = out["polarization"]
+    assert pol["circumferences"] == [7, 9, 11, 13]
+    # finite L_y: 7..13 give about 0.9 (measured); 0.2 leaves room for it, and excludes 0 and -1
+    assert pol["c_minus"] == pytest.approx(1.0, abs=0.2)
+    assert pol["c_minus_error"] is not None and pol["agrees"] is True
+    assert pol["statement"].startswith("agrees with the bulk c-")
+    line = polarization_line(SimpleNamespace(polarization=pol))  # the text output's line
+    assert line.startswith("momentum polarization (cylinder cut, L_y = 7,9,11,13)") and "agrees" in line
+
+
+def test_assess_circumferences_user_error():
+    proc = run_cli("assess", "chern_square", "--engine", "gaussian", "--circumferences", "7,x,9")
+    assert_one_line_error(proc, "integers separated by commas")
 
 
 @pytest.mark.parametrize("args,match", [

@@ -133,6 +133,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="relative eigenvalue floor of the modular Hamiltonians (default 1e-12)")
     p.add_argument("--memory-budget", type=float, default=None, metavar="GB",
                    help="leave out regions whose reduced state would exceed this (default half the memory)")
+    p.add_argument("--circumferences", default=None, metavar="L1,L2,...",
+                   help="model sources: also fit the momentum polarization of the cylinder cut over these "
+                        "circumferences (as 'netprobe edge') and compare its c- with the bulk one")
     p.add_argument("--plot", metavar="FILE.png", help="J, gamma, CMI against size with the fits; J against 1/D")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_assess)
