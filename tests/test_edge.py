@@ -292,23 +292,54 @@ def test_fit_recovers_a_wrapped_phase():
     assert fit.c_minus == pytest.approx(-24 * s)
 
 
-def test_toric_code_spectrum_is_flat_in_every_sector():
-    # Kitaev, Ann. Phys. 303, 2 (2003): at a cut across an L-cell cylinder the reduced state is a
-    # projector of rank 2^(L-1) (flat spectrum, gamma = ln 2). For the cyclic shift of one column,
-    # Tr(rho_L T) keeps only the stabilizers whose traces with T survive (an even number of star
-    # operators, derived from the stabilizer group, common practice): lambda = 1/4 at L = 3, in all
-    # four sectors, so the plain translation does not resolve h = 1/2 of the fermion on odd L.
+def _toric_loops(model, gs, column):
+    """<Z loop> on the vertical edges of a column line and <X loop> on its horizontal edges (dual loop)."""
+    n = model.num_sites
+    psi = np.zeros(2**n, dtype=complex)
+    psi[gs.basis.codes] = gs.vector(0)
+    psi = psi.reshape((2,) * n)
+    lat = model.lattice
+    vertical = [i for i, (c, s) in enumerate(zip(lat.cells, lat.sublattice)) if c[0] == column and s == 1]
+    horizontal = [i for i, (c, s) in enumerate(zip(lat.cells, lat.sublattice)) if c[0] == column and s == 0]
+    z = psi.copy()
+    for i in vertical:  # basis state 1 is spin down: Z = -1
+        index = [slice(None)] * n
+        index[i] = 1
+        z[tuple(index)] *= -1
+    x = psi
+    for i in horizontal:
+        x = np.flip(x, axis=i)
+    return float(np.real(np.vdot(psi, z))), float(np.real(np.vdot(psi, x)))
+
+
+def test_toric_code_sectors_are_the_loop_eigenstates_and_their_spectrum_is_flat():
+    # Kitaev, Ann. Phys. 303, 2 (2003): the four ground states of the cylinder are the simultaneous
+    # eigenstates of the Z loop around it and the dual X loop (the anyon flux 1, e, m, e x m); the
+    # boundary signs left_edge, right_edge select them on odd L_y. At a cut the reduced state is a
+    # projector of rank 2^(L-1) (flat spectrum, gamma = ln 2). The partial translation maps each loop of
+    # the left part onto itself, so it keeps the sector; its Schmidt states are the boundary
+    # configurations of one parity, and Tr(rho_L T) counts the translation-invariant ones: one for odd
+    # L, so lambda = 2^(1-L) = 1/4 at L = 3, real and positive in every sector (derived from the
+    # stabilizer group, common practice). A real state under a real permutation always has a real
+    # lambda, so its phase cannot carry the 2 pi (1/2) / L of the fermion's spin: the momentum
+    # polarization gives s = 0 in all four sectors (c- = 0; h = 0 for 1, e, m; h = 1/2 of e x m unresolved).
+    seen = set()
     for left in (1, -1):
         for right in (1, -1):
             model = load_model("toric_code", {"length": "2", "circumference": "3", "left_edge": str(left),
                                               "right_edge": str(right)})
             cut = column_cut(model.lattice, 1)
             gs = ground_state(model.hamiltonian)
+            loops = _toric_loops(model, gs, 0)
+            assert _toric_loops(model, gs, 1) == pytest.approx(loops, abs=1e-10)  # a flux, the same at every column
+            assert np.allclose(np.abs(loops), 1.0, atol=1e-10)
+            seen.add(tuple(int(round(v)) for v in loops))
             spec = exact_cut(gs.vector(0), gs.basis, model.space, cut)
             assert np.allclose(spec.values, 0.5, atol=1e-10)
             assert abs(spec.polarization - 0.25) < 1e-10
             counts = count_levels(spec)
             assert counts[0].direction == 0
+    assert seen == {(1, 1), (1, -1), (-1, 1), (-1, -1)}  # all four sectors
 
 
 # ---------------------------------------------------------------------------------------------

@@ -22,7 +22,10 @@ Momentum polarization (:func:`fit_polarization`)
     it); ``s = h_a - c-/24`` is defined mod 1 (the left part's physical edge adds ``2 pi K / L_y``
     with an integer K that depends on its filling, and may do so differently for even and odd
     ``L_y``). The error combines the least-squares error with the change of s when the next
-    smaller circumference joins the fit.
+    smaller circumference joins the fit. A state real in a product basis under a real permutation
+    (no twist) has a real lambda at every ``L_y``, so s = 0 by construction: the polarization then
+    cannot show a topological spin (the toric code gives s = 0 in all four sectors, h = 1/2 of its
+    fermion included); the fit's note says so when every lambda is real.
 Drivers (:func:`edge_state`, :func:`edge_ladder`)
     Ground state by the chosen engine (exact, dmrg, gaussian), cut, counting, per-sector
     polarization; a ladder of circumferences repeats this and fits.
@@ -60,6 +63,7 @@ CHARACTERS = {
 """Multiplicities of the chiral edge theories by momentum step (partition numbers; Ising characters)."""
 
 _SAME = 1e-6  # levels closer than this (in xi) count as degenerate with the lowest
+_REAL = 1e-10  # |Im lambda| below this fraction of |lambda|: a real lambda (rounding of real arithmetic)
 
 
 def charge_label(charge) -> str:
@@ -473,6 +477,10 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
     lambdas = [r["polarization"]["lambda_abs"] * cmath.exp(1j * r["polarization"]["lambda_arg"])
                for r in runs]
     note = _why(lys, runs[-1]["parameters"], [r.get("zero_mode_ratio") for r in runs])
+    if all(abs(lam.imag) <= _REAL * abs(lam) for lam in lambdas):
+        note += ("; lambda is real at every circumference (a real state under a real translation), so s = 0 by "
+                 "construction: topological spins of a time-reversal-invariant state (e.g. h = 1/2 of the toric "
+                 "code's fermion) are not visible in the polarization")
     fit = fit_polarization(lys, lambdas, note)
     sector_fits = []
     if all(r["sectors"] and r["sectors"][0]["charge"] != "none" for r in runs):
