@@ -5,12 +5,13 @@ from __future__ import annotations
 import sys
 
 from netprobe.errors import NetprobeError
-from netprobe.cli.common import _check_png, _emit, _load, _plots, _solve_settings
+from netprobe.cli.common import _bond_dimensions, _check_png, _emit, _load, _plots, _solve_settings
 from netprobe.engines.dmrg.ladder import CHECKPOINT_NAME
 from netprobe.engines import GroundState
 from netprobe.engines.mps.store import load_state
 from netprobe.pipeline.assess import assess_model, assess_states
-from netprobe.model.spec import parse_overrides
+from netprobe.pipeline.edge import edge_ladder
+from netprobe.model.spec import load_spec, parse_overrides
 
 __all__ = ["add_parser", "cmd_assess"]
 
@@ -67,6 +68,9 @@ def add_parser(sub) -> None:
                    help="relative eigenvalue floor of the modular Hamiltonians (default 1e-12)")
     p.add_argument("--memory-budget", type=float, default=None, metavar="GB",
                    help="leave out regions whose reduced state would exceed this (default half the memory)")
+    p.add_argument("--circumferences", default=None, metavar="L1,L2,...",
+                   help="model sources: also fit the momentum polarization of the cylinder cut over these "
+                        "circumferences (as 'netprobe edge') and compare its c- with the bulk one")
     p.add_argument("--plot", metavar="FILE.png", help="J, gamma, CMI against size with the fits; J against 1/D")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=cmd_assess)
@@ -88,6 +92,10 @@ def cmd_assess(args) -> int:
     if args.plot:
         _check_png(args.plot)
     files = _state_sources(args.spec)
+    circumferences = _circumferences(args) if getattr(args, "circumferences", None) else None
+    if circumferences and files:
+        raise NetprobeError("--circumferences needs a model source (each circumference runs the engine); state "
+                            "files hold one circumference")
     common = dict(max_sites=args.max_sites, placements=args.placements, eps=args.eps, memory_budget=budget,
                   progress=sys.stderr)
     if files:
@@ -98,6 +106,8 @@ def cmd_assess(args) -> int:
         # assess_model refuses a lattice without regions before the ground state is sought
         result = assess_model(_load(args), engine=args.engine,
                               settings=_solve_settings(args, parse_overrides(args.overrides)), **common)
+    if circumferences:
+        result = result.with_polarization(_polarization(args, circumferences))
     payload = result.to_json()
     lines = _assess_lines(result)
     if args.plot:
@@ -105,6 +115,36 @@ def cmd_assess(args) -> int:
         lines.append(f"plot written to {args.plot}")
     _emit(args, payload, lines)
     return 0
+
+
+def _circumferences(args) -> list[int]:
+    text = args.circumferences
+    try:
+        values = sorted({int(v) for v in text.split(",") if v.strip()})
+    except ValueError:
+        raise NetprobeError(f"--circumferences {text}: give integers separated by commas, e.g. 7,9,11,13") from None
+    if len(values) < 3 or values[0] < 2:
+        raise NetprobeError(f"--circumferences {text}: give at least three different circumferences of 2 or more, "
+                            "e.g. 7,9,11,13")
+    return values
+
+
+def _polarization(args, circumferences) -> dict:
+    """The momentum-polarization fit of ``netprobe edge --circumferences`` on the same model and engine."""
+    overrides = {k: v for k, v in parse_overrides(args.overrides).items() if k != "circumference"}
+    ladder = edge_ladder(load_spec(args.spec), overrides, circumferences, engine=args.engine,
+                         bond_dimensions=_bond_dimensions(args.bond_dimension), sweeps=args.sweeps, seed=args.seed,
+                         progress=sys.stderr if args.engine == "dmrg" else None)
+    return ladder["polarization"]
+
+
+def polarization_line(a) -> str:
+    """One line: the momentum-polarization c- beside the bulk one, and whether they agree."""
+    p = a.polarization
+    err = "n/a" if p.get("c_minus_error") is None else f"{p['c_minus_error']:.3f}"
+    head = (f"momentum polarization (cylinder cut, L_y = {','.join(map(str, p.get('circumferences') or []))}): "
+            f"c- = {p['c_minus']:+.3f} +- {err} (mod 24)")
+    return f"{head}; {p['statement']}"
 
 
 def _assess_lines(a) -> list[str]:
@@ -124,5 +164,7 @@ def _assess_lines(a) -> list[str]:
     lines.append(f"gamma = {pm(a.gamma, a.gamma_error)}" + (f"   (nearest: {near['gamma']['name']})"
                                                              if "gamma" in near else ""))
     lines.append(f"verdict: {a.verdict} ({'certified' if a.certified else 'uncertified'}): {a.reason}")
+    if a.polarization is not None:
+        lines.append(polarization_line(a))
     lines += [f"note: {n}" for n in a.notes]
     return lines

@@ -6,7 +6,7 @@ import sys
 
 from netprobe.errors import NetprobeError
 from netprobe.cli.common import _bond_dimensions, _check_png, _emit, _load, _plots
-from netprobe.pipeline.edge import edge_ladder, edge_state
+from netprobe.pipeline.edge import ZERO_MODE_RATIO, edge_ladder, edge_state
 from netprobe.model.spec import load_spec, parse_overrides
 
 __all__ = ["add_parser", "cmd_edge"]
@@ -99,6 +99,11 @@ def _edge_lines(r: dict) -> list[str]:
         lines.append(f"  charge {sector['charge']:>6}: lowest level {sector['lowest_level']:.4f}, counts "
                      f"{' '.join(map(str, sector['counts']))} ({arrow}; other side "
                      f"{' '.join(map(str, sector['counts_opposite']))}){match}")
+    ratio = r.get("zero_mode_ratio")
+    if ratio is not None and ratio < ZERO_MODE_RATIO:
+        lines.append(f"  warning: neighbouring charges lie {ratio:.3f} momentum steps above the lowest level: a zero "
+                     "mode of the edge at the cut (periodic sector); a twist of pi or the other parity of L_y moves "
+                     "the allowed momenta off the crossing")
     pol = r["polarization"]
     lines.append(f"lambda = <T_y^L>: |lambda| = {pol['lambda_abs']:.6g}, arg = {pol['lambda_arg']:+.6f}")
     if "h_minus_c_over_24" in pol:

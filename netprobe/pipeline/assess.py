@@ -126,11 +126,19 @@ class Assessment:
         """
         c_pol, e_pol = fit.get("c_minus"), fit.get("c_minus_error")
         entry = {"c_minus": c_pol, "c_minus_error": e_pol, "circumferences": fit.get("circumferences"),
-                 "agrees": None}
+                 "agrees": None, "h_minus_c_over_24": fit.get("h_minus_c_over_24"), "error": fit.get("error"),
+                 "note": fit.get("note", "")}
+        statement = "no bulk c- to compare with"
         if c_pol is not None and self.c_minus is not None:
             shifted = c_pol + 24 * round((self.c_minus - c_pol) / 24)
             error = math.hypot(self.c_minus_error or 0.0, e_pol or 0.0)
-            entry.update(c_minus_nearest_bulk=shifted, agrees=bool(abs(shifted - self.c_minus) <= 2 * error))
+            agrees = bool(abs(shifted - self.c_minus) <= 2 * error)
+            entry.update(c_minus_nearest_bulk=shifted, agrees=agrees)
+            statement = (f"{'agrees' if agrees else 'disagrees'} with the bulk c- = {self.c_minus:+.3f} +- "
+                         f"{self.c_minus_error or 0.0:.3f} (difference {shifted - self.c_minus:+.3f} after the "
+                         f"multiple of 24 nearest the bulk value; agreement means within twice the combined "
+                         f"error {error:.3f})")
+        entry["statement"] = statement
         return Assessment(**{**self.__dict__, "polarization": entry})
 
     @property

@@ -22,7 +22,10 @@ Momentum polarization (:func:`fit_polarization`)
     it); ``s = h_a - c-/24`` is defined mod 1 (the left part's physical edge adds ``2 pi K / L_y``
     with an integer K that depends on its filling, and may do so differently for even and odd
     ``L_y``). The error combines the least-squares error with the change of s when the next
-    smaller circumference joins the fit.
+    smaller circumference joins the fit. A state real in a product basis under a real permutation
+    (no twist) has a real lambda at every ``L_y``, so s = 0 by construction: the polarization then
+    cannot show a topological spin (the toric code gives s = 0 in all four sectors, h = 1/2 of its
+    fermion included); the fit's note says so when every lambda is real.
 Drivers (:func:`edge_state`, :func:`edge_ladder`)
     Ground state by the chosen engine (exact, dmrg, gaussian), cut, counting, per-sector
     polarization; a ladder of circumferences repeats this and fits.
@@ -31,6 +34,7 @@ Drivers (:func:`edge_state`, :func:`edge_ladder`)
 from __future__ import annotations
 
 import cmath
+import dataclasses
 import math
 import time
 from dataclasses import dataclass, field
@@ -46,7 +50,7 @@ from netprobe.engines.gaussian import gaussian_state
 from netprobe.engines.exact import ground_state
 
 __all__ = ["EDGE_ENGINES", "CHARACTERS", "SectorCount", "PolarizationFit", "count_levels", "fit_polarization",
-           "edge_state", "edge_ladder", "charge_label"]
+           "edge_state", "edge_ladder", "charge_label", "zero_mode_ratio", "ZERO_MODE_RATIO"]
 
 EDGE_ENGINES = ("exact", "dmrg", "gaussian")
 
@@ -59,6 +63,7 @@ CHARACTERS = {
 """Multiplicities of the chiral edge theories by momentum step (partition numbers; Ising characters)."""
 
 _SAME = 1e-6  # levels closer than this (in xi) count as degenerate with the lowest
+_REAL = 1e-10  # |Im lambda| below this fraction of |lambda|: a real lambda (rounding of real arithmetic)
 
 
 def charge_label(charge) -> str:
@@ -338,6 +343,8 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
     if flux_quanta:
         settings = SweepSettings(**kwargs)
         state, result = _thread_flux(model, state, settings, flux_quanta, flux_steps, seed, progress)
+        # the state now belongs to the Hamiltonian with the larger twist: translate with its gauge phase
+        cut = dataclasses.replace(cut, twist=cut.twist + 2 * math.pi * flux_quanta)
         spectrum = mps_cut(state, cut)
         lam = spectrum.polarization
         info["flux_quanta"] = int(flux_quanta)
@@ -351,6 +358,12 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
         last = rungs[-1]["lambda_abs"] * cmath.exp(1j * rungs[-1]["lambda_arg"])
         info["lambda_change_last_rungs"] = abs(last - prev["lambda_abs"] * cmath.exp(1j * prev["lambda_arg"]))
     return spectrum, info
+
+
+def _twist(model) -> float:
+    """The model's flux through the cylinder (0 without a ``twist`` parameter)."""
+    value = model.parameters.get("twist", 0.0) if "twist" in model.spec.parameters else 0.0
+    return float(np.real(value or 0.0))
 
 
 def edge_state(model, *, engine: str = "dmrg", column: int | None = None,
@@ -368,12 +381,13 @@ def edge_state(model, *, engine: str = "dmrg", column: int | None = None,
     """
     if engine not in EDGE_ENGINES:
         raise NetprobeError(f"unknown engine '{engine}'; valid engines: {', '.join(EDGE_ENGINES)}")
-    cut = column_cut(model.lattice, column)
+    cut = column_cut(model.lattice, column, twist=_twist(model))
     start = time.perf_counter()
     spectrum, info = _ground_state_cut(model, engine, cut, bond_dimensions=bond_dimensions, sweeps=sweeps,
                                        seed=seed, window=window, progress=progress, flux_quanta=flux_quanta)
     counts = count_levels(spectrum, steps=steps, window=count_window)
     lowest = min(counts, key=lambda c: c.lowest_level)
+    ratio = zero_mode_ratio(counts)
     lam = spectrum.polarization
     sectors = []
     for q, (weight, lam_q) in spectrum.sector_polarization().items():
@@ -390,20 +404,49 @@ def edge_state(model, *, engine: str = "dmrg", column: int | None = None,
                              "window": count_window, "sectors": [c.to_json() for c in counts]},
         "polarization": {"lambda_abs": abs(lam), "lambda_arg": cmath.phase(lam)},
         "sectors": sectors,
+        "zero_mode_ratio": ratio,
         "seconds": time.perf_counter() - start,
     }
 
 
-def _why(circumferences, spec_params) -> str:
+ZERO_MODE_RATIO = 0.25
+"""Below this :func:`zero_mode_ratio` flags an edge zero mode at the cut (about 1/2 without one, 0 with one)."""
+
+
+def zero_mode_ratio(counts: Sequence[SectorCount]) -> float | None:
+    """Gap from the lowest level to the lowest level of a neighbouring charge, over the momentum spacing.
+
+    For a chiral fermion edge whose allowed momenta avoid its Fermi point (antiperiodic sector) a
+    charge +-1 costs half a momentum step (ratio about 1/2); when the Fermi point is an allowed
+    momentum (a zero mode, periodic sector, h = 1/8 for a Dirac edge) the two charges are degenerate
+    (ratio near 0). None without a charge or without a visible chiral branch.
+    """
+    lowest = min(counts, key=lambda c: c.lowest_level)
+    if not lowest.charge or not lowest.direction or lowest.spacing <= 0:
+        return None
+    near = [c.lowest_level for c in counts
+            if c.charge and abs(c.charge[0] - lowest.charge[0]) == 1 and tuple(c.charge[1:]) == tuple(lowest.charge[1:])]
+    if not near:
+        return None
+    return float((min(near) - lowest.lowest_level) / lowest.spacing)
+
+
+def _why(circumferences, spec_params, ratios=()) -> str:
     parity = {c % 2 for c in circumferences}
-    twist = float(spec_params.get("twist", 0.0) or 0.0)
+    twist = float(np.real(spec_params.get("twist", 0.0) or 0.0))
     text = ("odd circumferences only" if parity == {1} else "even circumferences only" if parity == {0}
-            else "mixed even and odd circumferences: the left edge's filling phase 2 pi K/L_y may differ "
-                 "between them; fit odd and even separately if the fit is poor")
-    text += f"; twist {twist:g} rad"
-    if twist:
-        text += (" (a twist adds a charge-dependent phase, so h_a shifts by about (twist/2 pi)^2/2 in "
-                 "U(1) sectors)")
+            else "mixed even and odd circumferences: the allowed momenta around y, and with them the edge's "
+                 "sector, differ between them; fit odd and even separately if the fit is poor")
+    text += (f"; twist {twist:g} rad (momenta are kinetic: the translation carries exp(i q twist / L_y) per "
+             "unit charge, so T^L_y gives the Aharonov-Bohm phase)")
+    flagged = [c for c, r in zip(circumferences, ratios) if r is not None and r < ZERO_MODE_RATIO]
+    if flagged:
+        text += (f"; WARNING: at L_y = {flagged} the lowest levels of neighbouring charges are nearly degenerate, "
+                 "a zero mode of the edge at the cut (its Fermi point is an allowed momentum: periodic sector, "
+                 "h shifted by 1/8 for a Dirac edge); choose the twist (0 or pi) or the parity of L_y that moves "
+                 "the allowed momenta off the crossing")
+    elif any(r is not None for r in ratios):
+        text += "; no edge zero mode at the cut (neighbouring charges half a momentum step above the lowest level)"
     return text + "; s = h_a - c-/24 is defined mod 1"
 
 
@@ -433,7 +476,11 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
     lys = [r["circumference"] for r in runs]
     lambdas = [r["polarization"]["lambda_abs"] * cmath.exp(1j * r["polarization"]["lambda_arg"])
                for r in runs]
-    note = _why(lys, runs[-1]["parameters"])
+    note = _why(lys, runs[-1]["parameters"], [r.get("zero_mode_ratio") for r in runs])
+    if all(abs(lam.imag) <= _REAL * abs(lam) for lam in lambdas):
+        note += ("; lambda is real at every circumference (a real state under a real translation), so s = 0 by "
+                 "construction: topological spins of a time-reversal-invariant state (e.g. h = 1/2 of the toric "
+                 "code's fermion) are not visible in the polarization")
     fit = fit_polarization(lys, lambdas, note)
     sector_fits = []
     if all(r["sectors"] and r["sectors"][0]["charge"] != "none" for r in runs):
@@ -461,6 +508,7 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
     out["sector_fits"] = sector_fits
     out["runs"] = [{"circumference": r["circumference"], "lambda_abs": r["polarization"]["lambda_abs"],
                     "lambda_arg": r["polarization"]["lambda_arg"], "energy": r.get("energy"),
+                    "zero_mode_ratio": r.get("zero_mode_ratio"),
                     "counting": r["counting"], "seconds": r["seconds"]} for r in runs]
     out["seconds"] = sum(r["seconds"] for r in runs)
     return out
