@@ -118,6 +118,7 @@ class Layout:
     Examples
     --------
     >>> from netprobe.model.lattice import build_lattice
+    >>> from netprobe.regions.shapes import disk, sectors
     >>> lat = build_lattice("square", length=9, circumference=8)
     >>> lay = sectors(lat, radius=2.5)
     >>> lay.names, len(lay.union("ABC")) == len(disk(lat, radius=2.5)["A"])

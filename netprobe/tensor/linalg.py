@@ -226,6 +226,7 @@ class BlockLayout:
 
     Examples
     --------
+    >>> from netprobe.tensor.legs import ChargeRule, Leg
     >>> rule = ChargeRule.u1()
     >>> leg = Leg([[0], [1]], [2, 1])
     >>> layout = BlockLayout((leg, leg.dual()), None, rule)
