@@ -209,6 +209,7 @@ def _write_tables(out: Path, rows):
 
 
 def _plots(out: Path, rows, ladders, flux, predicted):
+    # matplotlib only when the demo draws (it is optional at import of the package; measured start-up, RESULTS.md)
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 

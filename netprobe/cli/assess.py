@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sys
+from pathlib import Path
 
 from netprobe.errors import NetprobeError
 from netprobe.cli.common import _bond_dimensions, _check_png, _emit, _load, _plots, _solve_settings
@@ -17,7 +18,6 @@ __all__ = ["add_parser", "cmd_assess"]
 
 
 def _state_sources(text: str) -> list:
-    from pathlib import Path
 
     source = Path(text)
     if source.is_dir():

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 from netprobe.errors import NetprobeError
 from netprobe.engines.limits import check_dmrg_model, check_exact_model
 from netprobe.cli import options
@@ -42,7 +44,6 @@ def add_parser(sub) -> None:
 
 def cmd_probe(args) -> int:
     """Bulk probes on a region of a saved state or of a model's ground state."""
-    from pathlib import Path
 
     probes = [p for p in args.probes.split(",") if p.strip()]
     budget = None

@@ -15,6 +15,7 @@ exit status 2).
 
 from __future__ import annotations
 
+import argparse
 import contextlib
 import signal
 from pathlib import Path
@@ -31,7 +32,6 @@ __all__ = ["add_parser", "cmd_study", "default_folder"]
 
 
 def _positive_int(text: str) -> int:
-    import argparse
 
     try:
         value = int(text)

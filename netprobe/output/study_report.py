@@ -135,6 +135,7 @@ _LINE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#56B4E9", "#E69F00", "#000
 
 
 def _figure(width=6.0, height=3.8):
+    # matplotlib only when a figure is drawn: `report --no-plots` and the CLI start-up stay light (measured, RESULTS.md)
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 

@@ -330,7 +330,7 @@ class DaskExecutor:
 
     def connect(self) -> None:
         """Reach the scheduler (before anything is written)."""
-        try:
+        try:  # dask.distributed is the optional [cluster] extra: imported only for --scheduler
             from distributed import Client
         except ImportError:
             raise StudyError("--scheduler needs dask.distributed; install netprobe[cluster]") from None
