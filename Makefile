@@ -22,8 +22,13 @@ setup: $(STAMP)
 demo: $(STAMP)
 	$(PY) -m netprobe.demo --out demo-report
 
+# The default suite runs in TEST_WORKERS processes (pytest-xdist) with one BLAS/numba thread each: on the
+# 2-core CI machine two single-threaded workers keep both cores busy through the many short tests and
+# subprocesses, where one process left the second core idle (timings in benchmarks/RESULTS.md).
+TEST_WORKERS ?= 2
+
 test: $(STAMP)
-	$(PY) -m pytest -q
+	OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1 NUMBA_NUM_THREADS=1 $(PY) -m pytest -q -n $(TEST_WORKERS)
 
 docs: $(DOCS_STAMP)
 	$(PY) -m sphinx -b html -W --keep-going -q docs docs/_build/html
