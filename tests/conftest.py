@@ -68,6 +68,26 @@ RECOMPUTED_DISK = 5e-5
 #: |J| in the trivial phase (m = 3) on a disk of radius 6 (shared/references.md)
 TRIVIAL_DISK_J = 2e-4
 
+# DMRG and the eigensolver (tests/test_dmrg.py)
+#: DMRG with TIGHT settings (energy_tolerance 1e-12, discarded_tolerance 1e-9) at a bond dimension that
+#: truncates nothing: relative energy error
+DMRG_TIGHT_ENERGY = 1e-9
+#: the residual norm the Lanczos kernel is asked for (its tol argument), relative to |E|; a factor 10 on it
+#: (and on a floor of 1e-12 for the eigenvalue) leaves room for the residual estimate's own rounding
+LANCZOS_ASKED = 1e-10
+LANCZOS_RESIDUAL_FLOOR = 1e-12
+#: relative accuracy of c from a Calabrese-Cardy fit of the entropies of 64-site (or shorter) open chains:
+#: boundary and finite-size corrections of a few per cent
+CALABRESE_CARDY_FIT = 0.03
+#: the Heisenberg bulk energy per site from open chains: the three-length elimination on 12-48 sites and the
+#: difference E(128) - E(64) keep 1/L^2 and logarithmic corrections of ~1e-4; the elimination on 32-128
+#: sites leaves ~2e-5
+HEISENBERG_BULK = 1e-4
+HEISENBERG_BULK_ELIMINATED = 2e-5
+#: a ladder resumed from its checkpoint against the uninterrupted one: same seed, same arithmetic, equal to
+#: rounding (the bound the checkpoint feature was specified with)
+RESUMED_LADDER = 1e-10
+
 # edge diagnostics (tests/test_edge.py)
 #: h - c-/24 from the momentum polarization of a 16-column Chern strip over odd circumferences 7..19: the
 #: acceptance criterion's tolerance (as tests/test_edge.py states); a flux of 0.3 shifts h by about

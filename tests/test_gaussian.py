@@ -18,8 +18,8 @@ import math
 
 import numpy as np
 import pytest
-from conftest import (DENSE_LOG, FINITE_DISK, RECOMPUTED_DISK, TRIVIAL_DISK_J, TWO_ROUTES, dense_from_products,
-                      kron_all, tol)
+from conftest import (CALABRESE_CARDY_FIT, DENSE_LOG, FINITE_DISK, RECOMPUTED_DISK, TRIVIAL_DISK_J, TWO_ROUTES,
+                      dense_from_products, kron_all, tol)
 
 from netprobe.engines import exact
 from netprobe.errors import GaussianStateError, LatticeError, NetprobeError, NotQuadraticError
@@ -533,7 +533,7 @@ def test_critical_tfim_entanglement_gives_ising_central_charge():
     slope = np.polyfit(chord, s, 1)[0]
     # open chain, block at one end: S = (c/6) ln[(2L/pi) sin(pi l/L)] + const (Calabrese and Cardy,
     # J. Stat. Mech. P06002 (2004)); Ising c = 1/2; 3% covers boundary and finite-size corrections
-    assert abs(6 * slope - 0.5) < 0.015
+    assert abs(6 * slope - 0.5) < CALABRESE_CARDY_FIT * 0.5
 
 
 # ------------------------------------------------------------------------------------------------
