@@ -41,7 +41,7 @@ DENSE_LOG = 1e-10
 #: determinant, two walks over one MPS, a pure state's entropy from a region and from its complement):
 #: rounding only; the bound these comparisons have always used
 TWO_ROUTES = 1e-9
-#: the lowest entanglement levels (-log of Schmidt weights down to ~e^-12) of one state by two exact
+#: the lowest 12 entanglement levels per sector (-log of Schmidt weights) of one state by two exact
 #: routes: the logarithm amplifies the rounding of a small weight by 1/weight
 LEVELS_TWO_ROUTES = 1e-8
 #: quantities of an exact-diagonalisation ground state whose exact value is known (a flat spectrum, a
@@ -94,7 +94,7 @@ RESUMED_LADDER = 1e-10
 #: (0.3 / 2 pi)^2 / 2 = 0.001 more
 EDGE_H = 0.002
 EDGE_H_TWISTED = 0.003
-#: c- from the same fit: the slope of the polarization in 1/L_y carries the finite-circumference corrections
+#: c- from the same ladder of circumferences: finite-circumference corrections; the bound the test has used
 EDGE_C_MINUS = 0.05
 #: c- and h from lambda of toric-code DMRG states (stabilizer states, exact at D = 128): rounding amplified
 #: by the fit over three circumferences

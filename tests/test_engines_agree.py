@@ -25,8 +25,6 @@ from netprobe.regions.layout import Layout
 # DMRG at D = 256 on 16 sites is exact to ~1e-10 in energy; exact diagonalisation and the free-fermion
 # levels to rounding
 ENERGY_D256 = 1e-9
-# the acceptance bound of the bulk probes (S, CMI, J) between engines
-ACCEPTANCE = 1e-6
 
 OVERRIDES = {"length": "4", "circumference": "2", "V": "0", "phi": "pi/2", "t2": "0.3", "M": "0.2"}
 
@@ -68,10 +66,10 @@ def test_probes_agree(states, parts):
     for state in (exact, dmrg.state):
         rep = measure_probes(state, parts, model.space, probes=("S", "CMI", "J")).to_json()
         # 1e-6: the acceptance bound; DMRG at this bond dimension is exact to ~1e-10 in energy
-        assert rep["entropies"]["ABC"] == pytest.approx(reference["S_ABC"], abs=ACCEPTANCE)
-        assert rep["entropies"]["AB"] == pytest.approx(reference["S_AB"], abs=ACCEPTANCE)
-        assert rep["cmi"] == pytest.approx(reference["cmi"], abs=ACCEPTANCE)
-        assert rep["J"] == pytest.approx(reference["J"], abs=ACCEPTANCE)
+        assert rep["entropies"]["ABC"] == pytest.approx(reference["S_ABC"], abs=PROBE_ACCEPTANCE)
+        assert rep["entropies"]["AB"] == pytest.approx(reference["S_AB"], abs=PROBE_ACCEPTANCE)
+        assert rep["cmi"] == pytest.approx(reference["cmi"], abs=PROBE_ACCEPTANCE)
+        assert rep["J"] == pytest.approx(reference["J"], abs=PROBE_ACCEPTANCE)
     assert abs(reference["J"]) > 1e-3  # a complex (chiral) state: the comparison is not trivially 0 = 0
 
 

@@ -18,6 +18,7 @@ import math
 
 import numpy as np
 import pytest
+from conftest import PROBE_ACCEPTANCE
 
 from netprobe.engines.dmrg import SweepSettings, find_ground_state
 from netprobe.engines.mps import MPS
@@ -47,8 +48,6 @@ ENTROPY_TOL = 1e-9
 REAL_STATE_J = 1e-10
 # I(A:C|B) = 0 on a Markov layout: four entropies, each within ENTROPY_TOL, plus margin for their sum
 MARKOV_CMI = 1e-8
-# acceptance tolerance of gamma = ln 2 (Kitaev-Preskill and Levin-Wen): far above the rounding of the entropies
-ACCEPTANCE = 1e-6
 # SweepSettings' default energy_tolerance (1e-9 change between sweeps) on an exact D = 32 state bounds E - E0
 DMRG_ENERGY = 1e-9
 # D = 32 holds the exact state: what is discarded is rounding of squared Schmidt values (~1e-30)
@@ -136,7 +135,7 @@ def test_kitaev_preskill_combination_gives_ln2(toric, stabilizer_entropy, spec):
     # S_A + S_B + S_C - S_AB - S_BC - S_CA + S_ABC = -gamma, gamma = ln 2 for the toric code
     # (A. Kitaev and J. Preskill, Phys. Rev. Lett. 96, 110404 (2006)); 1e-6 is the acceptance
     # tolerance, far above the rounding of the entropies
-    assert abs(report.gamma - LN2) < ACCEPTANCE
+    assert abs(report.gamma - LN2) < PROBE_ACCEPTANCE
     # J = i Tr(rho [K_AB, K_BC]) vanishes for a real state: with real symmetric rho and K, transposing
     # gives Tr(rho K_AB K_BC) = Tr(rho K_BC K_AB) (common practice); rounding only
     assert abs(report.modular_commutator.value) < REAL_STATE_J
@@ -150,7 +149,7 @@ def test_levin_wen_ring_gives_two_gamma(toric, stabilizer_entropy):
     _check_entropies(report, layout, stabilizer_entropy)
     # I(A:C|B) = 2 gamma for an annulus cut by B into arcs A and C, gamma = ln 2
     # (M. Levin and X.-G. Wen, Phys. Rev. Lett. 96, 110405 (2006)); acceptance tolerance
-    assert abs(levin_wen_gamma(report.cmi) - LN2) < ACCEPTANCE
+    assert abs(levin_wen_gamma(report.cmi) - LN2) < PROBE_ACCEPTANCE
 
 
 @pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
