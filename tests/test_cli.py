@@ -6,7 +6,11 @@ import subprocess
 import sys
 
 import pytest
-from conftest import assert_one_line_error, run_cli, run_main
+from conftest import assert_one_line_error, run_cli, run_main, tol
+
+
+# the exact engine on 256 states: dense eigh (~1e-15 relative) or ARPACK at tol 1e-10 relative
+EXACT_ENGINE_ENERGY = 1e-10
 
 
 def test_models_lists_every_bundled_model():
@@ -49,8 +53,8 @@ def test_exact_json_keys_and_value():
         assert key in out
     n = 8
     # open critical Ising chain: E0 = J [1 - 1/sin(pi/(4N+2))] (Pfeuty, Ann. Phys. 57, 79 (1970))
-    assert out["energy"] == pytest.approx(1 - 1 / math.sin(math.pi / (4 * n + 2)), rel=1e-10)
-    assert out["energy_per_site"] == pytest.approx(out["energy"] / n, rel=1e-14)
+    assert out["energy"] == pytest.approx(1 - 1 / math.sin(math.pi / (4 * n + 2)), rel=EXACT_ENGINE_ENERGY)
+    assert out["energy_per_site"] == pytest.approx(out["energy"] / n, rel=tol(factor=45))  # one division
     assert out["parameters"]["h"] == 1.0
 
 

@@ -7,7 +7,9 @@ from types import SimpleNamespace
 
 import numpy as np
 import pytest
-from conftest import assert_one_line_error, kron_all, run_cli, run_main, tol
+from conftest import (EDGE_C_MINUS, EDGE_H, EXACT_VECTOR, LEVELS_TWO_ROUTES, SYNTHETIC_FIT,
+                      SYNTHETIC_FIT_RESIDUAL, TORIC_EDGE_FIT, TWO_ROUTES, assert_one_line_error, kron_all, run_cli,
+                      run_main, tol)
 
 from netprobe.pipeline.cut import (_mode_permutation, column_cut, exact_cut, gaussian_cut, mps_cut, signed_permutation,
                           translation_expectation_gaussian, translation_unitary)
@@ -114,7 +116,7 @@ def test_gaussian_polarization_is_the_exact_expectation_value(circumference):
     exact = exact_cut(gs.vector(0), gs.basis, model.space, cut)
     state = gaussian_state(model)
     free = gaussian_cut(state, cut)
-    assert abs(exact.polarization - free.polarization) < 1e-9  # a Slater determinant: identical up to rounding
+    assert abs(exact.polarization - free.polarization) < TWO_ROUTES  # a Slater determinant: identical up to rounding
     # the transposed convention is a different number: the test pins the convention
     n = cut.bond * state.modes_per_site
     g = np.asarray(state.correlation)[:n, :n]
@@ -126,12 +128,12 @@ def test_gaussian_polarization_is_the_exact_expectation_value(circumference):
     b = _lowest_levels_by_sector(free.sorted(), 12)
     assert set(a) == set(b)
     for key in a:
-        assert np.allclose(a[key], b[key][:len(a[key])], atol=1e-8)
+        assert np.allclose(a[key], b[key][:len(a[key])], atol=LEVELS_TWO_ROUTES)
     # the charge-resolved polarization adds up to the total
     total = sum(w * lam for w, lam in free.sector_polarization().values())
-    assert abs(total - free.polarization) < 1e-9
+    assert abs(total - free.polarization) < TWO_ROUTES
     total = sum(w * lam for w, lam in exact.sector_polarization().values())
-    assert abs(total - exact.polarization) < 1e-9
+    assert abs(total - exact.polarization) < TWO_ROUTES
 
 
 def test_translation_with_a_twist_carries_the_aharonov_bohm_phase():
@@ -151,9 +153,9 @@ def test_translation_with_a_twist_carries_the_aharonov_bohm_phase():
     # the exact route applies the same phase per particle: lambda agrees with exact diagonalisation
     gs = ground_state(model.hamiltonian)
     exact = exact_cut(gs.vector(0), gs.basis, model.space, cut)
-    assert abs(exact.polarization - gaussian_cut(state, cut).polarization) < 1e-9
+    assert abs(exact.polarization - gaussian_cut(state, cut).polarization) < TWO_ROUTES
     # momenta stay integers (the gauge phase is divided out per charge before rounding)
-    assert np.allclose(exact.moduli[exact.values > 1e-3], 1.0, atol=1e-8)
+    assert np.allclose(exact.moduli[exact.values > 1e-3], 1.0, atol=LEVELS_TWO_ROUTES)
 
 
 def _polarization_fit(m, twist, circumferences, length=4):
@@ -167,9 +169,9 @@ def _polarization_fit(m, twist, circumferences, length=4):
     return fit_polarization(circumferences, lams)
 
 
-# the acceptance tolerance of the momentum polarization (shared/references.md: 0.002 against 1/24);
-# the fits below are off by 4e-4 to 8e-4 (finite L_y)
-POLARIZATION_TOL = 0.002
+# the acceptance tolerance of the momentum polarization is EDGE_H (shared/references.md: 0.002 against
+# 1/24); the fits below are off by 4e-4 to 8e-4 (finite L_y)
+POLARIZATION_TOL = EDGE_H
 
 
 @pytest.mark.parametrize("m,twist,expected", [
@@ -235,7 +237,7 @@ def test_mps_route_matches_free_fermions():
     assert set(a) == set(b)
     for key in a:
         assert np.allclose(a[key], b[key], atol=DMRG_LEVEL_TOL)
-    assert np.allclose(mps.moduli[:20], 1.0, atol=1e-6)  # degenerate clusters closed under T
+    assert np.allclose(mps.moduli[:20], 1.0, atol=DMRG_LAMBDA_TOL)  # degenerate clusters closed under T
 
 
 def test_mps_route_matches_exact_for_spins_on_the_kagome_lattice():
@@ -286,8 +288,8 @@ def test_fit_recovers_a_wrapped_phase():
     s, b, c = 0.3, 2.1, 0.4
     lam = [0.5**ly * cmath.exp(1j * (2 * math.pi * s / ly + b * ly + c)) for ly in lys]
     fit = fit_polarization(lys, lam)
-    assert fit.s == pytest.approx(s, abs=1e-9)
-    assert fit.error == pytest.approx(0.0, abs=1e-8)
+    assert fit.s == pytest.approx(s, abs=SYNTHETIC_FIT)
+    assert fit.error == pytest.approx(0.0, abs=SYNTHETIC_FIT_RESIDUAL)
     assert fit.c_minus == pytest.approx(-24 * s)
 
 
@@ -330,12 +332,12 @@ def test_toric_code_sectors_are_the_loop_eigenstates_and_their_spectrum_is_flat(
             cut = column_cut(model.lattice, 1)
             gs = ground_state(model.hamiltonian)
             loops = _toric_loops(model, gs, 0)
-            assert _toric_loops(model, gs, 1) == pytest.approx(loops, abs=1e-10)  # a flux, the same at every column
-            assert np.allclose(np.abs(loops), 1.0, atol=1e-10)
+            assert _toric_loops(model, gs, 1) == pytest.approx(loops, abs=EXACT_VECTOR)  # a flux, the same at every column
+            assert np.allclose(np.abs(loops), 1.0, atol=EXACT_VECTOR)
             seen.add(tuple(int(round(v)) for v in loops))
             spec = exact_cut(gs.vector(0), gs.basis, model.space, cut)
-            assert np.allclose(spec.values, 0.5, atol=1e-10)
-            assert abs(spec.polarization - 0.25) < 1e-10
+            assert np.allclose(spec.values, 0.5, atol=EXACT_VECTOR)
+            assert abs(spec.polarization - 0.25) < EXACT_VECTOR
             counts = count_levels(spec)
             assert counts[0].direction == 0
     assert seen == {(1, 1), (1, -1), (-1, 1), (-1, -1)}  # all four sectors
@@ -417,22 +419,22 @@ def test_chern_insulator_momentum_polarization():
     spec = load_spec("chern_square")
     out = edge_ladder(spec, {"length": "16", "m": "1"}, [7, 9, 11, 13, 15, 17, 19], engine="gaussian", window=6.0)
     pol = out["polarization"]
-    assert pol["h_minus_c_over_24"] == pytest.approx(-1 / 24, abs=0.002)
-    assert pol["c_minus"] == pytest.approx(1.0, abs=0.05)
+    assert pol["h_minus_c_over_24"] == pytest.approx(-1 / 24, abs=EDGE_H)
+    assert pol["c_minus"] == pytest.approx(1.0, abs=EDGE_C_MINUS)
     trivial = edge_ladder(spec, {"length": "16", "m": "3"}, [7, 9, 11, 13, 15, 17, 19], engine="gaussian",
                           window=6.0)
-    assert trivial["polarization"]["h_minus_c_over_24"] == pytest.approx(0.0, abs=0.002)
+    assert trivial["polarization"]["h_minus_c_over_24"] == pytest.approx(0.0, abs=EDGE_H)
     # m = -1: the edge crosses at k = 0, an allowed momentum for every L_y at twist 0 (a zero mode; the
     # periodic sector, h = 1/8 for a Dirac edge, from memory); twist pi puts the kinetic momenta at
     # (2n + 1) pi / L_y, and the chirality flip gives +1/24 (measured +0.0410)
     flipped = edge_ladder(spec, {"length": "16", "m": "-1", "twist": repr(math.pi)}, [7, 9, 11, 13, 15, 17, 19],
                           engine="gaussian", window=6.0)
-    assert flipped["polarization"]["h_minus_c_over_24"] == pytest.approx(1 / 24, abs=0.002)
+    assert flipped["polarization"]["h_minus_c_over_24"] == pytest.approx(1 / 24, abs=EDGE_H)
     # even L_y with twist pi avoid both crossings (0 and pi): both signs of m in one ladder
     for m, expected in (("1", -1 / 24), ("-1", 1 / 24)):
         even = edge_ladder(spec, {"length": "16", "m": m, "twist": repr(math.pi)}, [8, 10, 12, 14, 16, 18, 20],
                            engine="gaussian", window=6.0)
-        assert even["polarization"]["h_minus_c_over_24"] == pytest.approx(expected, abs=0.002)
+        assert even["polarization"]["h_minus_c_over_24"] == pytest.approx(expected, abs=EDGE_H)
 
 
 @pytest.mark.slow
@@ -457,7 +459,8 @@ def test_toric_code_sectors_give_zero_central_charge():
             out = edge_ladder(spec, {"length": "2", "left_edge": str(left), "right_edge": str(right)}, [3, 5, 7],
                               engine="dmrg", bond_dimensions=(128,), sweeps=6)
             pol = out["polarization"]
-            assert pol["c_minus"] == pytest.approx(0.0, abs=1e-6)
-            assert pol["h_minus_c_over_24"] in (pytest.approx(0.0, abs=1e-6), pytest.approx(0.5, abs=1e-6))
+            assert pol["c_minus"] == pytest.approx(0.0, abs=TORIC_EDGE_FIT)
+            assert pol["h_minus_c_over_24"] in (pytest.approx(0.0, abs=TORIC_EDGE_FIT),
+                                                pytest.approx(0.5, abs=TORIC_EDGE_FIT))
             counts = out["counting"]["none"]
             assert max(counts) - min(counts) <= 1  # flat

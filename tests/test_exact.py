@@ -41,6 +41,8 @@ DENSE_TOL = 1e-11  # LAPACK on matrices of norm <~ 30: 1e3 ulps of the norm (com
 LANCZOS_TOL = 1e-8  # ARPACK at tol=1e-10 relative on |E0| <~ 20
 ROUNDOFF = 1e-12  # the same vector contracted two ways: sums of <~ 1e4 products of O(1) numbers
 STATE_TOL = 1e-10  # eigenvectors from eigh err by ~ eps * norm / gap, with gaps >= 1e-3 here
+ONE_ROUNDING = 1e-14  # an entry that is one product of O(1) numbers, rounded once: ~45 ulps at most
+ARPACK_RESIDUAL = 1e-6  # ||H v - E v|| for ARPACK at tol=1e-10 relative on ||H|| of a few tens
 
 # Pauli-based spin-1/2 matrices, basis (up, down) (common practice)
 SX = np.array([[0, 1], [1, 0]]) / 2
@@ -295,7 +297,7 @@ def test_complex_couplings_against_dense():
     idx = np.nonzero(mask)[0]
     h_block = hamiltonian_matrix(ham).toarray()
     # each entry is one product of couplings and matrix elements: exact up to one rounding
-    np.testing.assert_allclose(h_block, dense[idx][:, idx].toarray(), atol=1e-14)
+    np.testing.assert_allclose(h_block, dense[idx][:, idx].toarray(), atol=ONE_ROUNDING)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -440,7 +442,7 @@ def test_measurements_against_the_full_vector():
     assert lower.shape == (target.dim, result.basis.dim)
     lowered = np.zeros(2**n)
     lowered[target.codes] = lower @ result.vector()
-    np.testing.assert_allclose(lowered, kron_op({0: SMINUS}, n) @ psi, atol=1e-14)  # entries 0 or 1: exact
+    np.testing.assert_allclose(lowered, kron_op({0: SMINUS}, n) @ psi, atol=ONE_ROUNDING)  # entries 0 or 1: exact
 
 
 def _single_site_products(model, name, site):
@@ -479,7 +481,7 @@ def test_twenty_spin_cylinder_completes():
     assert -0.75 * bonds <= result.energy <= -0.25 * bonds
     h = hamiltonian_matrix(ham)
     v = result.vector()
-    assert np.linalg.norm(h @ v - result.energy * v) < 1e-6  # eigen-residual at ARPACK tol 1e-10
+    assert np.linalg.norm(h @ v - result.energy * v) < ARPACK_RESIDUAL
     x = np.random.default_rng(3).standard_normal(h.shape[0])
     free = hamiltonian_operator(ham, matrix_free=True)
     np.testing.assert_allclose(free.matvec(x), h @ x, atol=ROUNDOFF)

@@ -10,6 +10,12 @@ from netprobe.engines.exact import ground_state
 from netprobe.engines.mps.mpo import build_mpo
 from netprobe.model.spec import build_model, load_model, parse_spec
 
+
+# relative energy error of DMRG at D = 64 on these sizes: exact up to the stopping rule (energy change
+# 1e-11 between sweeps, measured ~1e-10 relative); 1e-8 leaves margin for the last sweep's change
+DMRG_D64_ENERGY = 1e-8
+
+
 _BILINEAR = "Sx Sx + Sy Sy + Sz Sz"
 # (S.S)^2 written as a user would: nine on-site products per bond
 _BIQUADRATIC = " + ".join(f"S{a}.S{b} S{a}.S{b}" for a in "xyz" for b in "xyz")
@@ -143,7 +149,7 @@ def test_width_six_kagome_compression_is_exact():
     assert max(plain.bond_dimensions) == 47 and mpo.max_bond_dimension < 47
     aa, bb, ab = _mpo_inner(plain, plain).real, _mpo_inner(mpo, mpo).real, _mpo_inner(plain, mpo)
     # the distance is a difference of O(aa) numbers: rounding leaves ~1e-13 of aa
-    assert (aa + bb - 2 * ab.real) < 1e-11 * aa
+    assert (aa + bb - 2 * ab.real) < tol(aa, factor=4.5e4)
 
 
 @pytest.mark.parametrize("model", [
@@ -155,4 +161,4 @@ def test_dmrg_on_the_compressed_mpo_finds_the_exact_energy(model):
     exact = ground_state(model.hamiltonian).energy
     result = find_ground_state(model, SweepSettings(bond_dimension=64, sweep_limit=8, energy_tolerance=1e-11), seed=3, warn=False)
     # DMRG at D = 64 is exact for these sizes; the solver stops at ~1e-10 relative change
-    assert abs(result.energy - exact) < 1e-8 * max(1.0, abs(exact))
+    assert abs(result.energy - exact) < DMRG_D64_ENERGY * max(1.0, abs(exact))

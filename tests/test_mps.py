@@ -20,6 +20,14 @@ from netprobe.engines.mps import (correlation, energy_variance, entanglement_ent
 from netprobe.model.spec import load_model
 from netprobe.tensor import BlockLayout, BlockTensor, ChargeRule, Leg
 
+
+# MPS built from (or converged to) an exact-diagonalisation vector with an eigen-residual of ~1e-6 or
+# better: entropies and expectation values are smooth in the state and move by far less than 1e-8
+STATE_SMOOTH = 1e-8
+# norms and overlaps of a normalised MPS contracted two ways: rounding of sums over <~ 2^12 amplitudes
+MPS_ROUNDING = 1e-10
+
+
 # small cases: (model, overrides); fermions with hoppings that cross other sites in the 1D order,
 # complex couplings, two conserved charges, and no conserved charge at all
 CASES = {
@@ -150,8 +158,8 @@ def test_ground_state_entropies_match_schmidt_decomposition_of_exact_vector(heis
     # Schmidt values of the exact-engine vector by numpy.linalg.svd (the reference)
     expected = [_entropy(vec, 2, b) for b in range(1, model.num_sites)]
     # entropies are smooth in the state: a residual of 1e-6 in the vector moves them by far less than 1e-8
-    assert np.allclose(entanglement_entropies(psi), expected, atol=1e-8)
-    assert abs(np.vdot(vec, psi.to_vector())) == pytest.approx(1.0, abs=1e-10)
+    assert np.allclose(entanglement_entropies(psi), expected, atol=STATE_SMOOTH)
+    assert abs(np.vdot(vec, psi.to_vector())) == pytest.approx(1.0, abs=MPS_ROUNDING)
 
 
 def test_entanglement_spectrum_is_labelled_by_the_left_charge(heisenberg_ground):
@@ -172,17 +180,17 @@ def test_entanglement_spectrum_is_labelled_by_the_left_charge(heisenberg_ground)
         expected[(int(q),)] = s
     assert set(got) >= set(expected)
     for q, s in expected.items():
-        assert np.allclose(got[q][: len(s)], s, atol=1e-8), q
-    assert np.sum(spec.weights) == pytest.approx(1.0, abs=1e-12)
-    assert spec.entropy() == pytest.approx(schmidt_spectra(psi)[bond - 1].entropy(), abs=1e-12)
+        assert np.allclose(got[q][: len(s)], s, atol=STATE_SMOOTH), q
+    assert np.sum(spec.weights) == pytest.approx(1.0, abs=tol(factor=4.5e3))
+    assert spec.entropy() == pytest.approx(schmidt_spectra(psi)[bond - 1].entropy(), abs=tol(factor=4.5e3))
 
 
 def test_local_expectations_match_exact_engine(heisenberg_ground):
     model, ref, psi = heisenberg_ground
     got = local_expectations(psi, "Sz")
     expected = exact.local_expectations(ref, model, "Sz")  # our exact engine (reference)
-    assert np.allclose(got, expected, atol=1e-8)
-    assert np.sum(got) == pytest.approx(1.0, abs=1e-10)  # total Sz of the sector twice_sz = 2
+    assert np.allclose(got, expected, atol=STATE_SMOOTH)
+    assert np.sum(got) == pytest.approx(1.0, abs=MPS_ROUNDING)  # total Sz of the sector twice_sz = 2
     with pytest.raises(OperatorError, match="changes twice_sz by \\+2 and leaves the sector"):
         local_expectations(psi, "Sp")
     with pytest.raises(OperatorError, match="mixes different changes of the conserved charge twice_sz"):
@@ -193,7 +201,7 @@ def test_spin_correlations_match_exact_engine(heisenberg_ground):
     model, ref, psi = heisenberg_ground
     for a, b, i, j in [("Sz", "Sz", 2, 7), ("Sp", "Sm", 1, 6), ("Sm", "Sp", 8, 3), ("Sz", "Sz", 4, 4)]:
         expected = exact.correlation(ref, model, a, b, i, j)  # our exact engine (reference)
-        assert correlation(psi, a, b, i, j) == pytest.approx(expected, abs=1e-8), (a, b, i, j)
+        assert correlation(psi, a, b, i, j) == pytest.approx(expected, abs=STATE_SMOOTH), (a, b, i, j)
 
 
 def _jw_annihilator(space, n, site, name):
@@ -229,8 +237,8 @@ def test_fermion_ground_state_correlations_match_exact_engine():
                                                  discarded_tolerance=1e-10), seed=2, progress=None).state
     for i, j in [(0, 5), (6, 2), (3, 3)]:
         expected = exact.correlation(ref, model, "cdag", "c", i, j)  # our exact engine (reference)
-        assert complex(correlation(psi, "cdag", "c", i, j)) == pytest.approx(complex(expected), abs=1e-8)
-    assert np.allclose(local_expectations(psi, "n"), exact.local_expectations(ref, model, "n"), atol=1e-8)
+        assert complex(correlation(psi, "cdag", "c", i, j)) == pytest.approx(complex(expected), abs=STATE_SMOOTH)
+    assert np.allclose(local_expectations(psi, "n"), exact.local_expectations(ref, model, "n"), atol=STATE_SMOOTH)
 
 
 def test_block_layout_round_trip():

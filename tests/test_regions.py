@@ -30,6 +30,11 @@ from netprobe.regions import (
 )
 from netprobe.model.spec import load_model
 
+
+ON_RAY = 1e-6  # distance below which a site counts as lying on a sector boundary: far below the lattice spacing 1
+HALF_SECTOR_STEP = 30.0  # degrees: half of the smallest allowed angular step (60) between sector boundaries
+
+
 # Lattices large enough for every example below: circumference length 8 to 8.7, x range 11 to 13.
 SIZES = {"square": (12, 8), "triangular": (14, 8), "honeycomb": (9, 5), "kagome": (8, 4), "toric": (12, 8)}
 
@@ -162,7 +167,7 @@ def test_default_centre_is_generic(name):
     for ray in (90.0, 210.0, 330.0):  # the default sector boundaries
         u = np.array([np.cos(np.radians(ray)), np.sin(np.radians(ray))])
         off = np.abs(d[:, 0] * u[1] - d[:, 1] * u[0])
-        assert not np.any((d @ u > 0) & (off < 1e-6))
+        assert not np.any((d @ u > 0) & (off < ON_RAY))
     xs = lat.positions[:, 0]
     assert abs(cx - 0.5 * (xs.min() + xs.max())) < 1.5  # near the middle: within a face size
 
@@ -185,7 +190,7 @@ def test_sectors_partition_the_disk_counterclockwise(name, start):
     # each step is 120 degrees for a continuous disk; the lattice shifts the mean directions by a few
     # degrees, so 60 to 180 (and 30 degrees around A's bisector start + 60) only allow for that
     assert all(60.0 < s < 180.0 for s in steps)
-    assert (angles[0] - (start + 60.0) + 180.0) % 360.0 - 180.0 == pytest.approx(0.0, abs=30.0)
+    assert (angles[0] - (start + 60.0) + 180.0) % 360.0 - 180.0 == pytest.approx(0.0, abs=HALF_SECTOR_STEP)
     # shoelace formula (common practice): positive signed area <=> vertices listed counterclockwise
     (ax, ay), (bx, by), (cx, cy) = (d[list(lay[k])].mean(axis=0) for k in "ABC")
     assert (bx - ax) * (cy - ay) - (by - ay) * (cx - ax) > 0

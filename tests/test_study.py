@@ -15,61 +15,14 @@ import time
 import numpy as np
 import pytest
 
-from conftest import assert_one_line_error, run_main
+from conftest import assert_one_line_error, run_main, tol
 from references import pfeuty_chain
+from study_helpers import ED_VS_FREE_FERMIONS, TFIM_EXACT, netprobe_cli, write_study
 from netprobe.errors import SpecError
 from netprobe.study.reading import parse_study
 from netprobe.study.ledger import Ledger, ledger_path
 from netprobe.study.report import steepest_change
 from netprobe.study.verdicts import inverse_bond_fit, point_verdict
-
-def netprobe_cli(*args, cwd=None, timeout=600, **popen):
-    """Run ``netprobe ARGS`` in a real subprocess (returns CompletedProcess, text)."""
-    env = dict(os.environ, PYTHONUNBUFFERED="1")
-    return subprocess.run(
-        [sys.executable, "-m", "netprobe", *map(str, args)],
-        capture_output=True,
-        text=True,
-        env=env,
-        timeout=timeout,
-        cwd=cwd,
-        **popen,
-    )
-
-
-def netprobe_popen(*args, **kwargs):
-    """Start ``netprobe ARGS`` as a real subprocess without waiting."""
-    env = dict(os.environ, PYTHONUNBUFFERED="1")
-    return subprocess.Popen([sys.executable, "-m", "netprobe", *map(str, args)], env=env, **kwargs)
-
-
-TFIM_EXACT = """
-[study]
-name = "tfim_small"
-model = "tfim"
-engine = "exact"
-
-[set]
-length = 8
-
-[grid]
-h = {{ values = {values} }}
-
-[measure]
-region = "half:columns=4"
-probes = ["energy", "mean:X", "entropy"]
-
-[executor]
-workers = 2
-attempts = 1
-connect_seconds = 2.0
-"""
-
-
-def write_study(folder, text, name="study.toml"):
-    path = folder / name
-    path.write_text(text)
-    return path
 
 
 # ---- the description -------------------------------------------------------------------------------
@@ -326,7 +279,7 @@ def test_steepest_change_recovers_the_peak_of_a_quadratic_slope():
     x = np.linspace(0.0, 1.0, 11)
     y = a * x - (x - c) ** 3 / 3
     location, spacing, bracket, edge = steepest_change(x, y)
-    assert location == pytest.approx(c, abs=1e-12)
+    assert location == pytest.approx(c, abs=tol(factor=4.5e3))
     assert spacing == pytest.approx(0.1) and bracket == pytest.approx((0.3, 0.4)) and not edge
     # a step at the end of the range is reported as such
     assert steepest_change(x, np.where(x > 0.95, 1.0, 0.0))[3]
@@ -338,7 +291,8 @@ def test_inverse_bond_fit_matches_a_least_squares_line():
     v = np.array([0.91, 0.955, 0.972])
     fit = inverse_bond_fit(d, v)
     slope, intercept = np.polyfit(1.0 / d, v, 1)  # numpy's least-squares line
-    assert fit.value == pytest.approx(intercept, rel=1e-12) and fit.slope == pytest.approx(slope, rel=1e-12)
+    assert fit.value == pytest.approx(intercept, rel=tol(factor=4.5e3))
+    assert fit.slope == pytest.approx(slope, rel=tol(factor=4.5e3))
     two = inverse_bond_fit(d[1:], v[1:])
     assert two.error == pytest.approx(abs(two.value - v[-1]))
     assert fit.error >= abs(fit.value - two.value) - 1e-15
@@ -417,8 +371,8 @@ def test_cli_study_runs_and_reports_status(small_study):
         for row in ledger.tasks():
             energy, mean_x = pfeuty_chain(8, row.parameters["h"])
             # exact diagonalisation against the free-fermion solution: rounding of a 256-state problem
-            assert row.result["energy"] == pytest.approx(energy, abs=1e-9)
-            assert row.result["probes"]["mean:X"] == pytest.approx(mean_x, abs=1e-9)
+            assert row.result["energy"] == pytest.approx(energy, abs=ED_VS_FREE_FERMIONS)
+            assert row.result["probes"]["mean:X"] == pytest.approx(mean_x, abs=ED_VS_FREE_FERMIONS)
 
 
 def test_cli_report_writes_tables_plots_and_json(small_study):

@@ -18,6 +18,7 @@ import math
 
 import numpy as np
 import pytest
+from conftest import PROBE_ACCEPTANCE
 
 from netprobe.engines.dmrg import SweepSettings, find_ground_state
 from netprobe.engines.mps import MPS
@@ -43,6 +44,14 @@ BUDGET = 2**30
 # Entropies of the DMRG state: the state is exact to rounding (energy error ~1e-13, discarded weight
 # ~1e-30), so entropies of 10-12 site regions carry only accumulated rounding of the SVDs.
 ENTROPY_TOL = 1e-9
+# J of a real state vanishes exactly; rounding of entropies of 10-12 site regions (about ENTROPY_TOL / 10)
+REAL_STATE_J = 1e-10
+# I(A:C|B) = 0 on a Markov layout: four entropies, each within ENTROPY_TOL, plus margin for their sum
+MARKOV_CMI = 1e-8
+# SweepSettings' default energy_tolerance (1e-9 change between sweeps) on an exact D = 32 state bounds E - E0
+DMRG_ENERGY = 1e-9
+# D = 32 holds the exact state: what is discarded is rounding of squared Schmidt values (~1e-30)
+NOTHING_DISCARDED = 1e-20
 
 
 @pytest.fixture(scope="module")
@@ -61,7 +70,7 @@ def toric():
         result = find_ground_state(model, settings, seed=seed, progress=None)
         if best is None or result.energy < best.energy:
             best = result
-        if best.energy - exact < 1e-9:
+        if best.energy - exact < DMRG_ENERGY:
             break
     return model, best, exact
 
@@ -107,8 +116,8 @@ def test_dmrg_reaches_the_frustration_free_ground_state(toric):
     model, result, exact = toric
     # every star and plaquette is +1 in the ground state: E0 = -(number of terms) for Je = Jm = 1
     # (A. Kitaev, Ann. Phys. 303, 2 (2003)); the DMRG energy tolerance 1e-9 bounds the error
-    assert abs(result.energy - exact) < 1e-9
-    assert result.discarded_weight < 1e-20  # bond dimension 32 truncates nothing (see the fixture)
+    assert abs(result.energy - exact) < DMRG_ENERGY
+    assert result.discarded_weight < NOTHING_DISCARDED  # bond dimension 32 truncates nothing (see the fixture)
 
 
 @pytest.mark.parametrize("spec", KITAEV_PRESKILL)
@@ -121,15 +130,15 @@ def test_kitaev_preskill_combination_gives_ln2(toric, stabilizer_entropy, spec):
     assert report.route == "mps-root"
     split = measure_probes(result.state, layout, model.space, probes=("S", "TEE"), memory_budget=BUDGET,
                            method="split")
-    assert abs(split.gamma - report.gamma) < 1e-9  # the two walks agree to rounding (common practice)
+    assert abs(split.gamma - report.gamma) < ENTROPY_TOL  # the two walks agree to rounding (common practice)
     _check_entropies(report, layout, stabilizer_entropy)
     # S_A + S_B + S_C - S_AB - S_BC - S_CA + S_ABC = -gamma, gamma = ln 2 for the toric code
     # (A. Kitaev and J. Preskill, Phys. Rev. Lett. 96, 110404 (2006)); 1e-6 is the acceptance
     # tolerance, far above the rounding of the entropies
-    assert abs(report.gamma - LN2) < 1e-6
+    assert abs(report.gamma - LN2) < PROBE_ACCEPTANCE
     # J = i Tr(rho [K_AB, K_BC]) vanishes for a real state: with real symmetric rho and K, transposing
     # gives Tr(rho K_AB K_BC) = Tr(rho K_BC K_AB) (common practice); rounding only
-    assert abs(report.modular_commutator.value) < 1e-10
+    assert abs(report.modular_commutator.value) < REAL_STATE_J
 
 
 def test_levin_wen_ring_gives_two_gamma(toric, stabilizer_entropy):
@@ -140,7 +149,7 @@ def test_levin_wen_ring_gives_two_gamma(toric, stabilizer_entropy):
     _check_entropies(report, layout, stabilizer_entropy)
     # I(A:C|B) = 2 gamma for an annulus cut by B into arcs A and C, gamma = ln 2
     # (M. Levin and X.-G. Wen, Phys. Rev. Lett. 96, 110405 (2006)); acceptance tolerance
-    assert abs(levin_wen_gamma(report.cmi) - LN2) < 1e-6
+    assert abs(levin_wen_gamma(report.cmi) - LN2) < PROBE_ACCEPTANCE
 
 
 @pytest.mark.slow  # long run (over 10 s on 2 cores); run with -m slow
@@ -152,7 +161,7 @@ def test_shielded_layout_has_zero_conditional_mutual_information(toric, stabiliz
     # zero correlation length: once B separates A from C by whole stars and plaquettes, rho_ABC is a
     # quantum Markov chain and I(A:C|B) = 0; the stabilizer count of Fattal et al. (module notes,
     # from memory) gives exactly 0 for this layout; rounding of four entropies of 2-12 sites only
-    assert abs(report.cmi) < 1e-8
+    assert abs(report.cmi) < MARKOV_CMI
 
 
 def _locally_rotated(state, rng):
@@ -181,4 +190,4 @@ def test_modular_commutator_vanishes_also_after_local_unitaries(toric, rng):
     # (common practice); J = 0 for the real state, so the complex arithmetic must give 0 too
     for label, value in plain.entropies.items():
         assert abs(turned.entropies[label] - value) < ENTROPY_TOL, label
-    assert abs(turned.modular_commutator.value) < 1e-10
+    assert abs(turned.modular_commutator.value) < REAL_STATE_J
