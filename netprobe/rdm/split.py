@@ -48,14 +48,14 @@ class _OpenSide:
 
 
 def _bond_identity(bond: Leg, rule: ChargeRule, dtype) -> BlockTensor:
-    """The start of a double-layer walk: ``G[O, b, O*, b*]``, identity on ``b``, one open state of charge 0.
+    """The start of a double-layer walk: ``G[O, O*, b, b*]``, identity on ``b``, one open state of charge 0.
 
     ``b`` contracts with ``bond``, the left bond of the walk's first tensor.
     """
     zero = np.zeros((1, rule.k), np.int64)
-    blocks = {(0, sec, 0, sec): np.eye(int(n), dtype=dtype).reshape(1, int(n), 1, int(n))
+    blocks = {(0, 0, sec, sec): np.eye(int(n), dtype=dtype).reshape(1, 1, int(n), int(n))
               for sec, n in enumerate(bond.dims.tolist())}
-    return BlockTensor((Leg(zero, [1], 1), bond.dual(), Leg(zero, [1], -1), bond), None, rule, blocks, dtype=dtype)
+    return BlockTensor((Leg(zero, [1], 1), Leg(zero, [1], -1), bond.dual(), bond), None, rule, blocks, dtype=dtype)
 
 
 def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, code_of, rule: ChargeRule):
@@ -85,61 +85,75 @@ def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, co
 
 def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _OpenSide, phys: _OpenSide,
                        code_of, fermionic: bool):
-    """``G'[O', c, O'*, c*] = sum A[b, s, c] G[O, b, O*, b*] conj(A[b*, s*, c*])``, one block pair at a time.
+    """``G'[O', O'*, c, c*] = sum A[b, s, c] G[O, O*, b, b*] conj(A[b*, s*, c*])``, one block pair at a time.
 
     A traced site has ``s* = s`` summed and ``O' = O``; for fermions it carries ``F = (-1)^n`` on the
     ket wherever the open parities of ``O`` and ``O*`` differ (the string rule, read off the sector
     flags). An open site fuses ``(O, s)`` into ``O'`` (``O`` major) with codes
-    ``code_of(O codes, s codes)``. Working block by block keeps the memory at the input and the output
-    plus one product of blocks (no fused copies of the large tensor).
+    ``code_of(O codes, s codes)``. The layout ``(O, O*, b, b*)`` makes both contractions plain
+    matrix products without copies of the layer: ``G`` read as ``((O, O*, b), b*)`` times the bra,
+    then the ket applied as one product per open pair ``(O, O*)`` (a stacked product). Working block
+    by block keeps the memory at the input and the output plus one product of blocks.
     """
     rule = g.rule
     by_bond: dict = {}
     for (b, ss, c), blk in a.blocks.items():
-        by_bond.setdefault(b, []).append((ss, c, blk))
+        bmat = blk.reshape(blk.shape[0], -1)
+        by_bond.setdefault(b, []).append((ss, c, blk, bmat))
     if open_site:
         o_leg, place, new_side = _fused_open_leg(g.legs[0], a.legs[1], side, phys, code_of, rule)
     else:
         o_leg, place, new_side = g.legs[0], None, side
-    legs = (o_leg, a.legs[2], o_leg.dual(), a.legs[2].dual())
+    legs = (o_leg, o_leg.dual(), a.legs[2], a.legs[2].dual())
+    dtype = np.result_type(g.dtype, a.dtype)
     out: dict = {}
-    for (o, b, ob, bb), blk in g.blocks.items():
+    for (o, ob, b, bb), blk in g.blocks.items():
         kets = by_bond.get(b, ())
         bras = by_bond.get(bb, ())
+        if not kets or not bras:
+            continue
         odd = False
         if fermionic and not open_site:
             po, pob = side.parity[o], side.parity[ob]
             if po is None or pob is None:
                 raise UngradedParity
             odd = bool(po ^ pob)
-        for ss, c, ka in kets:
-            half = np.tensordot(blk, ka, axes=([1], [0]))  # (x, y, z, s, c)
-            if odd and phys.parity[ss]:
-                half = np.negative(half, out=half)
-            for sb, cb, kb in bras:
-                if not open_site and sb != ss:
-                    continue
-                if open_site:
-                    part = np.tensordot(half, kb.conj(), axes=([2], [0]))  # (x, y, s, c, s*, c*)
-                    n, off, size = place[(o, ss)]
-                    nb, offb, sizeb = place[(ob, sb)]
-                    key = (n, c, nb, cb)
-                    shape = (int(o_leg.dims[n]), part.shape[3], int(o_leg.dims[nb]), part.shape[5])
+        x, y, nb, nbb = blk.shape
+        flat = blk.reshape(x * y * nb, nbb)
+        for sb, cb, kb, kbmat in bras:
+            s_dim, n_cb = kb.shape[1], kb.shape[2]
+            t = (flat @ kbmat.conj()).reshape(x * y, nb * s_dim, n_cb)  # (O O*, (b, s*), c*)
+            for ss, c, ka, kamat in kets:
+                if not open_site:
+                    if ss != sb:
+                        continue
+                    # sum over (b, s): ka read as ((b, s), c)
+                    part = np.matmul(kamat.reshape(nb * s_dim, ka.shape[2]).T, t)  # (O O*, c, c*)
+                    if odd and phys.parity[ss]:
+                        part = np.negative(part, out=part)
+                    key = (o, ob, c, cb)
+                    part = part.reshape(x, y, ka.shape[2], n_cb)
                     target = out.get(key)
                     if target is None:
-                        target = out[key] = np.zeros(shape, part.dtype)
-                    x, y, sd, cd, sbd, cbd = part.shape
-                    target[off:off + size, :, offb:offb + sizeb, :] += part.transpose(0, 2, 3, 1, 4, 5).reshape(
-                        x * sd, cd, y * sbd, cbd)
-                else:
-                    part = np.tensordot(half, kb.conj(), axes=([2, 3], [0, 1]))  # (x, y, c, c*)
-                    key = (o, c, ob, cb)
-                    target = out.get(key)
-                    if target is None:
-                        out[key] = part.transpose(0, 2, 1, 3).copy()
+                        out[key] = part
                     else:
-                        target += part.transpose(0, 2, 1, 3)
-    return BlockTensor(legs, None, rule, out, dtype=np.result_type(g.dtype, a.dtype)), new_side
+                        target += part
+                else:
+                    sd = ka.shape[1]
+                    # sum over b: ka read as (b, (s, c)); t read as (O O*, b, (s*, c*))
+                    part = np.matmul(kamat.T, t.reshape(x * y, nb, s_dim * n_cb))  # (O O*, (s, c), (s*, c*))
+                    n, off, size = place[(o, ss)]
+                    nbk, offb, sizeb = place[(ob, sb)]
+                    key = (n, nbk, c, cb)
+                    target = out.get(key)
+                    if target is None:
+                        target = out[key] = np.zeros((int(o_leg.dims[n]), int(o_leg.dims[nbk]), ka.shape[2], n_cb),
+                                                     dtype)
+                    view = target[off:off + size, offb:offb + sizeb].reshape(x, sd, y, s_dim, ka.shape[2], n_cb)
+                    view += part.reshape(x, y, sd, ka.shape[2], s_dim, n_cb).transpose(0, 2, 1, 4, 3, 5)
+                del part
+            del t
+    return BlockTensor(legs, None, rule, out, dtype=dtype), new_side
 
 
 def _default_split(sites: tuple[int, ...]) -> int:
@@ -354,11 +368,11 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
             off += n
         sizes[total] = off
     left_groups: dict = {}
-    for (sl, bk, slb, bb), blk in g_left.blocks.items():
-        left_groups.setdefault((sl, slb), {})[(bk, bb)] = blk
+    for (sl, slb, bk, bb), blk in g_left.blocks.items():
+        left_groups.setdefault((sl, slb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
     right_groups: dict = {}
-    for (sr, bk, srb, bb), blk in g_right.blocks.items():
-        right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk
+    for (sr, srb, bk, bb), blk in g_right.blocks.items():
+        right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
     del g_left, g_right
     mats: dict = {}
     for (sl, slb), lefts in left_groups.items():
@@ -372,18 +386,20 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
                 other = rights.get(key)
                 if other is None:
                     continue
-                term = np.tensordot(blk, other, axes=([1, 3], [1, 3]))  # (O_L, O_L*, O_R, O_R*)
+                # (O_L O_L*, (b b*)) times ((b b*), O_R O_R*): one product, no copies of the layers
                 if part is None:
-                    part = term
+                    part = blk @ other.T
                 else:
-                    part += term
-                del term
+                    part += blk @ other.T
             if part is None:
                 continue
             target = mats.get(total)
             if target is None:
                 target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
-            target[r0:r0 + rn, c0:c0 + cn] += part.transpose(0, 2, 1, 3).reshape(rn, cn)
+            xl, yl = len(side_left.codes[sl]), len(side_left.codes[slb])
+            xr, yr = len(side_right.codes[sr]), len(side_right.codes[srb])
+            view = target[r0:r0 + rn, c0:c0 + cn].reshape(xl, xr, yl, yr)
+            view += part.reshape(xl, yl, xr, yr).transpose(0, 2, 1, 3)
             del part
     del left_groups, right_groups
     trace = sum(float(np.trace(b).real) for b in mats.values())
