@@ -4,6 +4,7 @@ import itertools
 import math
 
 import numpy as np
+import scipy.linalg
 import pytest
 
 from netprobe import rdm, resources
@@ -397,6 +398,23 @@ def test_split_walks_equal_the_dense_vector_route(name, overrides, sites):
     rho = rdm.reduced_density_matrix(state, sites, model.space, method="split")
     assert np.allclose(rho, ref, atol=tol(factor=1e4))
     assert rdm.reduced_root(state, sites, model.space, method="split").route == "mps-split"
+
+
+@pytest.mark.parametrize("dtype", [np.float64, np.complex128])
+def test_block_eigenvalues_match_scipy(rng, dtype):
+    # reference: scipy's one-stage eigvalsh (general-purpose library); both backward stable, so they agree
+    # to a few hundred ulps of the largest eigenvalue for n = 500 (common practice: error ~ n eps ||H||)
+    from netprobe.rdm.spectra import TWO_STAGE_MIN, hermitian_eigenvalues
+
+    n = TWO_STAGE_MIN + 116
+    x = rng.standard_normal((n, n)) + (1j * rng.standard_normal((n, n)) if dtype is np.complex128 else 0.0)
+    h = (x @ x.conj().T).astype(dtype)
+    ref = scipy.linalg.eigvalsh(h)
+    kept = h.copy()
+    w = hermitian_eigenvalues(h)
+    assert np.array_equal(h, kept)  # the input is left alone unless overwrite is asked for
+    assert np.allclose(w, ref, rtol=0, atol=tol(ref.max(), factor=n))
+    assert np.allclose(hermitian_eigenvalues(h[:5, :5]), scipy.linalg.eigvalsh(h[:5, :5]), atol=tol(ref.max()))
 
 
 def test_split_walks_stay_within_their_estimate():
