@@ -17,10 +17,15 @@ both walks apply the rule with their own side. The flag is one bit per sector of
 off its charges, so the strings cost nothing; the route applies where the charges fix the parity of
 every open sector (:func:`split_applies`).
 
-Memory (:func:`split_estimate`, exact sector counts): the walks hold at most both layers, the join
-both layers, the blocks (``sum_Q n_Q**2`` entries, ``n_Q`` the configurations of S of charge Q) and a
-few copies of the largest product of two layer blocks; the square root then holds the blocks and one
-eigendecomposition.
+Memory (:func:`split_estimate`, exact sector counts): the walks hold at most both layers of a step;
+the last step of each walk is never done whole: the join runs one sector ``j`` of the bra bond ``b*``
+at the split at a time, doing both last steps for that sector only (each pair of an input block and a
+bra tensor block belongs to exactly one sector, so nothing is computed twice), and holds the two
+walks' inputs to their last steps, the two pieces of sector ``j``, the blocks of rho
+(``sum_Q n_Q**2`` entries, ``n_Q`` the configurations of S of charge Q) and a few copies of the
+largest product of two layer blocks; the square root then holds the blocks and one
+eigendecomposition. Layers are kept as ``G[O, O*, b, b*]`` so that every step and the join are plain
+matrix products.
 """
 
 from __future__ import annotations
@@ -84,7 +89,7 @@ def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, co
 
 
 def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _OpenSide, phys: _OpenSide,
-                       code_of, fermionic: bool):
+                       code_of, fermionic: bool, bra_sectors=None):
     """``G'[O', O'*, c, c*] = sum A[b, s, c] G[O, O*, b, b*] conj(A[b*, s*, c*])``, one block pair at a time.
 
     A traced site has ``s* = s`` summed and ``O' = O``; for fermions it carries ``F = (-1)^n`` on the
@@ -94,6 +99,11 @@ def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _O
     matrix products without copies of the layer: ``G`` read as ``((O, O*, b), b*)`` times the bra,
     then the ket applied as one product per open pair ``(O, O*)`` (a stacked product). Working block
     by block keeps the memory at the input and the output plus one product of blocks.
+
+    ``bra_sectors`` (a set of sector indices of the output bond, optional) restricts the output to the
+    blocks whose bra bond ``c*`` lies in it: the pieces of one layer for different sectors are
+    disjoint, and each (input block, bra tensor block) pair is used by exactly one piece, so a layer
+    built piece by piece costs what it costs whole.
     """
     rule = g.rule
     by_bond: dict = {}
@@ -110,6 +120,8 @@ def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _O
     for (o, ob, b, bb), blk in g.blocks.items():
         kets = by_bond.get(b, ())
         bras = by_bond.get(bb, ())
+        if bra_sectors is not None:
+            bras = [item for item in bras if item[1] in bra_sectors]
         if not kets or not bras:
             continue
         odd = False
@@ -219,14 +231,18 @@ def split_applies(state, sites: tuple[int, ...]) -> bool:
 def _plan(state, sites: tuple[int, ...]):
     """The split point with the smallest exact peak of the walks and the join, with its sizes (entries).
 
-    Returns ``(m, walks_and_join, held, n_max, left, right)``: the last site of the left walk, the peak
-    of the two walks and the join at that split, the entries of the blocks of rho, the largest block
-    size, and the entries of the left layer after each site and of the right layer after each site of
-    the mirrored walk (what every step checks against the budget).
-    Every step of a walk holds its input and output layer (the right walk also ``G_L``); a layer
-    ``G[(O, b), (O*, b*)]`` has ``sum_Q n_Q**2`` entries, ``n_Q`` the (open configuration, bond state)
-    pairs of charge Q; the join holds both layers, the blocks and three copies of the largest product
-    of a left and a right layer block.
+    Returns ``(m, walks_and_join, held, n_max, left, right, pieces)``: the last site of the left walk,
+    the peak of the two walks and the join at that split, the entries of the blocks of rho, the
+    largest block size, the entries of the left layer after each site and of the right layer after
+    each site of the mirrored walk, and per sector ``j`` of the bond after ``m`` the entries of the
+    two final pieces ``(left, right)`` whose bra bond lies in ``j`` (what every step checks against the
+    budget).
+    Every step of a walk but the last holds its input and output layer (the right walk also the
+    left walk's input to its last step); a layer ``G[(O, b), (O*, b*)]`` has ``sum_Q n_Q**2``
+    entries, ``n_Q`` the (open configuration, bond state) pairs of charge Q. The last step of each walk
+    is never done whole: the join runs sector by sector of the bra bond ``b*`` at the split, holding
+    both walks' inputs to their last steps, the two pieces of the current sector, the blocks of rho
+    and three copies of the largest product of a left and a right layer block.
     """
     basis = state.basis
     rule = basis.rule
@@ -235,9 +251,20 @@ def _plan(state, sites: tuple[int, ...]):
     t = state.tensors
     opens = [{q: sum(p.values()) for q, p in _open_tables(state, c).items()} for c in range(len(sites) + 1)]
 
+    def table(count: int, bond: Leg, sign: int) -> dict:
+        return _fuse_tables(opens[count], {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}, rule)
+
     def layer(count: int, bond: Leg, sign: int) -> float:
-        table = {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}
-        return float(sum(n * n for n in _fuse_tables(opens[count], table, rule).values()))
+        return float(sum(n * n for n in table(count, bond, sign).values()))
+
+    def pieces(count: int, bond: Leg, sign: int) -> list:
+        # rows (O*, b*) of bra sector j: label t = q(O*) + sign q_j, each meeting the n_t rows of label t
+        n_t = table(count, bond, sign)
+        out = []
+        for q, dim in zip(bond.charges.tolist(), bond.dims.tolist()):
+            qj = _add(zero, tuple(q), rule, sign)
+            out.append(float(int(dim) * sum(n * n_t.get(_add(qo, qj, rule), 0) for qo, n in opens[count].items())))
+        return out
 
     def identity(bond: Leg) -> float:
         return float(sum(int(n) ** 2 for n in bond.dims.tolist()))
@@ -257,8 +284,16 @@ def _plan(state, sites: tuple[int, ...]):
         k_left = sum(1 for s in sites if s <= m)
         if not 0 < k_left < len(sites) and len(sites) > 1:
             continue
-        walk_left = max(left[k - 1] + left[k] for k in range(lo, m + 1))
-        walk_right = max([left[m] + right[k + 1] + right[k] for k in range(m + 1, hi + 1)], default=0.0)
+        bond = t[m].legs[2]
+        p_left = pieces(k_left, bond, 1)
+        if m < hi:
+            p_right = pieces(len(sites) - k_left, bond, -1)
+            right_in = right[m + 2]
+        else:  # a single site: no right walk, its identity taken sector by sector
+            p_right = [float(int(n) ** 2) for n in bond.dims.tolist()]
+            right_in = 0.0
+        walk_left = max([left[k - 1] + left[k] for k in range(lo, m)], default=0.0)
+        walk_right = max([left[m - 1] + right[k + 1] + right[k] for k in range(m + 2, hi + 1)], default=0.0)
         lsz, rsz = opens[k_left], opens[len(sites) - k_left]
         part = 0.0
         for ql, nl in lsz.items():
@@ -266,115 +301,25 @@ def _plan(state, sites: tuple[int, ...]):
                 for qr, nr in rsz.items():
                     nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
                     part = max(part, float(nl * nl2 * nr * nr2))
-        join = left[m] + right[m + 1] + held + 3.0 * part
+        both = [a + b for a, b in zip(p_left, p_right)]
+        join = left[m - 1] + right_in + max(both, default=0.0) + held + 3.0 * part
         peak = max(walk_left, walk_right, join)
         key = (peak, abs(m - default))
         if best is None or key < best[0]:
-            best = (key, m, peak)
-    return best[1], best[2], held, n_max, left, right
+            best = (key, m, peak, both, left[m - 1] + right_in)
+    m, peak, both, inputs = best[1], best[2], best[3], best[4]
+    return m, peak, held, n_max, left, right, (both, inputs)
 
 
-def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float:
-    """Peak bytes of the split route, counted exactly from the charge sectors before the walk.
-
-    Parameters
-    ----------
-    state : MPS
-    sites : tuple of int
-    output : {"blocks", "root", "dense"}
-        What the route hands back: the charge blocks of rho, their square root (one
-        eigendecomposition per block on top of the blocks), or the dense ``d**m x d**m`` matrix
-        (assembled from the blocks).
-
-    Notes
-    -----
-    The walks and the join at the split point that minimises this peak (:func:`_plan`), then the
-    output stage, plus the row codes of the blocks.
-    """
-    item = np.dtype(state.dtype).itemsize
-    _, peak, held, n_max, _, _ = _plan(state, sites)
-    n_states = float(state.basis.dim) ** len(sites)
-    if output == "root":
-        # blocks, one eigendecomposition (copy of the block, eigenvectors, the scaled copy)
-        peak = max(peak, held + 3.0 * n_max * n_max)
-    elif output == "dense":
-        peak = max(peak, held + n_states * n_states)
-    return peak * item + 8.0 * n_states
-
-
-def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where: str = "reduced_root",
-                 estimate: float = 0.0) -> BlockedRho:
-    """The charge blocks of ``rho_S`` by two double-layer walks (module notes).
-
-    The left walk carries ``G_L[O_L, b, O_L*, b*]`` from the first site of the set to the split
-    point; the right walk is the same walk on the mirrored chain (every tensor read as
-    ``A[c, s, b]``) from the last site back to the bond after the split point. Outside the span the
-    state is orthonormal towards it, so both walks start from the identity, and
-    ``rho = sum_{b, b*} G_L[O_L, b, O_L*, b*] G_R[O_R, b, O_R*, b*]``, accumulated pair of blocks by pair
-    of blocks into the charge blocks of rho. Every walk step checks its allocation against the
-    budget first.
-
-    Raises
-    ------
-    UngradedParity
-        For a fermionic open sector of mixed parity (``split_applies`` rules this out up front).
-    """
-    basis = state.basis
-    rule = basis.rule
-    d = basis.dim
-    space = basis.space
-    fermionic = space.fermionic
-    bounds = list(zip(basis.leg.offsets[:-1], basis.leg.offsets[1:]))
-    blocked_parity = np.asarray(space.parity)[basis.order] if fermionic else np.zeros(basis.dim, np.int64)
-    phys = _OpenSide([np.asarray(basis.order[a:b], np.int64) for a, b in bounds],
-                     _sector_parity(blocked_parity, basis.leg.offsets))
-    lo, hi = sites[0], sites[-1]
-    m, _, _, _, sizes_left, sizes_right = _plan(state, sites)
-    meter = WalkMeter(budget, f"{where}: the split walk over {len(sites)} sites", np.dtype(state.dtype).itemsize)
-    st = _centred_copy(state, lo, hi)
-
-    def walk(start_bond, tensors, code_of, sizes, step, held: float):
-        g = _bond_identity(start_bond, rule, np.result_type(st.dtype, np.float64))
-        side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
-        for k, a in tensors:
-            is_open = k in sites
-            meter.check(held + sizes[k - step] + sizes[k], k, a.legs[2].dim)  # input and output layers
-            g, side = _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, opened),
-                                         fermionic)
-            opened += is_open
-        return g, side, opened
-
-    left = [(k, st.tensors[k]) for k in range(lo, m + 1)]
-    g_left, side_left, _ = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, sizes_left, 1, 0.0)
-    right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
-    g_right, side_right, k_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o,
-                                        sizes_right, -1, sizes_left[m])
-    del st, left, right
-    names, local, moduli = _grading_of(space, basis.conserved)
-    dtype = np.result_type(g_left.dtype, g_right.dtype)
-    shift = d**k_right
-    # rows of a block of rho: the (left sector, right sector) pairs of one total open charge, one
-    # after the other, so that every product of two layers lands in a contiguous sub-block
-    layout: dict = {}
-    for sl, ql in enumerate(g_left.legs[0].charges.tolist()):
-        for sr, qr in enumerate(g_right.legs[0].charges.tolist()):
-            layout.setdefault(_add(tuple(ql), tuple(qr), rule), []).append((sl, sr))
-    place, sizes = {}, {}
-    for total, pairs in layout.items():
-        off = 0
-        for sl, sr in pairs:
-            n = len(side_left.codes[sl]) * len(side_right.codes[sr])
-            place[(sl, sr)] = (total, off, n)
-            off += n
-        sizes[total] = off
+def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dict, sizes: dict,
+               side_left: _OpenSide, side_right: _OpenSide, dtype) -> None:
+    """``rho += sum_{b, b*} G_L[O_L, O_L*, b, b*] G_R[O_R, O_R*, b, b*]`` into the charge blocks ``mats``."""
     left_groups: dict = {}
     for (sl, slb, bk, bb), blk in g_left.blocks.items():
         left_groups.setdefault((sl, slb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
     right_groups: dict = {}
     for (sr, srb, bk, bb), blk in g_right.blocks.items():
         right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
-    del g_left, g_right
-    mats: dict = {}
     for (sl, slb), lefts in left_groups.items():
         for (sr, srb), rights in right_groups.items():
             total, r0, rn = place[(sl, sr)]
@@ -401,7 +346,132 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
             view = target[r0:r0 + rn, c0:c0 + cn].reshape(xl, xr, yl, yr)
             view += part.reshape(xl, yl, xr, yr).transpose(0, 2, 1, 3)
             del part
-    del left_groups, right_groups
+
+
+def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float:
+    """Peak bytes of the split route, counted exactly from the charge sectors before the walk.
+
+    Parameters
+    ----------
+    state : MPS
+    sites : tuple of int
+    output : {"blocks", "root", "dense"}
+        What the route hands back: the charge blocks of rho, their square root (one
+        eigendecomposition per block on top of the blocks), or the dense ``d**m x d**m`` matrix
+        (assembled from the blocks).
+
+    Notes
+    -----
+    The walks and the join at the split point that minimises this peak (:func:`_plan`), then the
+    output stage, plus the row codes of the blocks.
+    """
+    item = np.dtype(state.dtype).itemsize
+    _, peak, held, n_max, _, _, _ = _plan(state, sites)
+    n_states = float(state.basis.dim) ** len(sites)
+    if output == "root":
+        # blocks, one eigendecomposition (copy of the block, eigenvectors, the scaled copy)
+        peak = max(peak, held + 3.0 * n_max * n_max)
+    elif output == "dense":
+        peak = max(peak, held + n_states * n_states)
+    return peak * item + 8.0 * n_states
+
+
+def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where: str = "reduced_root",
+                 estimate: float = 0.0) -> BlockedRho:
+    """The charge blocks of ``rho_S`` by two double-layer walks (module notes).
+
+    The left walk carries ``G_L[O_L, O_L*, b, b*]`` from the first site of the set to the split
+    point; the right walk is the same walk on the mirrored chain (every tensor read as
+    ``A[c, s, b]``) from the last site back to the bond after the split point. Outside the span the
+    state is orthonormal towards it, so both walks start from the identity, and
+    ``rho = sum_{b, b*} G_L[O_L, O_L*, b, b*] G_R[O_R, O_R*, b, b*]``, accumulated pair of blocks by pair
+    of blocks into the charge blocks of rho, one sector of ``b*`` at a time (the last step of each walk
+    is done for that sector only). Every walk step and every sector checks its allocation against the
+    budget first.
+
+    Raises
+    ------
+    UngradedParity
+        For a fermionic open sector of mixed parity (``split_applies`` rules this out up front).
+    """
+    basis = state.basis
+    rule = basis.rule
+    d = basis.dim
+    space = basis.space
+    fermionic = space.fermionic
+    bounds = list(zip(basis.leg.offsets[:-1], basis.leg.offsets[1:]))
+    blocked_parity = np.asarray(space.parity)[basis.order] if fermionic else np.zeros(basis.dim, np.int64)
+    phys = _OpenSide([np.asarray(basis.order[a:b], np.int64) for a, b in bounds],
+                     _sector_parity(blocked_parity, basis.leg.offsets))
+    lo, hi = sites[0], sites[-1]
+    m, _, _, _, sizes_left, sizes_right, (both, inputs) = _plan(state, sites)
+    meter = WalkMeter(budget, f"{where}: the split walk over {len(sites)} sites", np.dtype(state.dtype).itemsize)
+    st = _centred_copy(state, lo, hi)
+    dtype = np.result_type(st.dtype, np.float64)
+
+    def walk(start_bond, tensors, code_of, sizes, step, held: float):
+        """Every step but the last; returns the layer, its open side, the open count and the last step."""
+        g = _bond_identity(start_bond, rule, dtype)
+        side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
+        for k, a in tensors[:-1]:
+            is_open = k in sites
+            meter.check(held + sizes[k - step] + sizes[k], k, a.legs[2].dim)  # input and output layers
+            g, side = _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, opened),
+                                         fermionic)
+            opened += is_open
+        if not tensors:
+            return g, side, opened, None
+        k, a = tensors[-1]
+        is_open = k in sites
+        count = opened
+
+        def piece(sectors):
+            return _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, count), fermionic,
+                                      sectors)
+
+        return g, side, opened + is_open, piece
+
+    left = [(k, st.tensors[k]) for k in range(lo, m + 1)]
+    g_left, _, _, piece_left = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, sizes_left, 1, 0.0)
+    right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
+    g_right, side_right, k_right, piece_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o,
+                                                     sizes_right, -1, sizes_left[m - 1])
+    del st, left, right
+    if piece_right is None:  # a single site: the right side is the identity, taken sector by sector
+
+        def piece_right(sectors):
+            return BlockTensor(g_right.legs, None, rule, {k: v for k, v in g_right.blocks.items() if k[3] in sectors},
+                               dtype=dtype), side_right
+
+    # the open legs after the last steps (an empty piece: legs and codes only)
+    open_left, side_left = piece_left(frozenset())
+    open_right, side_right = piece_right(frozenset())
+    names, local, moduli = _grading_of(space, basis.conserved)
+    shift = d**k_right
+    # rows of a block of rho: the (left sector, right sector) pairs of one total open charge, one
+    # after the other, so that every product of two layers lands in a contiguous sub-block
+    layout: dict = {}
+    for sl, ql in enumerate(open_left.legs[0].charges.tolist()):
+        for sr, qr in enumerate(open_right.legs[0].charges.tolist()):
+            layout.setdefault(_add(tuple(ql), tuple(qr), rule), []).append((sl, sr))
+    place, sizes = {}, {}
+    for total, pairs in layout.items():
+        off = 0
+        for sl, sr in pairs:
+            n = len(side_left.codes[sl]) * len(side_right.codes[sr])
+            place[(sl, sr)] = (total, off, n)
+            off += n
+        sizes[total] = off
+    held = float(sum(n * n for n in sizes.values()))
+    mats: dict = {}
+    # the join, one sector j of the bra bond b* at a time: both last steps done for that sector only
+    for j, need in enumerate(both):
+        meter.check(inputs + need + held, m, len(both))
+        pl, _ = piece_left(frozenset([j]))
+        pr, _ = piece_right(frozenset([j]))
+        _join_into(mats, pl, pr, place, sizes, side_left, side_right, dtype)
+        del pl, pr
+    del g_left, g_right
     trace = sum(float(np.trace(b).real) for b in mats.values())
     powers = d ** np.arange(len(sites) - 1, -1, -1, dtype=np.int64)
     blocks = []
