@@ -417,6 +417,33 @@ def test_block_eigenvalues_match_scipy(rng, dtype):
     assert np.allclose(hermitian_eigenvalues(h[:5, :5]), scipy.linalg.eigvalsh(h[:5, :5]), atol=tol(ref.max()))
 
 
+@pytest.mark.parametrize("name, overrides, sites", [
+    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, (1, 2, 5, 9, 10)),
+    ("kagome_chiral", {}, (0, 2, 3, 7, 8, 11)),  # complex
+    ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, (0, 2, 3, 7, 9, 10)),  # fermion strings
+])
+def test_split_walks_done_in_pieces_equal_the_dense_vector_route(monkeypatch, name, overrides, sites):
+    # reference: the partial trace of the dense state vector (common practice)
+    model = load_model(name, overrides)
+    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
+    ref = rdm.reduced_density_matrix(state.to_vector(), list(sites), model.space)
+    # the last steps in ranges of single bond states (every piece of the join as small as it gets)
+    monkeypatch.setattr(split_route, "CHUNK_ENTRIES", 1.0)
+    monkeypatch.setattr(split_route, "CHUNK_FRACTION", 0.0)
+    monkeypatch.setattr(split_route, "CHUNK_MIN", 1)
+    rho = rdm.reduced_density_matrix(state, list(sites), model.space, method="split")
+    assert np.allclose(rho, ref, atol=tol(factor=1e4))
+    # a budget just under the one-step plan's peak: deeper steps done sector by sector, same rho
+    monkeypatch.setattr(split_route, "CHUNK_MIN", 10**9)
+    item = np.dtype(state.dtype).itemsize
+    shallow = split_route._plan(state, sites, 1e30)
+    budget = int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * item)
+    deep = split_route._plan(state, sites, split_route._budget_entries(state, sites, budget))
+    assert max(deep.depth) > 1 and deep.peak < shallow.peak
+    blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
+    assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
+
+
 def test_split_walks_stay_within_their_estimate():
     spins = load_model("heisenberg", {"lattice": "square", "circumference": "4", "length": "6"})
     state = random_state(spins.hamiltonian, bond_dimension=64, rng=2)

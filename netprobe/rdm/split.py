@@ -34,6 +34,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from netprobe.resources import resolve_budget
 from netprobe.rdm.common import BlockedRho, RootBlock, _grading_of, _labels
 from netprobe.rdm.root import UngradedParity
 from netprobe.rdm.tables import (
@@ -100,10 +101,11 @@ def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _O
     then the ket applied as one product per open pair ``(O, O*)`` (a stacked product). Working block
     by block keeps the memory at the input and the output plus one product of blocks.
 
-    ``bra_sectors`` (a set of sector indices of the output bond, optional) restricts the output to the
-    blocks whose bra bond ``c*`` lies in it: the pieces of one layer for different sectors are
-    disjoint, and each (input block, bra tensor block) pair is used by exactly one piece, so a layer
-    built piece by piece costs what it costs whole.
+    ``bra_sectors`` (sector indices of the output bond, optional) restricts the output to the blocks
+    whose bra bond ``c*`` lies in them; a mapping ``sector -> (start, stop)`` (or ``None`` for all of
+    it) also restricts ``c*`` to a range of states of that sector. The pieces of one layer for
+    different sectors or ranges are disjoint, and each (input block, bra tensor columns) pair is used
+    by exactly one piece, so a layer built piece by piece costs what it costs whole.
     """
     rule = g.rule
     by_bond: dict = {}
@@ -121,7 +123,7 @@ def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _O
         kets = by_bond.get(b, ())
         bras = by_bond.get(bb, ())
         if bra_sectors is not None:
-            bras = [item for item in bras if item[1] in bra_sectors]
+            bras = [_bra_chunk(item, bra_sectors) for item in bras if item[1] in bra_sectors]
         if not kets or not bras:
             continue
         odd = False
@@ -165,7 +167,29 @@ def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _O
                     view += part.reshape(x, y, sd, ka.shape[2], s_dim, n_cb).transpose(0, 2, 1, 4, 3, 5)
                 del part
             del t
+    if isinstance(bra_sectors, dict) and any(r is not None for r in bra_sectors.values()):
+        return _Piece(legs, rule, out, dtype), new_side  # c* cut to a range: not a whole leg
     return BlockTensor(legs, None, rule, out, dtype=dtype), new_side
+
+
+@dataclass
+class _Piece:
+    """Blocks of a layer whose bra bond is cut to a range of states (what the join reads of a layer)."""
+
+    legs: tuple
+    rule: ChargeRule
+    blocks: dict
+    dtype: np.dtype
+
+
+def _bra_chunk(item, bra_sectors):
+    """A bra entry ``(s, c, block, matrix)`` cut to the range of ``c*`` states asked for, if any."""
+    rng = bra_sectors.get(item[1]) if isinstance(bra_sectors, dict) else None
+    if rng is None:
+        return item
+    ss, c, kb, _ = item
+    part = np.ascontiguousarray(kb[:, :, rng[0]:rng[1]])
+    return ss, c, part, part.reshape(part.shape[0], -1)
 
 
 def _default_split(sites: tuple[int, ...]) -> int:
@@ -228,21 +252,77 @@ def split_applies(state, sites: tuple[int, ...]) -> bool:
     return all(len(p) == 1 for count in range(len(sites) + 1) for p in _open_tables(state, count).values())
 
 
-def _plan(state, sites: tuple[int, ...]):
-    """The split point with the smallest exact peak of the walks and the join, with its sizes (entries).
+#: Most final steps of one walk done sector by sector (each deeper one recomputes parts of a step).
+MAX_STREAMED = 4
+#: Pieces of the join with one streamed step per walk are cut to about the larger of these entries
+#: and this fraction of the blocks of rho, in ranges of at least ``CHUNK_MIN`` bond states.
+CHUNK_ENTRIES = 2.0**23
+CHUNK_FRACTION = 0.125
+CHUNK_MIN = 16
 
-    Returns ``(m, walks_and_join, held, n_max, left, right, pieces)``: the last site of the left walk,
-    the peak of the two walks and the join at that split, the entries of the blocks of rho, the
-    largest block size, the entries of the left layer after each site and of the right layer after
-    each site of the mirrored walk, and per sector ``j`` of the bond after ``m`` the entries of the
-    two final pieces ``(left, right)`` whose bra bond lies in ``j`` (what every step checks against the
-    budget).
-    Every step of a walk but the last holds its input and output layer (the right walk also the
-    left walk's input to its last step); a layer ``G[(O, b), (O*, b*)]`` has ``sum_Q n_Q**2``
-    entries, ``n_Q`` the (open configuration, bond state) pairs of charge Q. The last step of each walk
-    is never done whole: the join runs sector by sector of the bra bond ``b*`` at the split, holding
-    both walks' inputs to their last steps, the two pieces of the current sector, the blocks of rho
-    and three copies of the largest product of a left and a right layer block.
+
+@dataclass
+class _Plan:
+    """Where the walks meet and how much of them is done sector by sector (sizes in entries).
+
+    Attributes
+    ----------
+    m : int
+        Last site of the left walk.
+    depth : tuple of int
+        Final steps of the left and the right walk done one sector of the split's bra bond at a time.
+    peak, held, n_max : float
+        Peak of the walks and the join; entries of the blocks of rho; largest block size.
+    left, right : dict
+        Entries of the left layer after each site, of the right layer after each site of the mirrored walk.
+    units : list of tuple
+        ``(sector, start, stop, need)``: the join's units, a sector of the split's bra bond (or a range
+        of its states where both walks stream one step), and what its streamed steps hold besides
+        the two inputs.
+    inputs : float
+        The two layers the streamed steps start from.
+    extra : float
+        Entries computed more than once by the streamed steps (a measure of their extra work).
+    """
+
+    m: int
+    depth: tuple
+    peak: float
+    held: float
+    n_max: float
+    left: dict
+    right: dict
+    units: list
+    inputs: float
+    extra: float
+
+
+def _predecessors(tensor: BlockTensor, ket_to_bra: bool) -> dict:
+    """Output bond sector -> input bond sectors that feed it through ``tensor`` (its block keys)."""
+    out: dict = {}
+    for b, _, c in tensor.blocks:
+        if ket_to_bra:
+            out.setdefault(c, set()).add(b)
+        else:
+            out.setdefault(b, set()).add(c)
+    return out
+
+
+def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
+    """The split point and streaming depths: exact peaks from the charge sectors (entries).
+
+    Every full step of a walk holds its input and output layer (the right walk also the left walk's
+    streamed input); a layer ``G[(O, b), (O*, b*)]`` has ``sum_Q n_Q**2`` entries, ``n_Q`` the (open
+    configuration, bond state) pairs of charge Q. The last ``depth`` steps of each walk are never done
+    whole: the join runs one sector ``j`` of the bra bond ``b*`` at the split at a time, and each
+    streamed step computes only the bra sectors that sector ``j`` needs (the predecessors through the
+    MPS tensor's blocks), so it holds both walks' inputs, the pieces of two consecutive streamed
+    steps (the left's final piece while the right's run), the blocks of rho and three copies of the
+    largest product of a left and a right layer block. One streamed step per walk costs nothing extra;
+    deeper ones recompute the sectors that several ``j`` share.
+
+    ``budget`` (entries): among the plans within it, the one with the least recomputed work, else the
+    smallest peak. Without a budget the smallest peak with one streamed step per walk.
     """
     basis = state.basis
     rule = basis.rule
@@ -253,9 +333,6 @@ def _plan(state, sites: tuple[int, ...]):
 
     def table(count: int, bond: Leg, sign: int) -> dict:
         return _fuse_tables(opens[count], {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}, rule)
-
-    def layer(count: int, bond: Leg, sign: int) -> float:
-        return float(sum(n * n for n in table(count, bond, sign).values()))
 
     def pieces(count: int, bond: Leg, sign: int) -> list:
         # rows (O*, b*) of bra sector j: label t = q(O*) + sign q_j, each meeting the n_t rows of label t
@@ -269,31 +346,51 @@ def _plan(state, sites: tuple[int, ...]):
     def identity(bond: Leg) -> float:
         return float(sum(int(n) ** 2 for n in bond.dims.tolist()))
 
-    left = {lo - 1: identity(t[lo].legs[0])}
+    left, left_pieces = {lo - 1: identity(t[lo].legs[0])}, {}
     for k in range(lo, hi + 1):
-        left[k] = layer(sum(1 for s in sites if s <= k), t[k].legs[2], 1)
-    right = {hi + 1: identity(t[hi].legs[2])}
+        left_pieces[k] = pieces(sum(1 for s in sites if s <= k), t[k].legs[2], 1)
+        left[k] = float(sum(left_pieces[k]))
+    right, right_pieces = {hi + 1: identity(t[hi].legs[2])}, {}
     for k in range(hi, lo, -1):
-        right[k] = layer(sum(1 for s in sites if s >= k), t[k - 1].legs[2], -1)
+        right_pieces[k] = pieces(sum(1 for s in sites if s >= k), t[k - 1].legs[2], -1)
+        right[k] = float(sum(right_pieces[k]))
+    left_pred = {k: _predecessors(t[k], True) for k in range(lo, hi + 1)}
+    right_pred = {k: _predecessors(t[k], False) for k in range(lo + 1, hi + 1)}
     blocks = _label_counts(basis.space, basis.conserved, len(sites))
     held = float(sum(n * n for n in blocks.values()))
     n_max = float(max(blocks.values()))
     default = _default_split(sites)
+
+    def chain(steps, sizes, preds, n_sectors):
+        """Per top sector: (peak of two consecutive pieces, final piece); and the recomputed entries."""
+        peaks, finals = [], []
+        produced: dict = {}
+        for j in range(n_sectors):
+            want, peak, below = {j}, 0.0, 0.0
+            sets = []
+            for k in steps:  # from the final step back
+                sets.append((k, want))
+                want = set().union(*(preds[k].get(x, ()) for x in want))
+            for k, want in reversed(sets):  # computed from the deepest streamed step up
+                size = float(sum(sizes[k][x] for x in want))
+                produced[k] = produced.get(k, 0.0) + size
+                peak = max(peak, below + size)
+                below = size
+            peaks.append(peak)
+            finals.append(below)
+        extra = sum(v - float(sum(sizes[k])) for k, v in produced.items())
+        return peaks, finals, max(extra, 0.0)
+
+    single = len(sites) == 1
+    # the pieces of the join need not be larger than a fraction of what the join holds anyway
+    chunk = max(CHUNK_ENTRIES, CHUNK_FRACTION * held)
     best = None
-    for m in range(lo, hi + 1) if len(sites) > 1 else [lo]:
+    for m in range(lo, hi + 1) if not single else [lo]:
         k_left = sum(1 for s in sites if s <= m)
-        if not 0 < k_left < len(sites) and len(sites) > 1:
+        if not single and not 0 < k_left < len(sites):
             continue
         bond = t[m].legs[2]
-        p_left = pieces(k_left, bond, 1)
-        if m < hi:
-            p_right = pieces(len(sites) - k_left, bond, -1)
-            right_in = right[m + 2]
-        else:  # a single site: no right walk, its identity taken sector by sector
-            p_right = [float(int(n) ** 2) for n in bond.dims.tolist()]
-            right_in = 0.0
-        walk_left = max([left[k - 1] + left[k] for k in range(lo, m)], default=0.0)
-        walk_right = max([left[m - 1] + right[k + 1] + right[k] for k in range(m + 2, hi + 1)], default=0.0)
+        n_sec = bond.n_sectors
         lsz, rsz = opens[k_left], opens[len(sites) - k_left]
         part = 0.0
         for ql, nl in lsz.items():
@@ -301,14 +398,41 @@ def _plan(state, sites: tuple[int, ...]):
                 for qr, nr in rsz.items():
                     nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
                     part = max(part, float(nl * nl2 * nr * nr2))
-        both = [a + b for a, b in zip(p_left, p_right)]
-        join = left[m - 1] + right_in + max(both, default=0.0) + held + 3.0 * part
-        peak = max(walk_left, walk_right, join)
-        key = (peak, abs(m - default))
-        if best is None or key < best[0]:
-            best = (key, m, peak, both, left[m - 1] + right_in)
-    m, peak, both, inputs = best[1], best[2], best[3], best[4]
-    return m, peak, held, n_max, left, right, (both, inputs)
+        depths_left = range(1, min(MAX_STREAMED, m - lo + 1) + 1) if budget is not None else [1]
+        depths_right = range(1, min(MAX_STREAMED, hi - m) + 1) if budget is not None and not single else [1]
+        for dl in depths_left:
+            lp, lf, lx = chain(range(m, m - dl, -1), left_pieces, left_pred, n_sec)
+            base_left = left[m - dl]
+            walk_left = max([left[k - 1] + left[k] for k in range(lo, m - dl + 1)], default=0.0)
+            for dr in depths_right:
+                if single:  # no right walk: its identity taken sector by sector
+                    rp = [float(int(n) ** 2) for n in bond.dims.tolist()]
+                    rx, base_right, walk_right = 0.0, 0.0, 0.0
+                else:
+                    rp, _, rx = chain(range(m + 1, m + 1 + dr), right_pieces, right_pred, n_sec)
+                    base_right = right[m + dr + 1]
+                    walk_right = max([base_left + right[k + 1] + right[k] for k in range(m + dr + 1, hi + 1)],
+                                     default=0.0)
+                needs = [max(a, f + b) for a, f, b in zip(lp, lf, rp)]
+                inputs = base_left + base_right
+                units = []
+                for j, (need, dim) in enumerate(zip(needs, bond.dims.tolist())):
+                    dim = int(dim)
+                    # one streamed step per walk: ranges of the sector's states, each within the chunk size
+                    count = 1 if (dl, dr) != (1, 1) else max(1, min(dim // CHUNK_MIN,
+                                                                    int(np.ceil(need / max(chunk, 1.0)))))
+                    cuts = np.linspace(0, dim, count + 1).astype(int)
+                    units += [(j, int(a), int(b), need * (b - a) / max(dim, 1)) for a, b in zip(cuts[:-1], cuts[1:])]
+                join = inputs + max((u[3] for u in units), default=0.0) + held + 3.0 * part
+                peak = max(walk_left, walk_right, join)
+                extra = lx + rx
+                if budget is None:
+                    key = (peak, abs(m - default))
+                else:
+                    key = (peak > budget, extra if peak <= budget else peak, peak, abs(m - default))
+                if best is None or key < best[0]:
+                    best = (key, _Plan(m, (dl, dr), peak, held, n_max, left, right, units, inputs, extra))
+    return best[1]
 
 
 def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dict, sizes: dict,
@@ -348,7 +472,13 @@ def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dic
             del part
 
 
-def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float:
+def _budget_entries(state, sites, budget) -> float:
+    """The budget in entries of the walks and the join (what :func:`split_estimate` adds, taken off)."""
+    n_states = float(state.basis.dim) ** len(sites)
+    return max(float(resolve_budget(budget)) - 8.0 * n_states, 0.0) / np.dtype(state.dtype).itemsize
+
+
+def split_estimate(state, sites: tuple[int, ...], output: str = "root", budget: int | None = None) -> float:
     """Peak bytes of the split route, counted exactly from the charge sectors before the walk.
 
     Parameters
@@ -359,14 +489,17 @@ def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float
         What the route hands back: the charge blocks of rho, their square root (one
         eigendecomposition per block on top of the blocks), or the dense ``d**m x d**m`` matrix
         (assembled from the blocks).
+    budget : int, optional
+        Bytes the route may use (default :func:`netprobe.resources.default_memory_budget`): the plan
+        is the one :func:`split_blocks` runs under the same budget (:func:`_plan`).
 
     Notes
     -----
-    The walks and the join at the split point that minimises this peak (:func:`_plan`), then the
-    output stage, plus the row codes of the blocks.
+    The walks and the join of that plan, then the output stage, plus the row codes of the blocks.
     """
     item = np.dtype(state.dtype).itemsize
-    _, peak, held, n_max, _, _, _ = _plan(state, sites)
+    plan = _plan(state, sites, _budget_entries(state, sites, budget))
+    peak, held, n_max = plan.peak, plan.held, plan.n_max
     n_states = float(state.basis.dim) ** len(sites)
     if output == "root":
         # blocks, one eigendecomposition (copy of the block, eigenvectors, the scaled copy)
@@ -404,45 +537,60 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
     phys = _OpenSide([np.asarray(basis.order[a:b], np.int64) for a, b in bounds],
                      _sector_parity(blocked_parity, basis.leg.offsets))
     lo, hi = sites[0], sites[-1]
-    m, _, _, _, sizes_left, sizes_right, (both, inputs) = _plan(state, sites)
+    plan = _plan(state, sites, _budget_entries(state, sites, budget))
+    m, (depth_left, depth_right), sizes_left, sizes_right = plan.m, plan.depth, plan.left, plan.right
     meter = WalkMeter(budget, f"{where}: the split walk over {len(sites)} sites", np.dtype(state.dtype).itemsize)
     st = _centred_copy(state, lo, hi)
     dtype = np.result_type(st.dtype, np.float64)
 
-    def walk(start_bond, tensors, code_of, sizes, step, held: float):
-        """Every step but the last; returns the layer, its open side, the open count and the last step."""
+    def walk(start_bond, tensors, code_of, sizes, step, held: float, depth: int):
+        """The full steps; returns the layer and ``piece(sectors)``, the streamed steps for some bra sectors."""
         g = _bond_identity(start_bond, rule, dtype)
         side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
-        for k, a in tensors[:-1]:
+        full, streamed = tensors[:len(tensors) - depth], tensors[len(tensors) - depth:]
+        for k, a in full:
             is_open = k in sites
             meter.check(held + sizes[k - step] + sizes[k], k, a.legs[2].dim)  # input and output layers
             g, side = _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, opened),
                                          fermionic)
             opened += is_open
-        if not tensors:
-            return g, side, opened, None
-        k, a = tensors[-1]
-        is_open = k in sites
-        count = opened
+        if not streamed:  # a single site: no right walk, its identity taken sector by sector
+            def piece(sectors):
+                blocks = {}
+                for k, v in g.blocks.items():
+                    if k[3] in sectors:
+                        rng = sectors.get(k[3]) if isinstance(sectors, dict) else None
+                        blocks[k] = v if rng is None else np.ascontiguousarray(v[:, :, :, rng[0]:rng[1]])
+                return _Piece(g.legs, rule, blocks, dtype), side
+
+            return g, piece
+        base, base_side, counts = g, side, []
+        for k, _ in streamed:
+            counts.append(opened)
+            opened += k in sites
+        preds = [_predecessors(a, True) for _, a in streamed]
 
         def piece(sectors):
-            return _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, count), fermionic,
-                                      sectors)
+            wants = [sectors]
+            for pred in preds[:0:-1]:
+                wants.append(set().union(*(pred.get(x, ()) for x in wants[-1])))
+            wants.reverse()
+            cur, cur_side = base, base_side
+            for (k, a), count, want in zip(streamed, counts, wants):
+                cur, cur_side = _double_layer_step(cur, a, k in sites, cur_side, phys,
+                                                   lambda o, s_, c=count: code_of(o, s_, c), fermionic, want)
+            return cur, cur_side
 
-        return g, side, opened + is_open, piece
+        return g, piece
 
     left = [(k, st.tensors[k]) for k in range(lo, m + 1)]
-    g_left, _, _, piece_left = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, sizes_left, 1, 0.0)
+    g_left, piece_left = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, sizes_left, 1, 0.0,
+                              depth_left)
     right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
-    g_right, side_right, k_right, piece_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o,
-                                                     sizes_right, -1, sizes_left[m - 1])
+    k_right = len([k for k, _ in right if k in sites])
+    g_right, piece_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o, sizes_right, -1,
+                                sizes_left[m - depth_left], depth_right)
     del st, left, right
-    if piece_right is None:  # a single site: the right side is the identity, taken sector by sector
-
-        def piece_right(sectors):
-            return BlockTensor(g_right.legs, None, rule, {k: v for k, v in g_right.blocks.items() if k[3] in sectors},
-                               dtype=dtype), side_right
-
     # the open legs after the last steps (an empty piece: legs and codes only)
     open_left, side_left = piece_left(frozenset())
     open_right, side_right = piece_right(frozenset())
@@ -465,10 +613,11 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
     held = float(sum(n * n for n in sizes.values()))
     mats: dict = {}
     # the join, one sector j of the bra bond b* at a time: both last steps done for that sector only
-    for j, need in enumerate(both):
-        meter.check(inputs + need + held, m, len(both))
-        pl, _ = piece_left(frozenset([j]))
-        pr, _ = piece_right(frozenset([j]))
+    for j, start, stop, need in plan.units:
+        meter.check(plan.inputs + need + held, m, len(plan.units))
+        unit = {j: (start, stop)}
+        pl, _ = piece_left(unit)
+        pr, _ = piece_right(unit)
         _join_into(mats, pl, pr, place, sizes, side_left, side_right, dtype)
         del pl, pr
     del g_left, g_right
