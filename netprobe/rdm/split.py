@@ -437,7 +437,11 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
 
 def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dict, sizes: dict,
                side_left: _OpenSide, side_right: _OpenSide, dtype) -> None:
-    """``rho += sum_{b, b*} G_L[O_L, O_L*, b, b*] G_R[O_R, O_R*, b, b*]`` into the charge blocks ``mats``."""
+    """``rho += sum_{b, b*} G_L[O_L, O_L*, b, b*] G_R[O_R, O_R*, b, b*]`` into the charge blocks ``mats``.
+
+    Only the sub-blocks on and above the diagonal of each block (row pair of sectors before or at the
+    column pair); the caller fills the rest from them, rho being Hermitian.
+    """
     left_groups: dict = {}
     for (sl, slb, bk, bb), blk in g_left.blocks.items():
         left_groups.setdefault((sl, slb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
@@ -448,8 +452,8 @@ def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dic
         for (sr, srb), rights in right_groups.items():
             total, r0, rn = place[(sl, sr)]
             total_b, c0, cn = place[(slb, srb)]
-            if total != total_b:
-                continue  # a pair of charges that rho does not connect: zero by symmetry
+            if total != total_b or r0 > c0:
+                continue  # a pair of charges that rho does not connect; the lower half comes by hermiticity
             part = None
             for key, blk in lefts.items():
                 other = rights.get(key)
@@ -621,6 +625,11 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
         _join_into(mats, pl, pr, place, sizes, side_left, side_right, dtype)
         del pl, pr
     del g_left, g_right
+    for total, mat in mats.items():  # rho is Hermitian: the sub-blocks below the diagonal from those above
+        spans = [place[pair][1:] for pair in layout[total]]
+        for i, (r0, rn) in enumerate(spans):
+            for c0, cn in spans[i + 1:]:
+                mat[c0:c0 + cn, r0:r0 + rn] = mat[r0:r0 + rn, c0:c0 + cn].conj().T
     trace = sum(float(np.trace(b).real) for b in mats.values())
     powers = d ** np.arange(len(sites) - 1, -1, -1, dtype=np.int64)
     blocks = []
