@@ -44,8 +44,8 @@ def _load() -> dict:
             continue
         for f in funcs.values():
             f.restype = ctypes.c_int
-            f.argtypes = [ctypes.c_int, ctypes.c_char, ctypes.c_char, ctypes.c_int, ctypes.c_void_p, ctypes.c_int,
-                          ctypes.c_void_p]
+            f.argtypes = [ctypes.c_int, ctypes.c_char, ctypes.c_char, ctypes.c_int, ctypes.c_void_p,
+                          ctypes.c_int, ctypes.c_void_p]
         found = funcs
         break
     _DRIVERS.update(loaded=True, found=found)

@@ -61,7 +61,8 @@ def _bond_identity(bond: Leg, rule: ChargeRule, dtype) -> BlockTensor:
     zero = np.zeros((1, rule.k), np.int64)
     blocks = {(0, 0, sec, sec): np.eye(int(n), dtype=dtype).reshape(1, 1, int(n), int(n))
               for sec, n in enumerate(bond.dims.tolist())}
-    return BlockTensor((Leg(zero, [1], 1), Leg(zero, [1], -1), bond.dual(), bond), None, rule, blocks, dtype=dtype)
+    legs = (Leg(zero, [1], 1), Leg(zero, [1], -1), bond.dual(), bond)
+    return BlockTensor(legs, None, rule, blocks, dtype=dtype)
 
 
 def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, code_of, rule: ChargeRule):
@@ -161,9 +162,10 @@ def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _O
                     key = (n, nbk, c, cb)
                     target = out.get(key)
                     if target is None:
-                        target = out[key] = np.zeros((int(o_leg.dims[n]), int(o_leg.dims[nbk]), ka.shape[2], n_cb),
-                                                     dtype)
-                    view = target[off:off + size, offb:offb + sizeb].reshape(x, sd, y, s_dim, ka.shape[2], n_cb)
+                        shape = (int(o_leg.dims[n]), int(o_leg.dims[nbk]), ka.shape[2], n_cb)
+                        target = out[key] = np.zeros(shape, dtype)
+                    view = target[off:off + size, offb:offb + sizeb]
+                    view = view.reshape(x, sd, y, s_dim, ka.shape[2], n_cb)
                     view += part.reshape(x, y, sd, ka.shape[2], s_dim, n_cb).transpose(0, 2, 1, 4, 3, 5)
                 del part
             del t
@@ -332,7 +334,8 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
     opens = [{q: sum(p.values()) for q, p in _open_tables(state, c).items()} for c in range(len(sites) + 1)]
 
     def table(count: int, bond: Leg, sign: int) -> dict:
-        return _fuse_tables(opens[count], {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}, rule)
+        bond_table = {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}
+        return _fuse_tables(opens[count], bond_table, rule)
 
     def pieces(count: int, bond: Leg, sign: int) -> list:
         # rows (O*, b*) of bra sector j: label t = q(O*) + sign q_j, each meeting the n_t rows of label t
@@ -340,7 +343,8 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
         out = []
         for q, dim in zip(bond.charges.tolist(), bond.dims.tolist()):
             qj = _add(zero, tuple(q), rule, sign)
-            out.append(float(int(dim) * sum(n * n_t.get(_add(qo, qj, rule), 0) for qo, n in opens[count].items())))
+            rows = sum(n * n_t.get(_add(qo, qj, rule), 0) for qo, n in opens[count].items())
+            out.append(float(int(dim) * rows))
         return out
 
     def identity(bond: Leg) -> float:
@@ -384,54 +388,65 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
     single = len(sites) == 1
     # the pieces of the join need not be larger than a fraction of what the join holds anyway
     chunk = max(CHUNK_ENTRIES, CHUNK_FRACTION * held)
-    best = None
-    for m in range(lo, hi + 1) if not single else [lo]:
-        k_left = sum(1 for s in sites if s <= m)
-        if not single and not 0 < k_left < len(sites):
-            continue
-        bond = t[m].legs[2]
-        n_sec = bond.n_sectors
-        lsz, rsz = opens[k_left], opens[len(sites) - k_left]
-        part = 0.0
-        for ql, nl in lsz.items():
-            for ql2, nl2 in lsz.items():
-                for qr, nr in rsz.items():
-                    nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
-                    part = max(part, float(nl * nl2 * nr * nr2))
-        depths_left = range(1, min(MAX_STREAMED, m - lo + 1) + 1) if budget is not None else [1]
-        depths_right = range(1, min(MAX_STREAMED, hi - m) + 1) if budget is not None and not single else [1]
-        for dl in depths_left:
-            lp, lf, lx = chain(range(m, m - dl, -1), left_pieces, left_pred, n_sec)
-            base_left = left[m - dl]
-            walk_left = max([left[k - 1] + left[k] for k in range(lo, m - dl + 1)], default=0.0)
-            for dr in depths_right:
-                if single:  # no right walk: its identity taken sector by sector
-                    rp = [float(int(n) ** 2) for n in bond.dims.tolist()]
-                    rx, base_right, walk_right = 0.0, 0.0, 0.0
-                else:
-                    rp, _, rx = chain(range(m + 1, m + 1 + dr), right_pieces, right_pred, n_sec)
-                    base_right = right[m + dr + 1]
-                    walk_right = max([base_left + right[k + 1] + right[k] for k in range(m + dr + 1, hi + 1)],
-                                     default=0.0)
-                needs = [max(a, f + b) for a, f, b in zip(lp, lf, rp)]
-                inputs = base_left + base_right
-                units = []
-                for j, (need, dim) in enumerate(zip(needs, bond.dims.tolist())):
-                    dim = int(dim)
-                    # one streamed step per walk: ranges of the sector's states, each within the chunk size
-                    count = 1 if (dl, dr) != (1, 1) else max(1, min(dim // CHUNK_MIN,
-                                                                    int(np.ceil(need / max(chunk, 1.0)))))
-                    cuts = np.linspace(0, dim, count + 1).astype(int)
-                    units += [(j, int(a), int(b), need * (b - a) / max(dim, 1)) for a, b in zip(cuts[:-1], cuts[1:])]
-                join = inputs + max((u[3] for u in units), default=0.0) + held + 3.0 * part
-                peak = max(walk_left, walk_right, join)
-                extra = lx + rx
-                if budget is None:
-                    key = (peak, abs(m - default))
-                else:
-                    key = (peak > budget, extra if peak <= budget else peak, peak, abs(m - default))
-                if best is None or key < best[0]:
-                    best = (key, _Plan(m, (dl, dr), peak, held, n_max, left, right, units, inputs, extra))
+
+    def search(deep: bool):
+        best = None
+        for m in range(lo, hi + 1) if not single else [lo]:
+            k_left = sum(1 for s in sites if s <= m)
+            if not single and not 0 < k_left < len(sites):
+                continue
+            bond = t[m].legs[2]
+            n_sec = bond.n_sectors
+            lsz, rsz = opens[k_left], opens[len(sites) - k_left]
+            part = 0.0
+            for ql, nl in lsz.items():
+                for ql2, nl2 in lsz.items():
+                    for qr, nr in rsz.items():
+                        nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
+                        part = max(part, float(nl * nl2 * nr * nr2))
+            depths_left = range(1, min(MAX_STREAMED, m - lo + 1) + 1) if deep else [1]
+            depths_right = range(1, min(MAX_STREAMED, hi - m) + 1) if deep and not single else [1]
+            for dl in depths_left:
+                lp, lf, lx = chain(range(m, m - dl, -1), left_pieces, left_pred, n_sec)
+                base_left = left[m - dl]
+                walk_left = max([left[k - 1] + left[k] for k in range(lo, m - dl + 1)], default=0.0)
+                for dr in depths_right:
+                    if single:  # no right walk: its identity taken sector by sector
+                        rp = [float(int(n) ** 2) for n in bond.dims.tolist()]
+                        rx, base_right, walk_right = 0.0, 0.0, 0.0
+                    else:
+                        rp, _, rx = chain(range(m + 1, m + 1 + dr), right_pieces, right_pred, n_sec)
+                        base_right = right[m + dr + 1]
+                        walk_right = max([base_left + right[k + 1] + right[k]
+                                          for k in range(m + dr + 1, hi + 1)], default=0.0)
+                    needs = [max(a, f + b) for a, f, b in zip(lp, lf, rp)]
+                    inputs = base_left + base_right
+                    units = []
+                    for j, (need, dim) in enumerate(zip(needs, bond.dims.tolist())):
+                        dim = int(dim)
+                        # one streamed step per walk: ranges of the sector's states within the chunk size
+                        count = 1 if (dl, dr) != (1, 1) else max(1, min(dim // CHUNK_MIN,
+                                                                        int(np.ceil(need / max(chunk, 1.0)))))
+                        cuts = np.linspace(0, dim, count + 1).astype(int)
+                        units += [(j, int(a), int(b), need * (b - a) / max(dim, 1))
+                                  for a, b in zip(cuts[:-1], cuts[1:])]
+                    join = inputs + max((u[3] for u in units), default=0.0) + held + 3.0 * part
+                    peak = max(walk_left, walk_right, join)
+                    extra = lx + rx
+                    if budget is None:
+                        key = (peak, abs(m - default))
+                    else:
+                        key = (peak > budget, extra if peak <= budget else peak, peak, abs(m - default))
+                    if best is None or key < best[0]:
+                        best = (key, _Plan(m, (dl, dr), peak, held, n_max, left, right, units, inputs, extra))
+        return best
+
+    # one streamed step per walk costs nothing extra: deeper plans only where that does not fit
+    best = search(False)
+    if budget is not None and best[1].peak > budget:
+        deeper = search(True)
+        if deeper[0] < best[0]:
+            best = deeper
     return best[1]
 
 
@@ -548,7 +563,9 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
     dtype = np.result_type(st.dtype, np.float64)
 
     def walk(start_bond, tensors, code_of, sizes, step, held: float, depth: int):
-        """The full steps; returns the layer and ``piece(sectors)``, the streamed steps for some bra sectors."""
+        """The full steps; returns the layer and ``piece(sectors)``: the streamed steps for some bra sectors.
+
+        """
         g = _bond_identity(start_bond, rule, dtype)
         side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
         full, streamed = tensors[:len(tensors) - depth], tensors[len(tensors) - depth:]
@@ -592,8 +609,8 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
                               depth_left)
     right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
     k_right = len([k for k, _ in right if k in sites])
-    g_right, piece_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o, sizes_right, -1,
-                                sizes_left[m - depth_left], depth_right)
+    g_right, piece_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o, sizes_right,
+                                -1, sizes_left[m - depth_left], depth_right)
     del st, left, right
     # the open legs after the last steps (an empty piece: legs and codes only)
     open_left, side_left = piece_left(frozenset())
