@@ -563,9 +563,7 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
     dtype = np.result_type(st.dtype, np.float64)
 
     def walk(start_bond, tensors, code_of, sizes, step, held: float, depth: int):
-        """The full steps; returns the layer and ``piece(sectors)``: the streamed steps for some bra sectors.
-
-        """
+        """Full steps; returns the layer and ``piece(sectors)`` (the streamed steps, for some bra sectors)."""
         g = _bond_identity(start_bond, rule, dtype)
         side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
         full, streamed = tensors[:len(tensors) - depth], tensors[len(tensors) - depth:]
