@@ -566,7 +566,7 @@ def _probes_on_root(state, names, lists, union, space, probes, wanted, eps, memo
 
 def _probes_on_blocks(state, names, lists, union, space, probes, wanted, eps, memory_budget):
     """Weights and J from the charge blocks of rho_ABC (the split route), never a dense rho or its root."""
-    estimate = rdm.estimate_blocks_memory(state, union, space)
+    estimate = rdm.estimate_blocks_memory(state, union, space, memory_budget=memory_budget)
     check_memory_budget(estimate, memory_budget, f"probes on the charge blocks of {len(union)} sites")
     blocked = rdm.reduced_blocks(state, union, space, method="split", memory_budget=memory_budget)
     pb = rdm.part_blocks(blocked, dict(zip(names, lists)))

@@ -115,7 +115,7 @@ def reduced_blocks(state, sites, space: SiteSpace, *, method: str = "auto",
 
 
 def estimate_rdm_memory(state, sites, space: SiteSpace, *, method: str = "auto",
-                        dense: bool = False) -> float:
+                        dense: bool = False, memory_budget: int | None = None) -> float:
     """Bytes a reduced state of ``sites`` would need, estimated before any large allocation.
 
     Parameters
@@ -128,6 +128,9 @@ def estimate_rdm_memory(state, sites, space: SiteSpace, *, method: str = "auto",
     dense : bool
         Estimate for the dense ``d**m x d**m`` output (what :func:`reduced_density_matrix` returns)
         instead of the square root.
+    memory_budget : int, optional
+        The budget the computation would run under (the split route plans its streaming by it);
+        default :func:`netprobe.resources.default_memory_budget`.
 
     Returns
     -------
@@ -138,7 +141,8 @@ def estimate_rdm_memory(state, sites, space: SiteSpace, *, method: str = "auto",
         its dimension bound and within the largest bond dimension over the span. Every walk then
         checks each step, right before its allocation, with the actual dimensions.
     """
-    _, estimate = route_estimate(as_pure_state(state), sites, space, method, "dense" if dense else "root")
+    _, estimate = route_estimate(as_pure_state(state), sites, space, method, "dense" if dense else "root",
+                                 budget=memory_budget)
     return estimate
 
 
@@ -149,14 +153,16 @@ def rdm_route(state, sites, space: SiteSpace, *, method: str = "auto", dense: bo
     return route.name
 
 
-def estimate_blocks_memory(state, sites, space: SiteSpace) -> float:
+def estimate_blocks_memory(state, sites, space: SiteSpace, *, memory_budget: int | None = None) -> float:
     """Peak bytes of :func:`reduced_blocks` followed by the probes on the blocks (:mod:`netprobe.rdm.blocked`).
 
-    Both counted exactly from the charge sectors: the split walks and their join, then the blocks
-    with one product and one eigenvalue copy of the largest block.
+    Both counted exactly from the charge sectors: the split walks and their join as planned under
+    ``memory_budget`` (default :func:`netprobe.resources.default_memory_budget`), then the blocks with
+    one product and one eigenvalue copy of the largest block.
     """
     state = as_pure_state(state)
-    _, walk = route_estimate(state, sites, space, "split", "blocks", where="estimate_blocks_memory")
+    _, walk = route_estimate(state, sites, space, "split", "blocks", where="estimate_blocks_memory",
+                             budget=memory_budget)
     checked = _checked_sites(state, sites, space, "estimate_blocks_memory")
     probes = blocks_probe_estimate(block_sizes(state, checked), np.dtype(state.dtype).itemsize)
     return max(walk, probes)

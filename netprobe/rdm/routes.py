@@ -46,7 +46,8 @@ class Route:
     applies : callable
         ``applies(state, sites, space) -> bool``.
     estimate : callable
-        ``estimate(state, sites, space, output) -> float``, peak bytes.
+        ``estimate(state, sites, space, output, budget=None) -> float``, peak bytes of what ``build``
+        runs under that budget (only the split route's plan depends on it).
     build : callable
         ``build(state, sites, space, budget, where, output)``.
     unfit : str
@@ -75,7 +76,7 @@ def _dense_bytes(state, sites, space) -> float:
 
 # --- dense vectors -------------------------------------------------------------------------------
 
-def _vector_estimate(psi, sites, space, output):
+def _vector_estimate(psi, sites, space, output, budget=None):
     n = _vector_sites(psi, space, "estimate_rdm_memory")
     return _vector.vector_estimate(n, space.dim, len(sites), np.dtype(psi.dtype).itemsize, output == "dense")
 
@@ -96,7 +97,7 @@ def _root_applies(state, sites, space) -> bool:
     return _is_mps(state) and _parity_graded(state.basis)
 
 
-def _root_estimate(state, sites, space, output):
+def _root_estimate(state, sites, space, output, budget=None):
     return _root.root_estimate(state, sites) + (_dense_bytes(state, sites, space) if output == "dense" else 0.0)
 
 
@@ -109,7 +110,7 @@ def _root_build(state, sites, space, budget, where, output):
     return root
 
 
-def _zipper_estimate(state, sites, space, output):
+def _zipper_estimate(state, sites, space, output, budget=None):
     # the dense rho is the zipper's own output, held beside the last transfer
     return _zipper.zipper_estimate(state, sites) + _dense_bytes(state, sites, space)
 
@@ -127,12 +128,12 @@ def _split_applies(state, sites, space) -> bool:
     return _is_mps(state) and _split.split_applies(state, sites)
 
 
-def _split_estimate(state, sites, space, output):
-    return _split.split_estimate(state, sites, output)
+def _split_estimate(state, sites, space, output, budget=None):
+    return _split.split_estimate(state, sites, output, budget)
 
 
 def _split_build(state, sites, space, budget, where, output):
-    estimate = _split.split_estimate(state, sites, output)
+    estimate = _split.split_estimate(state, sites, output, budget)
     blocks = _split.split_blocks(state, sites, budget, where, estimate)
     if output == "blocks":
         return blocks
@@ -176,7 +177,7 @@ def _checked_sites(state, sites, space, where: str) -> tuple[int, ...]:
 
 
 def choose_route(state, sites, space, method: str = "auto", output: str = "root",
-                 where: str = "choose_route") -> Route:
+                 where: str = "choose_route", budget: int | None = None) -> Route:
     """The route that builds the reduced state of ``sites``: the named one or the cheapest that applies.
 
     Parameters
@@ -192,6 +193,8 @@ def choose_route(state, sites, space, method: str = "auto", output: str = "root"
     output : {"root", "dense", "blocks"}
     where : str
         Caller's name, for messages.
+    budget : int, optional
+        Bytes allowed (the split route's estimate depends on it).
 
     Returns
     -------
@@ -215,15 +218,15 @@ def choose_route(state, sites, space, method: str = "auto", output: str = "root"
         return ROUTES["zipper"]
     candidates = [r for n, r in ROUTES.items() if n != "vector" and output in r.outputs
                   and r.applies(state, sites, space)]
-    return min(candidates, key=lambda r: r.weight * r.estimate(state, sites, space, output))
+    return min(candidates, key=lambda r: r.weight * r.estimate(state, sites, space, output, budget))
 
 
 def route_estimate(state, sites, space, method: str = "auto", output: str = "root",
-                   where: str = "estimate_rdm_memory") -> tuple[Route, float]:
-    """The chosen route and its peak-byte estimate (sites are checked here)."""
+                   where: str = "estimate_rdm_memory", budget: int | None = None) -> tuple[Route, float]:
+    """The chosen route and its peak-byte estimate under ``budget`` (sites are checked here)."""
     sites = _checked_sites(state, sites, space, where)
-    route = choose_route(state, sites, space, method, output, where)
-    return route, float(route.estimate(state, sites, space, output))
+    route = choose_route(state, sites, space, method, output, where, budget)
+    return route, float(route.estimate(state, sites, space, output, budget))
 
 
 def dispatch(state, sites, space, *, method: str = "auto", output: str = "root", budget: int | None = None,
@@ -245,10 +248,10 @@ def dispatch(state, sites, space, *, method: str = "auto", output: str = "root",
     if output not in OUTPUTS:
         raise ValueError(f"output must be one of {OUTPUTS}, got {output!r}")
     sites = _checked_sites(state, sites, space, where)
-    route = choose_route(state, sites, space, method, output, where)
+    route = choose_route(state, sites, space, method, output, where, budget)
     if output not in route.outputs:
         raise NetprobeError(f"{where}: {route.what} does not keep the charge blocks of rho; use method='split'")
-    check_memory_budget(route.estimate(state, sites, space, output), budget,
+    check_memory_budget(route.estimate(state, sites, space, output, budget), budget,
                         f"{where}: {route.what} over {len(sites)} sites")
     try:
         return route.build(state, sites, space, budget, where, output)
@@ -256,6 +259,6 @@ def dispatch(state, sites, space, *, method: str = "auto", output: str = "root",
         if method != "auto":
             raise NetprobeError(f"{where}: method='{method}' does not apply: {route.unfit}") from None
     zipper = ROUTES["zipper"]
-    check_memory_budget(zipper.estimate(state, sites, space, output), budget,
+    check_memory_budget(zipper.estimate(state, sites, space, output, budget), budget,
                         f"{where}: {zipper.what} over {len(sites)} sites")
     return zipper.build(state, sites, space, budget, where, output)

@@ -17,10 +17,15 @@ both walks apply the rule with their own side. The flag is one bit per sector of
 off its charges, so the strings cost nothing; the route applies where the charges fix the parity of
 every open sector (:func:`split_applies`).
 
-Memory (:func:`split_estimate`, exact sector counts): the walks hold at most both layers, the join
-both layers, the blocks (``sum_Q n_Q**2`` entries, ``n_Q`` the configurations of S of charge Q) and a
-few copies of the largest product of two layer blocks; the square root then holds the blocks and one
-eigendecomposition.
+Memory (:func:`split_estimate`, exact sector counts): the walks hold at most both layers of a step;
+the last step of each walk is never done whole: the join runs one sector ``j`` of the bra bond ``b*``
+at the split at a time, doing both last steps for that sector only (each pair of an input block and a
+bra tensor block belongs to exactly one sector, so nothing is computed twice), and holds the two
+walks' inputs to their last steps, the two pieces of sector ``j``, the blocks of rho
+(``sum_Q n_Q**2`` entries, ``n_Q`` the configurations of S of charge Q) and a few copies of the
+largest product of two layer blocks; the square root then holds the blocks and one
+eigendecomposition. Layers are kept as ``G[O, O*, b, b*]`` so that every step and the join are plain
+matrix products.
 """
 
 from __future__ import annotations
@@ -29,6 +34,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from netprobe.resources import resolve_budget
 from netprobe.rdm.common import BlockedRho, RootBlock, _grading_of, _labels
 from netprobe.rdm.root import UngradedParity
 from netprobe.rdm.tables import (
@@ -48,14 +54,15 @@ class _OpenSide:
 
 
 def _bond_identity(bond: Leg, rule: ChargeRule, dtype) -> BlockTensor:
-    """The start of a double-layer walk: ``G[O, b, O*, b*]``, identity on ``b``, one open state of charge 0.
+    """The start of a double-layer walk: ``G[O, O*, b, b*]``, identity on ``b``, one open state of charge 0.
 
     ``b`` contracts with ``bond``, the left bond of the walk's first tensor.
     """
     zero = np.zeros((1, rule.k), np.int64)
-    blocks = {(0, sec, 0, sec): np.eye(int(n), dtype=dtype).reshape(1, int(n), 1, int(n))
+    blocks = {(0, 0, sec, sec): np.eye(int(n), dtype=dtype).reshape(1, 1, int(n), int(n))
               for sec, n in enumerate(bond.dims.tolist())}
-    return BlockTensor((Leg(zero, [1], 1), bond.dual(), Leg(zero, [1], -1), bond), None, rule, blocks, dtype=dtype)
+    legs = (Leg(zero, [1], 1), Leg(zero, [1], -1), bond.dual(), bond)
+    return BlockTensor(legs, None, rule, blocks, dtype=dtype)
 
 
 def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, code_of, rule: ChargeRule):
@@ -84,62 +91,107 @@ def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, co
 
 
 def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _OpenSide, phys: _OpenSide,
-                       code_of, fermionic: bool):
-    """``G'[O', c, O'*, c*] = sum A[b, s, c] G[O, b, O*, b*] conj(A[b*, s*, c*])``, one block pair at a time.
+                       code_of, fermionic: bool, bra_sectors=None):
+    """``G'[O', O'*, c, c*] = sum A[b, s, c] G[O, O*, b, b*] conj(A[b*, s*, c*])``, one block pair at a time.
 
     A traced site has ``s* = s`` summed and ``O' = O``; for fermions it carries ``F = (-1)^n`` on the
     ket wherever the open parities of ``O`` and ``O*`` differ (the string rule, read off the sector
     flags). An open site fuses ``(O, s)`` into ``O'`` (``O`` major) with codes
-    ``code_of(O codes, s codes)``. Working block by block keeps the memory at the input and the output
-    plus one product of blocks (no fused copies of the large tensor).
+    ``code_of(O codes, s codes)``. The layout ``(O, O*, b, b*)`` makes both contractions plain
+    matrix products without copies of the layer: ``G`` read as ``((O, O*, b), b*)`` times the bra,
+    then the ket applied as one product per open pair ``(O, O*)`` (a stacked product). Working block
+    by block keeps the memory at the input and the output plus one product of blocks.
+
+    ``bra_sectors`` (sector indices of the output bond, optional) restricts the output to the blocks
+    whose bra bond ``c*`` lies in them; a mapping ``sector -> (start, stop)`` (or ``None`` for all of
+    it) also restricts ``c*`` to a range of states of that sector. The pieces of one layer for
+    different sectors or ranges are disjoint, and each (input block, bra tensor columns) pair is used
+    by exactly one piece, so a layer built piece by piece costs what it costs whole.
     """
     rule = g.rule
     by_bond: dict = {}
     for (b, ss, c), blk in a.blocks.items():
-        by_bond.setdefault(b, []).append((ss, c, blk))
+        bmat = blk.reshape(blk.shape[0], -1)
+        by_bond.setdefault(b, []).append((ss, c, blk, bmat))
     if open_site:
         o_leg, place, new_side = _fused_open_leg(g.legs[0], a.legs[1], side, phys, code_of, rule)
     else:
         o_leg, place, new_side = g.legs[0], None, side
-    legs = (o_leg, a.legs[2], o_leg.dual(), a.legs[2].dual())
+    legs = (o_leg, o_leg.dual(), a.legs[2], a.legs[2].dual())
+    dtype = np.result_type(g.dtype, a.dtype)
     out: dict = {}
-    for (o, b, ob, bb), blk in g.blocks.items():
+    for (o, ob, b, bb), blk in g.blocks.items():
         kets = by_bond.get(b, ())
         bras = by_bond.get(bb, ())
+        if bra_sectors is not None:
+            bras = [_bra_chunk(item, bra_sectors) for item in bras if item[1] in bra_sectors]
+        if not kets or not bras:
+            continue
         odd = False
         if fermionic and not open_site:
             po, pob = side.parity[o], side.parity[ob]
             if po is None or pob is None:
                 raise UngradedParity
             odd = bool(po ^ pob)
-        for ss, c, ka in kets:
-            half = np.tensordot(blk, ka, axes=([1], [0]))  # (x, y, z, s, c)
-            if odd and phys.parity[ss]:
-                half = np.negative(half, out=half)
-            for sb, cb, kb in bras:
-                if not open_site and sb != ss:
-                    continue
-                if open_site:
-                    part = np.tensordot(half, kb.conj(), axes=([2], [0]))  # (x, y, s, c, s*, c*)
-                    n, off, size = place[(o, ss)]
-                    nb, offb, sizeb = place[(ob, sb)]
-                    key = (n, c, nb, cb)
-                    shape = (int(o_leg.dims[n]), part.shape[3], int(o_leg.dims[nb]), part.shape[5])
+        x, y, nb, nbb = blk.shape
+        flat = blk.reshape(x * y * nb, nbb)
+        for sb, cb, kb, kbmat in bras:
+            s_dim, n_cb = kb.shape[1], kb.shape[2]
+            t = (flat @ kbmat.conj()).reshape(x * y, nb * s_dim, n_cb)  # (O O*, (b, s*), c*)
+            for ss, c, ka, kamat in kets:
+                if not open_site:
+                    if ss != sb:
+                        continue
+                    # sum over (b, s): ka read as ((b, s), c)
+                    part = np.matmul(kamat.reshape(nb * s_dim, ka.shape[2]).T, t)  # (O O*, c, c*)
+                    if odd and phys.parity[ss]:
+                        part = np.negative(part, out=part)
+                    key = (o, ob, c, cb)
+                    part = part.reshape(x, y, ka.shape[2], n_cb)
                     target = out.get(key)
                     if target is None:
-                        target = out[key] = np.zeros(shape, part.dtype)
-                    x, y, sd, cd, sbd, cbd = part.shape
-                    target[off:off + size, :, offb:offb + sizeb, :] += part.transpose(0, 2, 3, 1, 4, 5).reshape(
-                        x * sd, cd, y * sbd, cbd)
-                else:
-                    part = np.tensordot(half, kb.conj(), axes=([2, 3], [0, 1]))  # (x, y, c, c*)
-                    key = (o, c, ob, cb)
-                    target = out.get(key)
-                    if target is None:
-                        out[key] = part.transpose(0, 2, 1, 3).copy()
+                        out[key] = part
                     else:
-                        target += part.transpose(0, 2, 1, 3)
-    return BlockTensor(legs, None, rule, out, dtype=np.result_type(g.dtype, a.dtype)), new_side
+                        target += part
+                else:
+                    sd = ka.shape[1]
+                    # sum over b: ka read as (b, (s, c)); t read as (O O*, b, (s*, c*))
+                    part = np.matmul(kamat.T, t.reshape(x * y, nb, s_dim * n_cb))  # (O O*, (s, c), (s*, c*))
+                    n, off, size = place[(o, ss)]
+                    nbk, offb, sizeb = place[(ob, sb)]
+                    key = (n, nbk, c, cb)
+                    target = out.get(key)
+                    if target is None:
+                        shape = (int(o_leg.dims[n]), int(o_leg.dims[nbk]), ka.shape[2], n_cb)
+                        target = out[key] = np.zeros(shape, dtype)
+                    view = target[off:off + size, offb:offb + sizeb]
+                    view = view.reshape(x, sd, y, s_dim, ka.shape[2], n_cb)
+                    view += part.reshape(x, y, sd, ka.shape[2], s_dim, n_cb).transpose(0, 2, 1, 4, 3, 5)
+                del part
+            del t
+    if isinstance(bra_sectors, dict) and any(r is not None for r in bra_sectors.values()):
+        return _Piece(legs, rule, out, dtype), new_side  # c* cut to a range: not a whole leg
+    return BlockTensor(legs, None, rule, out, dtype=dtype), new_side
+
+
+@dataclass
+class _Piece:
+    """Blocks of a layer whose bra bond is cut to a range of states (what the join reads of a layer)."""
+
+    legs: tuple
+    rule: ChargeRule
+    blocks: dict
+    dtype: np.dtype
+
+
+def _bra_chunk(item, bra_sectors):
+    """A bra entry ``(s, c, block, matrix)`` cut to the range of ``c*`` states asked for, if any."""
+    rng = bra_sectors.get(item[1]) if isinstance(bra_sectors, dict) else None
+    if rng is None:
+        return item
+    ss, c, kb, _ = item
+    part = np.ascontiguousarray(kb[:, :, rng[0]:rng[1]])
+    return ss, c, part, part.reshape(part.shape[0], -1)
 
 
 def _default_split(sites: tuple[int, ...]) -> int:
@@ -202,17 +254,77 @@ def split_applies(state, sites: tuple[int, ...]) -> bool:
     return all(len(p) == 1 for count in range(len(sites) + 1) for p in _open_tables(state, count).values())
 
 
-def _plan(state, sites: tuple[int, ...]):
-    """The split point with the smallest exact peak of the walks and the join, with its sizes (entries).
+#: Most final steps of one walk done sector by sector (each deeper one recomputes parts of a step).
+MAX_STREAMED = 4
+#: Pieces of the join with one streamed step per walk are cut to about the larger of these entries
+#: and this fraction of the blocks of rho, in ranges of at least ``CHUNK_MIN`` bond states.
+CHUNK_ENTRIES = 2.0**23
+CHUNK_FRACTION = 0.125
+CHUNK_MIN = 16
 
-    Returns ``(m, walks_and_join, held, n_max, left, right)``: the last site of the left walk, the peak
-    of the two walks and the join at that split, the entries of the blocks of rho, the largest block
-    size, and the entries of the left layer after each site and of the right layer after each site of
-    the mirrored walk (what every step checks against the budget).
-    Every step of a walk holds its input and output layer (the right walk also ``G_L``); a layer
-    ``G[(O, b), (O*, b*)]`` has ``sum_Q n_Q**2`` entries, ``n_Q`` the (open configuration, bond state)
-    pairs of charge Q; the join holds both layers, the blocks and three copies of the largest product
-    of a left and a right layer block.
+
+@dataclass
+class _Plan:
+    """Where the walks meet and how much of them is done sector by sector (sizes in entries).
+
+    Attributes
+    ----------
+    m : int
+        Last site of the left walk.
+    depth : tuple of int
+        Final steps of the left and the right walk done one sector of the split's bra bond at a time.
+    peak, held, n_max : float
+        Peak of the walks and the join; entries of the blocks of rho; largest block size.
+    left, right : dict
+        Entries of the left layer after each site, of the right layer after each site of the mirrored walk.
+    units : list of tuple
+        ``(sector, start, stop, need)``: the join's units, a sector of the split's bra bond (or a range
+        of its states where both walks stream one step), and what its streamed steps hold besides
+        the two inputs.
+    inputs : float
+        The two layers the streamed steps start from.
+    extra : float
+        Entries computed more than once by the streamed steps (a measure of their extra work).
+    """
+
+    m: int
+    depth: tuple
+    peak: float
+    held: float
+    n_max: float
+    left: dict
+    right: dict
+    units: list
+    inputs: float
+    extra: float
+
+
+def _predecessors(tensor: BlockTensor, ket_to_bra: bool) -> dict:
+    """Output bond sector -> input bond sectors that feed it through ``tensor`` (its block keys)."""
+    out: dict = {}
+    for b, _, c in tensor.blocks:
+        if ket_to_bra:
+            out.setdefault(c, set()).add(b)
+        else:
+            out.setdefault(b, set()).add(c)
+    return out
+
+
+def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
+    """The split point and streaming depths: exact peaks from the charge sectors (entries).
+
+    Every full step of a walk holds its input and output layer (the right walk also the left walk's
+    streamed input); a layer ``G[(O, b), (O*, b*)]`` has ``sum_Q n_Q**2`` entries, ``n_Q`` the (open
+    configuration, bond state) pairs of charge Q. The last ``depth`` steps of each walk are never done
+    whole: the join runs one sector ``j`` of the bra bond ``b*`` at the split at a time, and each
+    streamed step computes only the bra sectors that sector ``j`` needs (the predecessors through the
+    MPS tensor's blocks), so it holds both walks' inputs, the pieces of two consecutive streamed
+    steps (the left's final piece while the right's run), the blocks of rho and three copies of the
+    largest product of a left and a right layer block. One streamed step per walk costs nothing extra;
+    deeper ones recompute the sectors that several ``j`` share.
+
+    ``budget`` (entries): among the plans within it, the one with the least recomputed work, else the
+    smallest peak. Without a budget the smallest peak with one streamed step per walk.
     """
     basis = state.basis
     rule = basis.rule
@@ -221,46 +333,171 @@ def _plan(state, sites: tuple[int, ...]):
     t = state.tensors
     opens = [{q: sum(p.values()) for q, p in _open_tables(state, c).items()} for c in range(len(sites) + 1)]
 
-    def layer(count: int, bond: Leg, sign: int) -> float:
-        table = {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}
-        return float(sum(n * n for n in _fuse_tables(opens[count], table, rule).values()))
+    def table(count: int, bond: Leg, sign: int) -> dict:
+        bond_table = {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}
+        return _fuse_tables(opens[count], bond_table, rule)
+
+    def pieces(count: int, bond: Leg, sign: int) -> list:
+        # rows (O*, b*) of bra sector j: label t = q(O*) + sign q_j, each meeting the n_t rows of label t
+        n_t = table(count, bond, sign)
+        out = []
+        for q, dim in zip(bond.charges.tolist(), bond.dims.tolist()):
+            qj = _add(zero, tuple(q), rule, sign)
+            rows = sum(n * n_t.get(_add(qo, qj, rule), 0) for qo, n in opens[count].items())
+            out.append(float(int(dim) * rows))
+        return out
 
     def identity(bond: Leg) -> float:
         return float(sum(int(n) ** 2 for n in bond.dims.tolist()))
 
-    left = {lo - 1: identity(t[lo].legs[0])}
+    left, left_pieces = {lo - 1: identity(t[lo].legs[0])}, {}
     for k in range(lo, hi + 1):
-        left[k] = layer(sum(1 for s in sites if s <= k), t[k].legs[2], 1)
-    right = {hi + 1: identity(t[hi].legs[2])}
+        left_pieces[k] = pieces(sum(1 for s in sites if s <= k), t[k].legs[2], 1)
+        left[k] = float(sum(left_pieces[k]))
+    right, right_pieces = {hi + 1: identity(t[hi].legs[2])}, {}
     for k in range(hi, lo, -1):
-        right[k] = layer(sum(1 for s in sites if s >= k), t[k - 1].legs[2], -1)
+        right_pieces[k] = pieces(sum(1 for s in sites if s >= k), t[k - 1].legs[2], -1)
+        right[k] = float(sum(right_pieces[k]))
+    left_pred = {k: _predecessors(t[k], True) for k in range(lo, hi + 1)}
+    right_pred = {k: _predecessors(t[k], False) for k in range(lo + 1, hi + 1)}
     blocks = _label_counts(basis.space, basis.conserved, len(sites))
     held = float(sum(n * n for n in blocks.values()))
     n_max = float(max(blocks.values()))
     default = _default_split(sites)
-    best = None
-    for m in range(lo, hi + 1) if len(sites) > 1 else [lo]:
-        k_left = sum(1 for s in sites if s <= m)
-        if not 0 < k_left < len(sites) and len(sites) > 1:
-            continue
-        walk_left = max(left[k - 1] + left[k] for k in range(lo, m + 1))
-        walk_right = max([left[m] + right[k + 1] + right[k] for k in range(m + 1, hi + 1)], default=0.0)
-        lsz, rsz = opens[k_left], opens[len(sites) - k_left]
-        part = 0.0
-        for ql, nl in lsz.items():
-            for ql2, nl2 in lsz.items():
-                for qr, nr in rsz.items():
-                    nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
-                    part = max(part, float(nl * nl2 * nr * nr2))
-        join = left[m] + right[m + 1] + held + 3.0 * part
-        peak = max(walk_left, walk_right, join)
-        key = (peak, abs(m - default))
-        if best is None or key < best[0]:
-            best = (key, m, peak)
-    return best[1], best[2], held, n_max, left, right
+
+    def chain(steps, sizes, preds, n_sectors):
+        """Per top sector: (peak of two consecutive pieces, final piece); and the recomputed entries."""
+        peaks, finals = [], []
+        produced: dict = {}
+        for j in range(n_sectors):
+            want, peak, below = {j}, 0.0, 0.0
+            sets = []
+            for k in steps:  # from the final step back
+                sets.append((k, want))
+                want = set().union(*(preds[k].get(x, ()) for x in want))
+            for k, want in reversed(sets):  # computed from the deepest streamed step up
+                size = float(sum(sizes[k][x] for x in want))
+                produced[k] = produced.get(k, 0.0) + size
+                peak = max(peak, below + size)
+                below = size
+            peaks.append(peak)
+            finals.append(below)
+        extra = sum(v - float(sum(sizes[k])) for k, v in produced.items())
+        return peaks, finals, max(extra, 0.0)
+
+    single = len(sites) == 1
+    # the pieces of the join need not be larger than a fraction of what the join holds anyway
+    chunk = max(CHUNK_ENTRIES, CHUNK_FRACTION * held)
+
+    def search(deep: bool):
+        best = None
+        for m in range(lo, hi + 1) if not single else [lo]:
+            k_left = sum(1 for s in sites if s <= m)
+            if not single and not 0 < k_left < len(sites):
+                continue
+            bond = t[m].legs[2]
+            n_sec = bond.n_sectors
+            lsz, rsz = opens[k_left], opens[len(sites) - k_left]
+            part = 0.0
+            for ql, nl in lsz.items():
+                for ql2, nl2 in lsz.items():
+                    for qr, nr in rsz.items():
+                        nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
+                        part = max(part, float(nl * nl2 * nr * nr2))
+            depths_left = range(1, min(MAX_STREAMED, m - lo + 1) + 1) if deep else [1]
+            depths_right = range(1, min(MAX_STREAMED, hi - m) + 1) if deep and not single else [1]
+            for dl in depths_left:
+                lp, lf, lx = chain(range(m, m - dl, -1), left_pieces, left_pred, n_sec)
+                base_left = left[m - dl]
+                walk_left = max([left[k - 1] + left[k] for k in range(lo, m - dl + 1)], default=0.0)
+                for dr in depths_right:
+                    if single:  # no right walk: its identity taken sector by sector
+                        rp = [float(int(n) ** 2) for n in bond.dims.tolist()]
+                        rx, base_right, walk_right = 0.0, 0.0, 0.0
+                    else:
+                        rp, _, rx = chain(range(m + 1, m + 1 + dr), right_pieces, right_pred, n_sec)
+                        base_right = right[m + dr + 1]
+                        walk_right = max([base_left + right[k + 1] + right[k]
+                                          for k in range(m + dr + 1, hi + 1)], default=0.0)
+                    needs = [max(a, f + b) for a, f, b in zip(lp, lf, rp)]
+                    inputs = base_left + base_right
+                    units = []
+                    for j, (need, dim) in enumerate(zip(needs, bond.dims.tolist())):
+                        dim = int(dim)
+                        # one streamed step per walk: ranges of the sector's states within the chunk size
+                        count = 1 if (dl, dr) != (1, 1) else max(1, min(dim // CHUNK_MIN,
+                                                                        int(np.ceil(need / max(chunk, 1.0)))))
+                        cuts = np.linspace(0, dim, count + 1).astype(int)
+                        units += [(j, int(a), int(b), need * (b - a) / max(dim, 1))
+                                  for a, b in zip(cuts[:-1], cuts[1:])]
+                    join = inputs + max((u[3] for u in units), default=0.0) + held + 3.0 * part
+                    peak = max(walk_left, walk_right, join)
+                    extra = lx + rx
+                    if budget is None:
+                        key = (peak, abs(m - default))
+                    else:
+                        key = (peak > budget, extra if peak <= budget else peak, peak, abs(m - default))
+                    if best is None or key < best[0]:
+                        best = (key, _Plan(m, (dl, dr), peak, held, n_max, left, right, units, inputs, extra))
+        return best
+
+    # one streamed step per walk costs nothing extra: deeper plans only where that does not fit
+    best = search(False)
+    if budget is not None and best[1].peak > budget:
+        deeper = search(True)
+        if deeper[0] < best[0]:
+            best = deeper
+    return best[1]
 
 
-def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float:
+def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dict, sizes: dict,
+               side_left: _OpenSide, side_right: _OpenSide, dtype) -> None:
+    """``rho += sum_{b, b*} G_L[O_L, O_L*, b, b*] G_R[O_R, O_R*, b, b*]`` into the charge blocks ``mats``.
+
+    Only the sub-blocks on and above the diagonal of each block (row pair of sectors before or at the
+    column pair); the caller fills the rest from them, rho being Hermitian.
+    """
+    left_groups: dict = {}
+    for (sl, slb, bk, bb), blk in g_left.blocks.items():
+        left_groups.setdefault((sl, slb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
+    right_groups: dict = {}
+    for (sr, srb, bk, bb), blk in g_right.blocks.items():
+        right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
+    for (sl, slb), lefts in left_groups.items():
+        for (sr, srb), rights in right_groups.items():
+            total, r0, rn = place[(sl, sr)]
+            total_b, c0, cn = place[(slb, srb)]
+            if total != total_b or r0 > c0:
+                continue  # a pair of charges that rho does not connect; the lower half comes by hermiticity
+            part = None
+            for key, blk in lefts.items():
+                other = rights.get(key)
+                if other is None:
+                    continue
+                # (O_L O_L*, (b b*)) times ((b b*), O_R O_R*): one product, no copies of the layers
+                if part is None:
+                    part = blk @ other.T
+                else:
+                    part += blk @ other.T
+            if part is None:
+                continue
+            target = mats.get(total)
+            if target is None:
+                target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
+            xl, yl = len(side_left.codes[sl]), len(side_left.codes[slb])
+            xr, yr = len(side_right.codes[sr]), len(side_right.codes[srb])
+            view = target[r0:r0 + rn, c0:c0 + cn].reshape(xl, xr, yl, yr)
+            view += part.reshape(xl, yl, xr, yr).transpose(0, 2, 1, 3)
+            del part
+
+
+def _budget_entries(state, sites, budget) -> float:
+    """The budget in entries of the walks and the join (what :func:`split_estimate` adds, taken off)."""
+    n_states = float(state.basis.dim) ** len(sites)
+    return max(float(resolve_budget(budget)) - 8.0 * n_states, 0.0) / np.dtype(state.dtype).itemsize
+
+
+def split_estimate(state, sites: tuple[int, ...], output: str = "root", budget: int | None = None) -> float:
     """Peak bytes of the split route, counted exactly from the charge sectors before the walk.
 
     Parameters
@@ -271,14 +508,17 @@ def split_estimate(state, sites: tuple[int, ...], output: str = "root") -> float
         What the route hands back: the charge blocks of rho, their square root (one
         eigendecomposition per block on top of the blocks), or the dense ``d**m x d**m`` matrix
         (assembled from the blocks).
+    budget : int, optional
+        Bytes the route may use (default :func:`netprobe.resources.default_memory_budget`): the plan
+        is the one :func:`split_blocks` runs under the same budget (:func:`_plan`).
 
     Notes
     -----
-    The walks and the join at the split point that minimises this peak (:func:`_plan`), then the
-    output stage, plus the row codes of the blocks.
+    The walks and the join of that plan, then the output stage, plus the row codes of the blocks.
     """
     item = np.dtype(state.dtype).itemsize
-    _, peak, held, n_max, _, _ = _plan(state, sites)
+    plan = _plan(state, sites, _budget_entries(state, sites, budget))
+    peak, held, n_max = plan.peak, plan.held, plan.n_max
     n_states = float(state.basis.dim) ** len(sites)
     if output == "root":
         # blocks, one eigendecomposition (copy of the block, eigenvectors, the scaled copy)
@@ -292,12 +532,13 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
                  estimate: float = 0.0) -> BlockedRho:
     """The charge blocks of ``rho_S`` by two double-layer walks (module notes).
 
-    The left walk carries ``G_L[O_L, b, O_L*, b*]`` from the first site of the set to the split
+    The left walk carries ``G_L[O_L, O_L*, b, b*]`` from the first site of the set to the split
     point; the right walk is the same walk on the mirrored chain (every tensor read as
     ``A[c, s, b]``) from the last site back to the bond after the split point. Outside the span the
     state is orthonormal towards it, so both walks start from the identity, and
-    ``rho = sum_{b, b*} G_L[O_L, b, O_L*, b*] G_R[O_R, b, O_R*, b*]``, accumulated pair of blocks by pair
-    of blocks into the charge blocks of rho. Every walk step checks its allocation against the
+    ``rho = sum_{b, b*} G_L[O_L, O_L*, b, b*] G_R[O_R, O_R*, b, b*]``, accumulated pair of blocks by pair
+    of blocks into the charge blocks of rho, one sector of ``b*`` at a time (the last step of each walk
+    is done for that sector only). Every walk step and every sector checks its allocation against the
     budget first.
 
     Raises
@@ -315,35 +556,70 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
     phys = _OpenSide([np.asarray(basis.order[a:b], np.int64) for a, b in bounds],
                      _sector_parity(blocked_parity, basis.leg.offsets))
     lo, hi = sites[0], sites[-1]
-    m, _, _, _, sizes_left, sizes_right = _plan(state, sites)
+    plan = _plan(state, sites, _budget_entries(state, sites, budget))
+    m, (depth_left, depth_right), sizes_left, sizes_right = plan.m, plan.depth, plan.left, plan.right
     meter = WalkMeter(budget, f"{where}: the split walk over {len(sites)} sites", np.dtype(state.dtype).itemsize)
     st = _centred_copy(state, lo, hi)
+    dtype = np.result_type(st.dtype, np.float64)
 
-    def walk(start_bond, tensors, code_of, sizes, step, held: float):
-        g = _bond_identity(start_bond, rule, np.result_type(st.dtype, np.float64))
+    def walk(start_bond, tensors, code_of, sizes, step, held: float, depth: int):
+        """Full steps; returns the layer and ``piece(sectors)`` (the streamed steps, for some bra sectors)."""
+        g = _bond_identity(start_bond, rule, dtype)
         side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
-        for k, a in tensors:
+        full, streamed = tensors[:len(tensors) - depth], tensors[len(tensors) - depth:]
+        for k, a in full:
             is_open = k in sites
             meter.check(held + sizes[k - step] + sizes[k], k, a.legs[2].dim)  # input and output layers
             g, side = _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, opened),
                                          fermionic)
             opened += is_open
-        return g, side, opened
+        if not streamed:  # a single site: no right walk, its identity taken sector by sector
+            def piece(sectors):
+                blocks = {}
+                for k, v in g.blocks.items():
+                    if k[3] in sectors:
+                        rng = sectors.get(k[3]) if isinstance(sectors, dict) else None
+                        blocks[k] = v if rng is None else np.ascontiguousarray(v[:, :, :, rng[0]:rng[1]])
+                return _Piece(g.legs, rule, blocks, dtype), side
+
+            return g, piece
+        base, base_side, counts = g, side, []
+        for k, _ in streamed:
+            counts.append(opened)
+            opened += k in sites
+        preds = [_predecessors(a, True) for _, a in streamed]
+
+        def piece(sectors):
+            wants = [sectors]
+            for pred in preds[:0:-1]:
+                wants.append(set().union(*(pred.get(x, ()) for x in wants[-1])))
+            wants.reverse()
+            cur, cur_side = base, base_side
+            for (k, a), count, want in zip(streamed, counts, wants):
+                cur, cur_side = _double_layer_step(cur, a, k in sites, cur_side, phys,
+                                                   lambda o, s_, c=count: code_of(o, s_, c), fermionic, want)
+            return cur, cur_side
+
+        return g, piece
 
     left = [(k, st.tensors[k]) for k in range(lo, m + 1)]
-    g_left, side_left, _ = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, sizes_left, 1, 0.0)
+    g_left, piece_left = walk(st.tensors[lo].legs[0], left, lambda o, s_, k: o * d + s_, sizes_left, 1, 0.0,
+                              depth_left)
     right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
-    g_right, side_right, k_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o,
-                                        sizes_right, -1, sizes_left[m])
+    k_right = len([k for k, _ in right if k in sites])
+    g_right, piece_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o, sizes_right,
+                                -1, sizes_left[m - depth_left], depth_right)
     del st, left, right
+    # the open legs after the last steps (an empty piece: legs and codes only)
+    open_left, side_left = piece_left(frozenset())
+    open_right, side_right = piece_right(frozenset())
     names, local, moduli = _grading_of(space, basis.conserved)
-    dtype = np.result_type(g_left.dtype, g_right.dtype)
     shift = d**k_right
     # rows of a block of rho: the (left sector, right sector) pairs of one total open charge, one
     # after the other, so that every product of two layers lands in a contiguous sub-block
     layout: dict = {}
-    for sl, ql in enumerate(g_left.legs[0].charges.tolist()):
-        for sr, qr in enumerate(g_right.legs[0].charges.tolist()):
+    for sl, ql in enumerate(open_left.legs[0].charges.tolist()):
+        for sr, qr in enumerate(open_right.legs[0].charges.tolist()):
             layout.setdefault(_add(tuple(ql), tuple(qr), rule), []).append((sl, sr))
     place, sizes = {}, {}
     for total, pairs in layout.items():
@@ -353,39 +629,22 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
             place[(sl, sr)] = (total, off, n)
             off += n
         sizes[total] = off
-    left_groups: dict = {}
-    for (sl, bk, slb, bb), blk in g_left.blocks.items():
-        left_groups.setdefault((sl, slb), {})[(bk, bb)] = blk
-    right_groups: dict = {}
-    for (sr, bk, srb, bb), blk in g_right.blocks.items():
-        right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk
-    del g_left, g_right
+    held = float(sum(n * n for n in sizes.values()))
     mats: dict = {}
-    for (sl, slb), lefts in left_groups.items():
-        for (sr, srb), rights in right_groups.items():
-            total, r0, rn = place[(sl, sr)]
-            total_b, c0, cn = place[(slb, srb)]
-            if total != total_b:
-                continue  # a pair of charges that rho does not connect: zero by symmetry
-            part = None
-            for key, blk in lefts.items():
-                other = rights.get(key)
-                if other is None:
-                    continue
-                term = np.tensordot(blk, other, axes=([1, 3], [1, 3]))  # (O_L, O_L*, O_R, O_R*)
-                if part is None:
-                    part = term
-                else:
-                    part += term
-                del term
-            if part is None:
-                continue
-            target = mats.get(total)
-            if target is None:
-                target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
-            target[r0:r0 + rn, c0:c0 + cn] += part.transpose(0, 2, 1, 3).reshape(rn, cn)
-            del part
-    del left_groups, right_groups
+    # the join, one sector j of the bra bond b* at a time: both last steps done for that sector only
+    for j, start, stop, need in plan.units:
+        meter.check(plan.inputs + need + held, m, len(plan.units))
+        unit = {j: (start, stop)}
+        pl, _ = piece_left(unit)
+        pr, _ = piece_right(unit)
+        _join_into(mats, pl, pr, place, sizes, side_left, side_right, dtype)
+        del pl, pr
+    del g_left, g_right
+    for total, mat in mats.items():  # rho is Hermitian: the sub-blocks below the diagonal from those above
+        spans = [place[pair][1:] for pair in layout[total]]
+        for i, (r0, rn) in enumerate(spans):
+            for c0, cn in spans[i + 1:]:
+                mat[c0:c0 + cn, r0:r0 + rn] = mat[r0:r0 + rn, c0:c0 + cn].conj().T
     trace = sum(float(np.trace(b).real) for b in mats.values())
     powers = d ** np.arange(len(sites) - 1, -1, -1, dtype=np.int64)
     blocks = []
