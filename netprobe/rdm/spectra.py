@@ -81,5 +81,7 @@ def hermitian_eigenvalues(mat: np.ndarray, *, overwrite: bool = False) -> np.nda
     w = np.empty(n, np.float64)
     info = drivers[kind](_COLUMN_MAJOR, b"N", b"L", n, work.ctypes.data, n, w.ctypes.data)
     if info != 0:
-        return scipy.linalg.eigvalsh(mat if not overwrite else work, check_finite=False, driver="evd")
+        if work is mat:  # the caller let the driver overwrite its matrix: nothing left to retry on
+            raise np.linalg.LinAlgError(f"two-stage Hermitian eigenvalue driver failed (info = {info})")
+        return scipy.linalg.eigvalsh(mat, check_finite=False, driver="evd")
     return w
