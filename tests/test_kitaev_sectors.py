@@ -76,8 +76,9 @@ def _reference(model):
             out = [kind for pair, kind in links.items() if s in pair and not pair - {s} <= members]
             outward.append((pauli[out[0]], s))
         plaquettes.append(_product(space, outward, n))
-    ends = [_site_op(space, "Z", bond.sites[0], n) for bond in lat.family("dangling")]
-    return ham, plaquettes, ends
+    left = [_site_op(space, "Z", bond.sites[0], n) for bond in lat.family("dangling_left")]
+    right = [_site_op(space, "Z", bond.sites[0], n) for bond in lat.family("dangling_right")]
+    return ham, plaquettes, left + right
 
 
 def _lowest(matrix, k=1):
@@ -115,11 +116,13 @@ def test_hexagons_are_rings_ordered_by_outward_link(orientation):
 
 def test_dangling_sites_are_the_outer_ends_of_zigzag_links():
     lat = build_lattice("honeycomb", length=3, circumference=3, orientation="zigzag")
-    ends = [b.sites[0] for b in lat.family("dangling")]
-    counts = {s: [b.kind for kind in "xyz" for b in lat.family(f"nn_{kind}") if s in b.sites] for s in ends}
-    assert len(ends) == 6 and all(kinds == ["z"] for kinds in counts.values())
-    assert sorted(set(lat.cells[ends, 0].tolist())) == [0, 2]
-    assert build_lattice("honeycomb", length=3, circumference=3, orientation="armchair").family("dangling") == ()
+    for family, column in (("dangling_left", 0), ("dangling_right", 2)):
+        ends = [b.sites[0] for b in lat.family(family)]
+        kinds = [[b.kind for kind in "xyz" for b in lat.family(f"nn_{kind}") if s in b.sites] for s in ends]
+        assert len(ends) == 3 and all(k == ["z"] for k in kinds)
+        assert set(lat.cells[ends, 0].tolist()) == {column}
+    armchair = build_lattice("honeycomb", length=3, circumference=3, orientation="armchair")
+    assert armchair.family("dangling_left") == () and armchair.family("dangling_right") == ()
 
 
 def test_plaquettes_and_end_spins_commute_with_the_hamiltonian():
@@ -151,6 +154,20 @@ def test_biases_keep_the_ground_energy_and_fix_every_sector():
         assert abs(np.vdot(psi, op @ psi) - 1.0) <= tol(spla.norm(ham))
     # without the bias the lowest level is degenerate (end sectors), so a solver may return any mix
     assert abs(vals[1] - vals[0]) <= tol(spla.norm(ham))
+
+
+@pytest.mark.parametrize("length, sign, holds", [(2, 1, False), (2, -1, True)])
+def test_end_signs_on_an_odd_circumference(length, sign, holds):
+    # our own observation, checked against the reference diagonalisation: on an odd circumference the
+    # two ends' products are tied, so only one relative sign of the end pins keeps the ground energy
+    base = {"length": str(length), "circumference": "3", "kappa": str(KAPPA)}
+    ham, plaquettes, ends = _reference(load_model("kitaev", base))
+    e0 = _lowest(ham)[0][0]
+    biased = load_model("kitaev", {**base, "flux_bias": str(BIAS), "edge_bias": str(BIAS), "edge_sign": str(sign)})
+    excess = ground_state(biased.hamiltonian).energy + BIAS * (len(plaquettes) + len(ends)) - e0
+    scale = spla.norm(ham)
+    assert (abs(excess) <= tol(scale)) == holds
+    assert excess > -tol(scale)  # a bias never lowers the energy below the unbiased ground state
 
 
 def test_dmrg_with_biases_matches_exact_polarization():

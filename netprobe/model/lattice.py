@@ -16,8 +16,9 @@ Registered lattices
     ``chain``, ``square`` (also ``nn_along_x`` and ``nn_along_y``: nearest neighbours split by
     direction, member 1 one step along +x or +y from member 0), ``triangular``, ``honeycomb`` (orientation ``zigzag`` or
     ``armchair``: the kind of edge at the open ends; ``hexagons`` lists each complete hexagon with its
-    members ordered by the type of their outward link, x, x, y, y, z, z; ``dangling`` lists the sites
-    on a single link, which the zigzag ends have: the outer end of each z link there), ``kagome``, ``toric`` (spins on the edges of
+    members ordered by the type of their outward link, x, x, y, y, z, z; ``dangling_left`` and
+    ``dangling_right`` list the sites on a single link at either end, which the zigzag ends have: the
+    outer end of each z link there), ``kagome``, ``toric`` (spins on the edges of
     the square lattice, with ``stars`` and ``plaquettes``).
 """
 
@@ -384,7 +385,10 @@ class Lattice:
             count = np.zeros(self.num_sites, np.int64)
             for bond in families["nn"]:
                 count[list(bond.sites)] += 1
-            families["dangling"] = [b for b in families["sites"] if count[b.sites[0]] == 1]
+            dangling = [b for b in families["sites"] if count[b.sites[0]] == 1]
+            middle = 0.5 * (self.positions[:, 0].min() + self.positions[:, 0].max())
+            families["dangling_left"] = [b for b in dangling if self.positions[b.sites[0], 0] < middle]
+            families["dangling_right"] = [b for b in dangling if self.positions[b.sites[0], 0] >= middle]
         return MappingProxyType({name: tuple(b) for name, b in families.items()})
 
     def peierls_phase(self, bond: Bond, *, flux: float = 0.0, twist: float = 0.0) -> float:
