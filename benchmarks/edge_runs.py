@@ -17,6 +17,11 @@ what the method gives there, not converged values (benchmarks/RESULTS.md). Usage
 
     python -m benchmarks.edge_runs            # both models, print a summary
     python -m benchmarks.edge_runs --record   # also append a dated section to benchmarks/RESULTS.md
+    python -m benchmarks.edge_runs --only kitaev --set edge_bias=0.5 --set flux_bias=0.5 --output kitaev_pinned
+
+The Kitaev model needs ``edge_bias`` (and ``flux_bias``) for a nonzero lambda: without them DMRG
+settles in a pattern of the conserved end spins that the translation around y does not preserve, and
+the overlap vanishes (models/kitaev.toml, benchmarks/RESULTS.md).
 """
 
 from __future__ import annotations
