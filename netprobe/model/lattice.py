@@ -15,7 +15,10 @@ Geometries
 Registered lattices
     ``chain``, ``square`` (also ``nn_along_x`` and ``nn_along_y``: nearest neighbours split by
     direction, member 1 one step along +x or +y from member 0), ``triangular``, ``honeycomb`` (orientation ``zigzag`` or
-    ``armchair``: the kind of edge at the open ends), ``kagome``, ``toric`` (spins on the edges of
+    ``armchair``: the kind of edge at the open ends; ``hexagons`` lists each complete hexagon with its
+    members ordered by the type of their outward link, x, x, y, y, z, z; ``dangling_left`` and
+    ``dangling_right`` list the sites on a single link at either end, which the zigzag ends have: the
+    outer end of each z link there), ``kagome``, ``toric`` (spins on the edges of
     the square lattice, with ``stars`` and ``plaquettes``).
 """
 
@@ -184,7 +187,50 @@ def _honeycomb_templates(cell: _CellGeometry, orientation: str):
             pair = kp + kq
             if pair in ("xy", "yz", "zx"):
                 templates.append(_Template(f"paths_{pair}", (p, (0, 0, centre), q)))
-    return templates
+    return templates + _hexagon_templates(cell, templates)
+
+
+def _hexagon_templates(cell: _CellGeometry, templates):
+    """One hexagon per unit cell, members ordered by the type of the link pointing out of it.
+
+    Each site of a hexagon has two links on it and one pointing out; the six out-link types are x, x,
+    y, y, z, z (opposite sites share a type). Members are listed in that order (sublattice 0 first
+    within a type), so ``ops = "X X Y Y Z Z"`` gives the plaquette operator W_p = prod_j sigma_j^{out}
+    in either orientation (Kitaev, Annals of Physics 321, 2 (2006), eq. 6).
+    """
+    links = [t for t in templates if t.family.startswith("nn_")]
+    kinds = {}  # (site relative to a sublattice-0 anchor) -> {neighbour: link type}
+    for t in links:
+        a, b = t.members
+        for p, q in ((a, b), (b, a)):
+            shift = (q[0] - p[0], q[1] - p[1], q[2])
+            kinds.setdefault(p[2], {})[shift] = t.kind
+
+    def neighbours(m):
+        return {(m[0] + d[0], m[1] + d[1], d[2]): k for d, k in kinds[m[2]].items()}
+
+    def left_turn(prev, cur, nxt):
+        v0 = cell.position(*cur) - cell.position(*prev)
+        v1 = cell.position(*nxt) - cell.position(*cur)
+        return v0[0] * v1[1] - v0[1] * v1[0]
+
+    # every hexagon has two links of each type; walk one from the sublattice-0 site at the cell origin,
+    # turning left at every site, so the ring runs counterclockwise
+    start = (0, 0, 0)
+    ring = [start, next(iter(neighbours(start)))]
+    while len(ring) < 7:
+        prev, cur = ring[-2], ring[-1]
+        ring.append(max((n for n in neighbours(cur) if n != prev), key=lambda n: left_turn(prev, cur, n)))
+    if ring[6] != start:  # cannot happen on the honeycomb lattice
+        raise LatticeError("internal: the hexagon walk did not close")
+    centre_ring = ring[:6]
+    members = []
+    for k, m in enumerate(centre_ring):
+        inside = {centre_ring[k - 1], centre_ring[(k + 1) % 6]}
+        out = next(kind for n, kind in neighbours(m).items() if n not in inside)
+        members.append((out, m[2], m))
+    members.sort(key=lambda t: (t[0], t[1]))
+    return [_Template("hexagons", tuple(m for _, _, m in members))]
 
 
 def _square_plaquettes():
@@ -335,6 +381,14 @@ class Lattice:
                     continue
                 seen.add(key)
                 bonds.append(Bond(tuple(sites), np.array(positions), t.kind, tuple(slots), len(t.members)))
+        if self.name == "honeycomb":  # sites on a single link: the outer ends of the links at a zigzag end
+            count = np.zeros(self.num_sites, np.int64)
+            for bond in families["nn"]:
+                count[list(bond.sites)] += 1
+            dangling = [b for b in families["sites"] if count[b.sites[0]] == 1]
+            middle = 0.5 * (self.positions[:, 0].min() + self.positions[:, 0].max())
+            families["dangling_left"] = [b for b in dangling if self.positions[b.sites[0], 0] < middle]
+            families["dangling_right"] = [b for b in dangling if self.positions[b.sites[0], 0] >= middle]
         return MappingProxyType({name: tuple(b) for name, b in families.items()})
 
     def peierls_phase(self, bond: Bond, *, flux: float = 0.0, twist: float = 0.0) -> float:
