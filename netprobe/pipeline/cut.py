@@ -58,6 +58,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from netprobe.errors import LatticeError, NetprobeError
+from netprobe.tensor.entropy import entanglement_energies
 
 __all__ = [
     "ColumnCut",
@@ -260,7 +261,7 @@ class CutSpectrum:
     @property
     def levels(self) -> np.ndarray:
         """Entanglement energies ``-ln(values**2)``."""
-        return -2.0 * np.log(np.maximum(self.values, 1e-300))
+        return entanglement_energies(self.values)
 
     def sorted(self, limit: int | None = None) -> list[dict]:
         """Entries ``{charge, momentum, level}`` by ascending level (the first ``limit``)."""
@@ -306,7 +307,7 @@ def cut_from_schmidt(blocks, circumference: int, names=(), tol: float = DEGENERA
         order = np.argsort(-s, kind="stable")
         s, t = s[order], np.asarray(t)[np.ix_(order, order)]
         total += np.sum(s**2 * np.diag(t))
-        levels = -2.0 * np.log(np.maximum(s, 1e-300))
+        levels = entanglement_energies(s)
         start = 0
         while start < s.size:
             stop = start + 1

@@ -27,6 +27,7 @@ from netprobe.engines import SolveSettings, ground_state
 from netprobe.errors import NetprobeError, SpecError
 from netprobe.engines.mps import entanglement_spectrum
 from netprobe.model.spec import build_model, load_spec
+from netprobe.tensor.entropy import entanglement_energies
 
 __all__ = ["FluxResult", "thread_flux"]
 
@@ -72,8 +73,8 @@ def _left_charge(state, bond: int, component: int, scale: float):
     weights = spec.weights / spec.weights.sum()
     q = spec.charges[:, component].astype(float) * scale
     levels = {}
-    for value, charge in zip(spec.values, spec.charges[:, component]):
-        levels.setdefault(int(charge), []).append(float(-2 * math.log(max(value, 1e-300))))
+    for level, charge in zip(entanglement_energies(spec.values), spec.charges[:, component]):
+        levels.setdefault(int(charge), []).append(float(level))
     return float(np.dot(weights, q)), {str(k): sorted(v)[:8] for k, v in sorted(levels.items())}
 
 

@@ -5,6 +5,8 @@ normalised to unit sum and negative entries, rounding of zero ones, are dropped.
 in nats.
 
 - von Neumann ``S = -sum_k w_k ln w_k``;
+- entanglement energies ``xi_k = -2 ln s_k`` of Schmidt values ``s_k`` (levels of the entanglement
+  Hamiltonian, common practice);
 - Renyi ``S_n = ln(sum_k w_k^n) / (1 - n)``, with ``S_1 = S`` and ``S_inf = -ln max_k w_k``
   (A. Renyi, Proc. Fourth Berkeley Symp. Math. Stat. Prob. 1, 547 (1961)).
 """
@@ -15,7 +17,7 @@ import math
 
 import numpy as np
 
-__all__ = ["entropy_from_weights", "renyi_from_weights"]
+__all__ = ["entanglement_energies", "entropy_from_weights", "renyi_from_weights"]
 
 
 def _positive(weights) -> np.ndarray:
@@ -75,3 +77,25 @@ def renyi_from_weights(weights, order: float) -> float:
     if math.isinf(order):
         return float(-np.log(w.max()))
     return float(np.log(np.sum(w**order)) / (1.0 - order))
+
+
+def entanglement_energies(schmidt_values) -> np.ndarray:
+    """Entanglement energies ``-2 ln s`` of Schmidt values (the levels ``-ln s**2`` of ``-ln rho``).
+
+    Parameters
+    ----------
+    schmidt_values : array_like
+        Schmidt values ``s >= 0`` (not squared), any order; zeros give a large finite level
+        (``-2 ln 1e-300``) so that the array keeps its shape.
+
+    Returns
+    -------
+    ndarray of float, same shape
+
+    Examples
+    --------
+    >>> entanglement_energies([1.0, math.exp(-1.0)])
+    array([-0.,  2.])
+    """
+    s = np.asarray(schmidt_values, dtype=float)
+    return -2.0 * np.log(np.maximum(s, 1e-300))

@@ -14,7 +14,7 @@ import numpy as np
 from netprobe.errors import NetprobeError, OperatorError
 from netprobe.model.sites import operator_charge_change, operator_parity
 from netprobe.tensor import BlockTensor, contract, diag_multiply, svd, trace
-from netprobe.tensor.entropy import entropy_from_weights, renyi_from_weights
+from netprobe.tensor.entropy import entanglement_energies, entropy_from_weights, renyi_from_weights
 from netprobe.model.terms import LocalProduct, Term, normal_form
 from netprobe.engines.mps.state import (
     BlockMPO, MPS, SiteBasis,
@@ -328,7 +328,7 @@ class SchmidtSpectrum:
 
     def levels(self) -> np.ndarray:
         """Entanglement energies ``-2 ln(values)``."""
-        return -2.0 * np.log(self.values[self.values > 0])
+        return entanglement_energies(self.values[self.values > 0])
 
     def __repr__(self) -> str:
         return f"SchmidtSpectrum(bond={self.bond}, n={len(self.values)}, entropy={self.entropy():.6g})"
