@@ -27,8 +27,7 @@ demo: $(STAMP)
 # subprocesses, where one process left the second core idle (timings in benchmarks/RESULTS.md).
 TEST_WORKERS ?= 2
 
-# the docs extra too: the tests that hold the documentation to the code need numpydoc and docutils
-test: $(DOCS_STAMP)
+test: $(STAMP)
 	OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1 NUMBA_NUM_THREADS=1 $(PY) -m pytest -q -n $(TEST_WORKERS)
 
 docs: $(DOCS_STAMP)
