@@ -6,6 +6,7 @@ import sys
 from pathlib import Path
 
 from netprobe.errors import NetprobeError
+from netprobe.cli import options
 from netprobe.cli.common import _bond_dimensions, _check_png, _emit, _load, _plots, _solve_settings
 from netprobe.engines.dmrg.ladder import CHECKPOINT_NAME
 from netprobe.engines import GroundState
@@ -60,7 +61,7 @@ def add_parser(sub) -> None:
     p.add_argument("--bond-dimension", default="32,64", metavar="D[,D...]",
                    help="DMRG ladder; every region is measured on every rung (default 32,64)")
     p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum DMRG sweeps per rung")
-    p.add_argument("--seed", type=int, default=0, metavar="S", help="DMRG seed (default 0)")
+    p.add_argument("--seed", type=options.seed, default=0, metavar="S", help="DMRG seed (default 0)")
     p.add_argument("--max-sites", type=int, default=15, metavar="N",
                    help="largest region (sites) of the size ladder and the Markov series (default 15)")
     p.add_argument("--placements", type=int, default=3, metavar="K", help="regions per size (default 3)")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import sys
 
 from netprobe.errors import NetprobeError
+from netprobe.cli import options
 from netprobe.cli.common import _bond_dimensions, _check_png, _emit, _load, _plots
 from netprobe.pipeline.edge import ZERO_MODE_RATIO, edge_ladder, edge_state
 from netprobe.model.spec import load_spec, parse_overrides
@@ -24,7 +25,7 @@ def add_parser(sub) -> None:
     p.add_argument("--bond-dimension", default="64", metavar="D[,D...]",
                    help="DMRG ladder, each rung warm-starts the next; the cut is read on the last (default 64)")
     p.add_argument("--sweeps", type=int, default=None, metavar="N", help="maximum DMRG sweeps per rung")
-    p.add_argument("--seed", type=int, default=0, metavar="S", help="DMRG seed (default 0)")
+    p.add_argument("--seed", type=options.seed, default=0, metavar="S", help="DMRG seed (default 0)")
     p.add_argument("--cut", type=int, default=None, metavar="COLUMN",
                    help="columns in the left part (default: half the length, the central cut)")
     p.add_argument("--circumferences", default=None, metavar="L1,L2,...",
