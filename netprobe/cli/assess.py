@@ -7,7 +7,7 @@ from pathlib import Path
 
 from netprobe.errors import NetprobeError
 from netprobe.cli import options
-from netprobe.cli.common import _bond_dimensions, _check_png, _emit, _load, _plots, _solve_settings
+from netprobe.cli.common import _bond_dimensions, _check_png, _circumferences, _emit, _load, _plots, _solve_settings
 from netprobe.engines.dmrg.ladder import CHECKPOINT_NAME
 from netprobe.engines import GroundState
 from netprobe.engines.mps.store import load_state
@@ -93,7 +93,7 @@ def cmd_assess(args) -> int:
     if args.plot:
         _check_png(args.plot)
     files = _state_sources(args.spec)
-    circumferences = _circumferences(args) if getattr(args, "circumferences", None) else None
+    circumferences = _circumferences(args.circumferences) if getattr(args, "circumferences", None) else None
     if circumferences and files:
         raise NetprobeError("--circumferences needs a model source (each circumference runs the engine); state "
                             "files hold one circumference")
@@ -116,18 +116,6 @@ def cmd_assess(args) -> int:
         lines.append(f"plot written to {args.plot}")
     _emit(args, payload, lines)
     return 0
-
-
-def _circumferences(args) -> list[int]:
-    text = args.circumferences
-    try:
-        values = sorted({int(v) for v in text.split(",") if v.strip()})
-    except ValueError:
-        raise NetprobeError(f"--circumferences {text}: give integers separated by commas, e.g. 7,9,11,13") from None
-    if len(values) < 3 or values[0] < 2:
-        raise NetprobeError(f"--circumferences {text}: give at least three different circumferences of 2 or more, "
-                            "e.g. 7,9,11,13")
-    return values
 
 
 def _polarization(args, circumferences) -> dict:

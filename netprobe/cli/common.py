@@ -53,6 +53,18 @@ def _bond_dimensions(text: str) -> tuple[int, ...]:
     return values
 
 
+def _circumferences(text: str) -> list[int]:
+    """The ``--circumferences`` ladder: at least three different integers >= 2, ascending."""
+    try:
+        values = sorted({int(v) for v in text.split(",") if v.strip()})
+    except ValueError:
+        raise NetprobeError(f"--circumferences {text}: give integers separated by commas, e.g. 7,9,11,13") from None
+    if len(values) < 3 or values[0] < 2:
+        raise NetprobeError(f"--circumferences {text}: give at least three different circumferences of 2 or more, "
+                            "e.g. 7,9,11,13")
+    return values
+
+
 def _solve_settings(args, overrides):
     return SolveSettings(bond_dimensions=_bond_dimensions(args.bond_dimension),
                          sweeps=SweepSettings(sweep_limit=args.sweeps) if args.sweeps else None,

@@ -6,7 +6,7 @@ import sys
 
 from netprobe.errors import NetprobeError
 from netprobe.cli import options
-from netprobe.cli.common import _bond_dimensions, _check_png, _emit, _load, _plots
+from netprobe.cli.common import _bond_dimensions, _check_png, _circumferences, _emit, _load, _plots
 from netprobe.pipeline.edge import ZERO_MODE_RATIO, edge_ladder, edge_state
 from netprobe.model.spec import load_spec, parse_overrides
 
@@ -44,17 +44,6 @@ def add_parser(sub) -> None:
     p.set_defaults(func=cmd_edge)
 
 
-def _circumference_list(text: str) -> list[int]:
-    try:
-        values = [int(v) for v in text.split(",") if v.strip()]
-    except ValueError:
-        raise NetprobeError(f"--circumferences {text}: give integers separated by commas, e.g. 7,9,11,13") from None
-    if len(set(values)) < 3 or min(values) < 2:
-        raise NetprobeError(f"--circumferences {text}: give at least three different circumferences of 2 or more, "
-                            "e.g. 7,9,11,13")
-    return sorted(set(values))
-
-
 def cmd_edge(args) -> int:
     """Cut diagnostics: charge- and momentum-resolved Schmidt spectrum, counting, momentum polarization."""
     chis = _bond_dimensions(args.bond_dimension)
@@ -76,7 +65,7 @@ def cmd_edge(args) -> int:
         if "circumference" in overrides:
             raise NetprobeError("--set circumference=... and --circumferences both given; use one of them")
         spec = load_spec(args.spec)
-        result = edge_ladder(spec, overrides, _circumference_list(args.circumferences), progress=sys.stderr,
+        result = edge_ladder(spec, overrides, _circumferences(args.circumferences), progress=sys.stderr,
                              **common)
     else:
         result = edge_state(_load(args), progress=sys.stderr if args.engine == "dmrg" else None, **common)
