@@ -112,6 +112,10 @@ class ColumnCut:
     permutation: np.ndarray = field(repr=False)
     twist: float = 0.0
 
+    def charge_phase(self, q):
+        """The gauge phase ``exp(i q twist / L_y)`` that the translation carries on charge ``q``."""
+        return np.exp(1j * np.asarray(q, float) * self.twist / self.circumference)
+
     def site_phases(self, space) -> np.ndarray | None:
         """``exp(i q_s twist / L_y)`` for each local basis state s of ``space``; None without a twist.
 
@@ -120,8 +124,7 @@ class ColumnCut:
         """
         if not self.twist or getattr(space, "flux_charge", None) is None:
             return None
-        q = np.asarray(space.charges[space.flux_charge], float) * float(space.flux_charge_scale)
-        return np.exp(1j * q * self.twist / self.circumference)
+        return self.charge_phase(np.asarray(space.charges[space.flux_charge], float) * float(space.flux_charge_scale))
 
 
 def translation_permutation(lattice) -> np.ndarray:
@@ -336,8 +339,7 @@ def _block_gauge(cut: ColumnCut, space, names, charge) -> complex:
     flux = getattr(space, "flux_charge", None)
     if not cut.twist or flux is None or flux not in names:
         return 1.0
-    q = float(charge[list(names).index(flux)]) * float(space.flux_charge_scale)
-    return complex(np.exp(1j * q * cut.twist / cut.circumference))
+    return complex(cut.charge_phase(float(charge[list(names).index(flux)]) * float(space.flux_charge_scale)))
 
 
 # --------------------------------------------------------------------------------------------------
@@ -541,7 +543,7 @@ def translation_unitary(state, cut: ColumnCut) -> np.ndarray:
     """
     n_modes = cut.bond * state.modes_per_site
     unitary = np.zeros((n_modes, n_modes), dtype=complex)
-    phase = np.exp(1j * cut.twist / cut.circumference) if cut.twist else 1.0
+    phase = complex(cut.charge_phase(1.0)) if cut.twist else 1.0
     unitary[_mode_permutation(cut, state.modes_per_site), np.arange(n_modes)] = phase
     return unitary
 
