@@ -33,6 +33,7 @@ state's ``repr``.
 
 from __future__ import annotations
 
+import functools
 import itertools
 import math
 import operator
@@ -53,6 +54,7 @@ from netprobe.engines.gaussian.momentum import (
     translation_blocks,
 )
 from netprobe.engines.gaussian.quadratic import GaussianOptions, GaussianStateError, QuadraticForm, quadratic_form
+from netprobe.engines.gaussian.tridiagonal import function_columns, function_rows
 
 __all__ = [
     "GaussianOptions",
@@ -127,29 +129,26 @@ def majorana_modular_matrix(gamma: np.ndarray, clip: float) -> np.ndarray:
     return ((vecs * _majorana_log_weights(vals, clip)) @ vecs.conj().T).real
 
 
-def _function_slice(vecs, weights, rows=None, cols=None):
-    """Rows or columns of ``V diag(w) V^dag`` without forming the rest."""
-    if cols is not None:
-        return (vecs * weights) @ vecs[cols].conj().T
-    return (vecs[rows] * weights) @ vecs.conj().T
-
-
-def fermion_modular_commutator(g: np.ndarray, sizes: tuple[int, int, int], clip: float) -> float:
+def fermion_modular_commutator(g: np.ndarray, sizes: tuple[int, int, int], clip: float,
+                               *, method: str = "tridiagonal") -> float:
     """``J = i Tr(G [h_AB + 0_C, 0_A + h_BC])`` for G ordered A|B|C with the given block sizes.
 
     With ``x = Tr(G h_AB h_BC)``, Hermiticity gives ``J = -2 Im x``; only the B columns of h_AB and
     the B rows of h_BC meet, so x needs those slices and one product of off-diagonal blocks.
+    ``method`` picks how the slices are formed (:mod:`netprobe.engines.gaussian.tridiagonal`):
+    ``tridiagonal`` (default) or ``eigh`` (full eigendecompositions, the reference); the two agree
+    to rounding.
     """
     na, nb, nc = sizes
-    vals, vecs = _eigh(g[: na + nb, : na + nb])
-    h_ab_b = _function_slice(vecs, _fermion_log_weights(vals, clip), cols=slice(na, na + nb))
-    vals, vecs = _eigh(g[na:, na:])
-    h_bc_b = _function_slice(vecs, _fermion_log_weights(vals, clip), rows=slice(0, nb))
+    weights = functools.partial(_fermion_log_weights, clip=clip)
+    h_ab_b = function_columns(g[: na + nb, : na + nb], weights, slice(na, na + nb), method=method)
+    h_bc_b = function_rows(g[na:, na:], weights, slice(0, nb), method=method)
     x = np.sum((g[na:, : na + nb] @ h_ab_b) * h_bc_b.T)
     return float(-2.0 * np.imag(x))
 
 
-def majorana_modular_commutator(gamma: np.ndarray, sizes: tuple[int, int, int], clip: float) -> float:
+def majorana_modular_commutator(gamma: np.ndarray, sizes: tuple[int, int, int], clip: float,
+                                *, method: str = "tridiagonal") -> float:
     """``J = (1/4) Tr(Gamma [W_AB + 0, 0 + W_BC])`` for Gamma ordered A|B|C (sizes in Majoranas).
 
     Notes
@@ -157,12 +156,12 @@ def majorana_modular_commutator(gamma: np.ndarray, sizes: tuple[int, int, int], 
     For ``Q_A = (i/4) g^T A g``, ``[Q_A, Q_B] = i Q_[A,B]`` and ``<Q_C> = -(1/4) Tr(C Gamma)``, so
     ``i <[K_AB, K_BC]> = (1/4) Tr(Gamma [W_AB, W_BC])`` with ``K_X = Q_(W^X)``. Real antisymmetry
     makes the two orders of the commutator equal and opposite: ``J = (1/2) Tr(Gamma W_AB W_BC)``.
+    ``method`` as in :func:`fermion_modular_commutator`.
     """
     na, nb, nc = sizes
-    vals, vecs = _eigh(1j * gamma[: na + nb, : na + nb])
-    w_ab_b = _function_slice(vecs, _majorana_log_weights(vals, clip), cols=slice(na, na + nb)).real
-    vals, vecs = _eigh(1j * gamma[na:, na:])
-    w_bc_b = _function_slice(vecs, _majorana_log_weights(vals, clip), rows=slice(0, nb)).real
+    weights = functools.partial(_majorana_log_weights, clip=clip)
+    w_ab_b = function_columns(1j * gamma[: na + nb, : na + nb], weights, slice(na, na + nb), method=method).real
+    w_bc_b = function_rows(1j * gamma[na:, na:], weights, slice(0, nb), method=method).real
     return float(0.5 * np.sum((gamma[na:, : na + nb] @ w_ab_b) * w_bc_b.T))
 
 
