@@ -98,6 +98,9 @@ def test_modular_commutator_routes_agree_on_a_haldane_disk():
     reference = fermion_modular_commutator(g, sizes, CLIP, method="eigh")
     assert abs(fast - reference) < CLIPPED_LOG_J
     assert abs(fast) > 0.5  # a chiral state: J near -pi/3 (the sign convention of states.py)
+    # two Python threads run the same arithmetic on each side (one BLAS thread each): rounding at most
+    assert abs(fermion_modular_commutator(g, sizes, CLIP, threads=2) - fast) < tol(LOG_SCALE)
+    assert abs(state.modular_commutator(a, b, c, threads=2) - fast) < tol(LOG_SCALE)
     majorana = MajoranaState.from_free_fermion(state)
     m = np.concatenate([majorana._units(a), majorana._units(b), majorana._units(c)])
     gamma = np.array(majorana._block(m, m))

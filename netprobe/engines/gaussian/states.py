@@ -54,7 +54,7 @@ from netprobe.engines.gaussian.momentum import (
     translation_blocks,
 )
 from netprobe.engines.gaussian.quadratic import GaussianOptions, GaussianStateError, QuadraticForm, quadratic_form
-from netprobe.engines.gaussian.tridiagonal import function_columns, function_rows
+from netprobe.engines.gaussian.tridiagonal import function_columns, function_rows, run_pair
 
 __all__ = [
     "GaussianOptions",
@@ -130,25 +130,30 @@ def majorana_modular_matrix(gamma: np.ndarray, clip: float) -> np.ndarray:
 
 
 def fermion_modular_commutator(g: np.ndarray, sizes: tuple[int, int, int], clip: float,
-                               *, method: str = "tridiagonal") -> float:
+                               *, method: str = "tridiagonal", threads: int = 1) -> float:
     """``J = i Tr(G [h_AB + 0_C, 0_A + h_BC])`` for G ordered A|B|C with the given block sizes.
 
     With ``x = Tr(G h_AB h_BC)``, Hermiticity gives ``J = -2 Im x``; only the B columns of h_AB and
     the B rows of h_BC meet, so x needs those slices and one product of off-diagonal blocks.
     ``method`` picks how the slices are formed (:mod:`netprobe.engines.gaussian.tridiagonal`):
     ``tridiagonal`` (default) or ``eigh`` (full eigendecompositions, the reference); the two agree
-    to rounding.
+    to rounding. ``threads=2`` forms the two slices in two Python threads
+    (:func:`netprobe.engines.gaussian.tridiagonal.run_pair`); the result is the same.
     """
     na, nb, nc = sizes
     weights = functools.partial(_fermion_log_weights, clip=clip)
-    h_ab_b = function_columns(g[: na + nb, : na + nb], weights, slice(na, na + nb), method=method)
-    h_bc_b = function_rows(g[na:, na:], weights, slice(0, nb), method=method)
-    x = np.sum((g[na:, : na + nb] @ h_ab_b) * h_bc_b.T)
+    # the product with G's off-diagonal block goes with the first slice: with two threads it overlaps the
+    # second slice's reduction
+    g_h_ab_b, h_bc_b = run_pair(
+        lambda: g[na:, : na + nb] @ function_columns(g[: na + nb, : na + nb], weights, slice(na, na + nb),
+                                                     method=method),
+        lambda: function_rows(g[na:, na:], weights, slice(0, nb), method=method), threads)
+    x = np.sum(g_h_ab_b * h_bc_b.T)
     return float(-2.0 * np.imag(x))
 
 
 def majorana_modular_commutator(gamma: np.ndarray, sizes: tuple[int, int, int], clip: float,
-                                *, method: str = "tridiagonal") -> float:
+                                *, method: str = "tridiagonal", threads: int = 1) -> float:
     """``J = (1/4) Tr(Gamma [W_AB + 0, 0 + W_BC])`` for Gamma ordered A|B|C (sizes in Majoranas).
 
     Notes
@@ -156,13 +161,15 @@ def majorana_modular_commutator(gamma: np.ndarray, sizes: tuple[int, int, int], 
     For ``Q_A = (i/4) g^T A g``, ``[Q_A, Q_B] = i Q_[A,B]`` and ``<Q_C> = -(1/4) Tr(C Gamma)``, so
     ``i <[K_AB, K_BC]> = (1/4) Tr(Gamma [W_AB, W_BC])`` with ``K_X = Q_(W^X)``. Real antisymmetry
     makes the two orders of the commutator equal and opposite: ``J = (1/2) Tr(Gamma W_AB W_BC)``.
-    ``method`` as in :func:`fermion_modular_commutator`.
+    ``method`` and ``threads`` as in :func:`fermion_modular_commutator`.
     """
     na, nb, nc = sizes
     weights = functools.partial(_majorana_log_weights, clip=clip)
-    w_ab_b = function_columns(1j * gamma[: na + nb, : na + nb], weights, slice(na, na + nb), method=method).real
-    w_bc_b = function_rows(1j * gamma[na:, na:], weights, slice(0, nb), method=method).real
-    return float(0.5 * np.sum((gamma[na:, : na + nb] @ w_ab_b) * w_bc_b.T))
+    gamma_w_ab_b, w_bc_b = run_pair(
+        lambda: gamma[na:, : na + nb] @ function_columns(1j * gamma[: na + nb, : na + nb], weights,
+                                                         slice(na, na + nb), method=method).real,
+        lambda: function_rows(1j * gamma[na:, na:], weights, slice(0, nb), method=method).real, threads)
+    return float(0.5 * np.sum(gamma_w_ab_b * w_bc_b.T))
 
 
 def _chern_from_blocks(p_ab: np.ndarray, p_bc: np.ndarray, p_ca: np.ndarray) -> float:
@@ -293,20 +300,24 @@ class _Probes:
     def _commutator(self, ua, ub, uc) -> float:
         raise NotImplementedError
 
-    def modular_commutator(self, a: Iterable[int], b: Iterable[int], c: Iterable[int]) -> float:
+    def modular_commutator(self, a: Iterable[int], b: Iterable[int], c: Iterable[int], *,
+                           threads: int = 1) -> float:
         """Modular commutator ``J(A, B, C) = i Tr(rho_ABC [K_AB, K_BC])``, ``K_X = -ln rho_X``.
 
         Defined in Phys. Rev. Lett. 128, 176402 (2022).
 
         For A, B, C counterclockwise around a bulk point, ``J = (pi/3) c_-``. The modular matrices use
-        eigenvalues clipped to [clip, 1 - clip] (see ``clip``).
+        eigenvalues clipped to [clip, 1 - clip] (see ``clip``). ``threads=2`` forms the two modular
+        matrices in two Python threads (worth it with two free cores and one BLAS thread each); the
+        value does not depend on it.
         """
         ra, rb, rc = self._regions([("A", a), ("B", b), ("C", c)])
         for arr, what in ((np.concatenate([ra, rb]), "AB"), (np.concatenate([rb, rc]), "BC")):
             self._check_contiguous(arr, what)
         if ra.size == 0 or rb.size == 0 or rc.size == 0:
             return 0.0  # J vanishes when one part is empty (rho_ABC factorises)
-        return self._commutator(self._units(np.sort(ra)), self._units(np.sort(rb)), self._units(np.sort(rc)))
+        return self._commutator(self._units(np.sort(ra)), self._units(np.sort(rb)), self._units(np.sort(rc)),
+                                threads)
 
 
 def _label(form: QuadraticForm) -> str:
@@ -550,9 +561,10 @@ class FreeFermionState(_Probes):
     def _spectrum_entropy(self, units, order) -> float:
         return peschel_entropy(np.linalg.eigvalsh(self._block(units, units)), order)
 
-    def _commutator(self, ua, ub, uc) -> float:
+    def _commutator(self, ua, ub, uc, threads: int = 1) -> float:
         u = np.concatenate([ua, ub, uc])
-        return fermion_modular_commutator(self._block(u, u), (ua.size, ub.size, uc.size), self.clip)
+        return fermion_modular_commutator(self._block(u, u), (ua.size, ub.size, uc.size), self.clip,
+                                          threads=threads)
 
     def chern_number(self, a: Iterable[int], b: Iterable[int], c: Iterable[int]) -> float:
         """Real-space Chern number of three sectors A, B, C (counterclockwise) meeting at a point.
@@ -700,9 +712,10 @@ class MajoranaState(_Probes):
     def _spectrum_entropy(self, units, order) -> float:
         return majorana_entropy(np.linalg.eigvalsh(1j * self._block(units, units)), order)
 
-    def _commutator(self, ua, ub, uc) -> float:
+    def _commutator(self, ua, ub, uc, threads: int = 1) -> float:
         u = np.concatenate([ua, ub, uc])
-        return majorana_modular_commutator(self._block(u, u), (ua.size, ub.size, uc.size), self.clip)
+        return majorana_modular_commutator(self._block(u, u), (ua.size, ub.size, uc.size), self.clip,
+                                           threads=threads)
 
     def __repr__(self) -> str:
         label = f"'{self.name}', " if self.name else ""

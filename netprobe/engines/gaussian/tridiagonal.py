@@ -21,13 +21,14 @@ clipped in the same way on both routes, so a slice of f(M) is reproduced, not ap
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from typing import Callable
 
 import numpy as np
 import scipy.linalg
 import scipy.linalg.lapack as lapack
 
-__all__ = ["function_columns", "function_rows", "MODULAR_METHODS"]
+__all__ = ["function_columns", "function_rows", "run_pair", "MODULAR_METHODS"]
 
 MODULAR_METHODS = ("tridiagonal", "eigh")
 
@@ -99,3 +100,21 @@ def function_rows(mat: np.ndarray, weights: Callable[[np.ndarray], np.ndarray], 
                   *, method: str = "tridiagonal") -> np.ndarray:
     """Rows ``rows`` of ``f(M)``: ``f(M)[rows, :] = (conj f)(M)[:, rows]^dag`` (M Hermitian)."""
     return function_columns(mat, lambda v: np.conj(weights(v)), rows, method=method).conj().T
+
+
+def run_pair(first: Callable[[], object], second: Callable[[], object], threads: int = 1) -> tuple:
+    """``(first(), second())``, the second in a worker thread when ``threads`` is 2.
+
+    The two modular matrices of J are independent. The matrix products and ``ungqr`` release the
+    Python interpreter lock but scipy's ``hetrd`` wrapper holds it, so two threads overlap one side's
+    reduction with the other side's products rather than running fully in parallel. Meant for one
+    BLAS thread per Python thread (``threadpoolctl``) with two cores free; ``threads=1`` runs both
+    in the calling thread.
+    """
+    if threads not in (1, 2):
+        raise ValueError(f"threads must be 1 or 2, got {threads!r}")
+    if threads == 1:
+        return first(), second()
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        later = pool.submit(second)
+        return first(), later.result()
