@@ -234,7 +234,12 @@ class QuadraticForm:
 
 
 class _Collector:
-    """Sums of the physical monomials found while expanding the products."""
+    """Sums of the physical monomials found while expanding the products.
+
+    Monomials come one at a time (:meth:`add`) or as arrays for many products at once
+    (:meth:`add_bilinears`); each carries the index of its product, and :meth:`finish` puts them
+    back in product order, so that the sums are formed in the same order either way.
+    """
 
     def __init__(self):
         self.constant = 0.0 + 0.0j
@@ -243,42 +248,106 @@ class _Collector:
         self.cc = ([], [], [])  # c_p c_q, p < q
         self.other: dict[tuple, list] = {}
         self.scale = 0.0
+        self._parts = {"constant": [], "hop": [], "cdcd": [], "cc": []}  # (product indices, p, q, values)
+        self._pending = []  # (product index, coef, odd, fmodes, origin) of monomials that are not quadratic
 
-    @staticmethod
-    def _push(target, p, q, value):
-        target[0].append(p)
-        target[1].append(q)
-        target[2].append(value)
+    def _push(self, target, key, p, q, value):
+        self._parts[target].append((np.array([key]), np.array([p]), np.array([q]), np.array([value])))
 
-    def add(self, coef: complex, odd, fmodes, origin: str):
+    def add(self, coef: complex, odd, fmodes, origin: str, key: int = 0):
+        """Record one monomial of product ``key``: ``coef`` times the odd letters ``odd`` ((mode, letter),
+        sorted) and F on the sorted modes ``fmodes``."""
         self.scale = max(self.scale, abs(coef))
         if not odd:
             if len(fmodes) == 0:
-                self.constant += coef
+                self._push("constant", key, 0, 0, coef)
                 return
             if len(fmodes) == 1:  # F_l = 1 - 2 n_l
-                self.constant += coef
-                self._push(self.hop, int(fmodes[0]), int(fmodes[0]), -2 * coef)
+                self._push("constant", key, 0, 0, coef)
+                self._push("hop", key, int(fmodes[0]), int(fmodes[0]), -2 * coef)
                 return
         elif len(odd) == 2:
             (p, lp), (q, lq) = odd
             inner = q - p - 1
             if len(fmodes) == inner and (inner == 0 or (fmodes[0] == p + 1 and fmodes[-1] == q - 1)):
                 if lp == _A and lq == _A:
-                    self._push(self.cc, p, q, -coef)
+                    self._push("cc", key, p, q, -coef)
                 elif lp == _D and lq == _A:
-                    self._push(self.hop, p, q, coef)
+                    self._push("hop", key, p, q, coef)
                 elif lp == _A and lq == _D:
-                    self._push(self.hop, q, p, coef)
+                    self._push("hop", key, q, p, coef)
                 else:
-                    self._push(self.cdcd, p, q, coef)
+                    self._push("cdcd", key, p, q, coef)
                 return
+        self._pending.append((key, coef, odd, fmodes, origin))
+
+    def _other(self, coef, odd, fmodes, origin):
         key = (tuple(odd), tuple(int(m) for m in fmodes))
         entry = self.other.get(key)
         if entry is None:
             self.other[key] = [coef, origin]
         else:
             entry[0] += coef
+
+    def add_bilinears(self, keys, coefs, fmodes, odd, letters, products):
+        """:meth:`add` for many products of one layout: ``odd`` (m, 2) modes with ``letters`` (2,),
+        ``fmodes`` (m, nf) sorted, or ``odd`` (m, 0) for products of F letters only."""
+        if keys.size == 0:
+            return
+        self.scale = max(self.scale, float(np.max(np.abs(coefs))))
+        nf = fmodes.shape[1]
+        if odd.shape[1] == 0:
+            if nf > 1:
+                bad = np.ones(keys.size, dtype=bool)
+            else:
+                bad = np.zeros(keys.size, dtype=bool)
+                self._parts["constant"].append((keys, keys * 0, keys * 0, coefs))
+                if nf == 1:
+                    self._parts["hop"].append((keys, fmodes[:, 0], fmodes[:, 0], -2 * coefs))
+        else:
+            swap = odd[:, 0] > odd[:, 1]
+            p = np.where(swap, odd[:, 1], odd[:, 0])
+            q = np.where(swap, odd[:, 0], odd[:, 1])
+            lp = np.where(swap, letters[1], letters[0])
+            lq = np.where(swap, letters[0], letters[1])
+            inner = q - p - 1
+            if nf == 0:
+                good = inner == 0
+            else:
+                good = (inner == nf) & (fmodes[:, 0] == p + 1) & (fmodes[:, -1] == q - 1)
+            bad = ~good
+            for target, pick, rows, cols, sign in (
+                    ("cc", (lp == _A) & (lq == _A), p, q, -1),
+                    ("hop", (lp == _D) & (lq == _A), p, q, 1),
+                    ("hop", (lp == _A) & (lq == _D), q, p, 1),
+                    ("cdcd", (lp == _D) & (lq == _D), p, q, 1)):
+                pick = pick & good
+                if pick.any():
+                    values = -coefs[pick] if sign < 0 else coefs[pick]
+                    self._parts[target].append((keys[pick], rows[pick], cols[pick], values))
+        for row in np.flatnonzero(bad):  # not quadratic: recorded one by one, as :meth:`add` does
+            pairs = sorted(zip(odd[row].tolist(), letters)) if odd.shape[1] else []
+            self._pending.append((int(keys[row]), complex(coefs[row]), pairs, fmodes[row],
+                                  products[int(keys[row])].origin))
+
+    def finish(self):
+        """Sort the monomials back into product order (stable) and form the sums' inputs."""
+        for name, parts in self._parts.items():
+            if not parts:
+                continue
+            keys, rows, cols, values = (np.concatenate(x) for x in zip(*parts))
+            order = np.argsort(keys, kind="stable")
+            if name == "constant":
+                total = self.constant
+                for value in values[order].tolist():  # one after the other, as the sum always ran
+                    total += value
+                self.constant = total
+            else:
+                setattr(self, name, (rows[order].tolist(), cols[order].tolist(), values[order].tolist()))
+        for _, coef, odd, fmodes, origin in sorted(self._pending, key=lambda entry: entry[0]):
+            self._other(coef, odd, fmodes, origin)
+        self._parts, self._pending = {}, []
+        return self
 
     def culprit(self, rtol: float) -> str | None:
         for coef, origin in self.other.values():
@@ -371,6 +440,12 @@ def _collect(products, mode_map: _ModeMap) -> _Collector:
         sites = np.array([products[i].sites for i in members], dtype=np.int64).reshape(len(members), -1)
         fmodes = np.sort(sites[:, lay.f_index] * k + lay.f_offset, axis=1)
         odd = sites[:, lay.odd_index] * k + lay.odd_offset
+        if not lay.varying and odd.shape[1] in (0, 2):  # the common case, for all members at once
+            coefs = np.array([complex(products[i].coefficient) for i in members], dtype=complex)
+            for c, count in lay.factors:
+                coefs = coefs * (c ** count)
+            col.add_bilinears(np.array(members, dtype=np.int64), coefs, fmodes, odd, lay.odd_letter, products)
+            continue
         for row, i in enumerate(members):
             expanded[i] = (fmodes[row], odd[row].tolist(), sites[row])
     for i, prod in enumerate(products):
@@ -384,7 +459,7 @@ def _collect(products, mode_map: _ModeMap) -> _Collector:
         odd = list(zip(odd_modes, lay.odd_letter))
         if not lay.varying:
             odd.sort()
-            col.add(coef, odd, fmodes, prod.origin)
+            col.add(coef, odd, fmodes, prod.origin, i)
             continue
         fparts = [fmodes] if fmodes.size else []
         for combo in itertools.product(*(dec for _, dec in lay.varying)):
@@ -401,8 +476,8 @@ def _collect(products, mode_map: _ModeMap) -> _Collector:
                         odd_all.append((base + offset, letter))
             fmodes_all = np.sort(np.concatenate(f_all)) if f_all else np.zeros(0, dtype=np.int64)
             odd_all.sort()
-            col.add(c_all, odd_all, fmodes_all, prod.origin)
-    return col
+            col.add(c_all, odd_all, fmodes_all, prod.origin, i)
+    return col.finish()
 
 
 def _dense(n: int, triples, dtype=complex) -> np.ndarray:
