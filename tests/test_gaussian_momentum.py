@@ -114,6 +114,19 @@ def test_pairing_model_by_momentum_matches_dense(mu):
     assert abs(fast.modular_commutator(a, b, c) - dense.modular_commutator(a, b, c)) < CLIPPED_LOG_J
 
 
+@pytest.mark.parametrize("name, params, radius", CYLINDERS[:3], ids=lambda v: str(v))
+def test_stored_hopping_entries_are_the_nonzeros_of_the_matrix(name, params, radius):
+    # the extraction hands the momentum route the entries it built h from; numpy's nonzero is the reference
+    form = quadratic_form(load_model(name, params).hamiltonian)
+    rows, cols, values = form.stored_hopping()
+    expected_rows, expected_cols = np.nonzero(form.hopping)
+    np.testing.assert_array_equal(rows, expected_rows)
+    np.testing.assert_array_equal(cols, expected_cols)
+    np.testing.assert_array_equal(values, form.hopping[expected_rows, expected_cols])
+    stale = dataclasses.replace(form, hopping=np.eye(form.num_modes))  # entries of the old matrix are ignored
+    np.testing.assert_array_equal(stale.stored_hopping()[0], np.arange(form.num_modes))
+
+
 def test_broken_translation_falls_back_to_the_dense_route():
     model = load_model("haldane", {"length": "3", "circumference": "4", "twist": "0.5"})
     form = quadratic_form(model.hamiltonian, model=model)

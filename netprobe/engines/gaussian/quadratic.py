@@ -182,6 +182,11 @@ class QuadraticForm:
         True for spin and boson sites: their reduced density matrices equal the fermionic ones only
         for sets contiguous in MPS order.
     name : str
+    hopping_entries : (matrix, rows, cols, values) or None
+        The nonzero entries of ``matrix`` in ``np.nonzero`` order, where the extraction has them (it
+        builds h from them), so that the momentum route need not scan the dense matrix; read through
+        :meth:`stored_hopping`, which ignores them unless ``matrix is hopping`` (a form copied with
+        another hopping matrix by ``dataclasses.replace`` keeps stale ones).
     """
 
     hopping: np.ndarray = field(repr=False)
@@ -193,6 +198,14 @@ class QuadraticForm:
     site_rotation: np.ndarray = field(repr=False)
     spin_like: bool = False
     name: str = ""
+    hopping_entries: tuple | None = field(default=None, repr=False)
+
+    def stored_hopping(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``(rows, cols, values)`` of the nonzero entries of ``hopping``, in ``np.nonzero`` order."""
+        if self.hopping_entries is not None and self.hopping_entries[0] is self.hopping:
+            return self.hopping_entries[1:]
+        rows, cols = np.nonzero(self.hopping)
+        return rows, cols, self.hopping[rows, cols]
 
     @property
     def num_modes(self) -> int:
@@ -487,15 +500,17 @@ def _dense(n: int, triples, dtype=complex) -> np.ndarray:
     return out
 
 
-def _hermitian_part(n: int, triples, atol: float) -> tuple[bool, np.ndarray]:
-    """``(max |h - h^dag| <= atol, (h + h^dag) / 2)`` for h summed from (row, column, value) triples.
+def _hermitian_part(n: int, triples, atol: float) -> tuple[bool, np.ndarray, tuple]:
+    """``(max |h - h^dag| <= atol, (h + h^dag) / 2, its nonzero entries)`` for h summed from triples.
 
     Works on the stored entries only (the matrix is sparse): the same sums in the same order as
     the dense ``np.add.at`` and the same entry-wise arithmetic, so the result is identical to the
     dense computation; the dense matrix is written once at the end (real if no entry is complex).
+    The entries are (rows, cols, values) in ``np.nonzero`` order.
     """
     if not triples[0]:
-        return True, np.zeros((n, n))
+        empty = np.zeros(0, dtype=np.int64)
+        return True, np.zeros((n, n)), (empty, empty, np.zeros(0))
     rows, cols = np.array(triples[0], dtype=np.int64), np.array(triples[1], dtype=np.int64)
     keys, inverse = np.unique(rows * n + cols, return_inverse=True)
     values = np.zeros(keys.size, dtype=complex)
@@ -513,8 +528,11 @@ def _hermitian_part(n: int, triples, atol: float) -> tuple[bool, np.ndarray]:
     sym = 0.5 * (v + vt.conj())
     real = not np.any(sym.imag)
     out = np.zeros((n, n), dtype=float if real else complex)
-    out.ravel()[both] = sym.real if real else sym
-    return hermitian, out
+    values = sym.real if real else sym
+    out.ravel()[both] = values
+    stored = values != 0
+    at = both[stored]
+    return hermitian, out, (at // n, at % n, values[stored])
 
 
 def _maybe_real(mat: np.ndarray) -> np.ndarray:
@@ -584,7 +602,7 @@ def quadratic_form(hamiltonian, *, name: str = "", options: GaussianOptions | No
             continue
         n = hamiltonian.num_sites * mode_map.modes_per_site
         scale = max(col.scale, 1.0)
-        hermitian, h = _hermitian_part(n, col.hop, 1e-10 * scale)
+        hermitian, h, entries = _hermitian_part(n, col.hop, 1e-10 * scale)
         if col.cdcd[0] or col.cc[0]:
             cdcd = _dense(n, col.cdcd)
             cc = _dense(n, col.cc)
@@ -600,7 +618,7 @@ def quadratic_form(hamiltonian, *, name: str = "", options: GaussianOptions | No
             arr.setflags(write=False)
         return QuadraticForm(h, pairing, float(col.constant.real), hamiltonian.num_sites,
                              mode_map.modes_per_site, mode_map.label, mode_map.to_qubits,
-                             mode_map.spin_like, name)
+                             mode_map.spin_like, name, (h, *entries))
     if len(failures) == 1:
         origin = failures[0][1]
         extra = "" if not failures[0][0].spin_like else " after Jordan-Wigner in MPS order"

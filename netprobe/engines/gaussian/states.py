@@ -361,15 +361,21 @@ _TRANSLATION_RTOL = 1e-10  # entries of M - T M T^-1 below this fraction of max|
 
 
 def _translation_plan(matrix: np.ndarray, lattice, units_per_site: int, options: GaussianOptions,
-                      label: str):
-    """``(layout, blocks)`` for the momentum route, or None for the dense one (see ``options.route``)."""
+                      label: str, entries=None):
+    """``(layout, blocks)`` for the momentum route, or None for the dense one (see ``options.route``).
+
+    ``entries``: a callable giving the nonzero entries of ``matrix`` in ``np.nonzero`` order, if at hand.
+    """
     if options.route == "dense":
         return None
     layout = cylinder_layout(lattice, units_per_site) if lattice is not None else None
     blocks = None
     if layout is not None:
-        rows, cols = np.nonzero(matrix)  # hopping matrices are sparse: read them once, entry by entry
-        values = matrix[rows, cols]
+        if entries is None:
+            rows, cols = np.nonzero(matrix)  # hopping matrices are sparse: read them once, entry by entry
+            values = matrix[rows, cols]
+        else:
+            rows, cols, values = entries()
         scale = max(float(np.max(np.abs(values), initial=0.0)), 1.0)
         blocks = translation_blocks(matrix, layout, _TRANSLATION_RTOL * scale, entries=(rows, cols, values))
     if blocks is not None:
@@ -507,7 +513,8 @@ class FreeFermionState(_Probes):
         n = form.num_modes
         if blocks is None:
             blocks = [(np.arange(n), None)]
-        plan = _translation_plan(form.hopping, lattice, form.modes_per_site, options, label)
+        plan = _translation_plan(form.hopping, lattice, form.modes_per_site, options, label,
+                                 form.stored_hopping)
         if plan is not None and any(plan[0].orbitals_of(modes) is None for modes, _ in blocks):
             if options.route == "momentum":
                 raise GaussianStateError(
