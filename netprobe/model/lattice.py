@@ -27,7 +27,6 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, field
-from types import MappingProxyType
 
 import numpy as np
 
@@ -296,7 +295,14 @@ class Lattice:
         self.sublattice = np.array(sub, dtype=np.int64)
         for arr in (self.positions, self.cells, self.sublattice):
             arr.setflags(write=False)
-        self._families = self._instantiate(templates)
+        # families are placed on first use (a model reads one or two of a lattice's dozen)
+        self._templates = tuple(templates)
+        names = ["sites", *dict.fromkeys(t.family for t in self._templates)]
+        if self.name == "honeycomb":
+            names += ["dangling_left", "dangling_right"]
+        self._family_names = tuple(names)
+        self._families: dict[str, tuple[Bond, ...]] = {}
+        self._placed_at: dict[tuple[int, int, int], np.ndarray] = {}
 
     @property
     def num_sites(self) -> int:
@@ -311,7 +317,7 @@ class Lattice:
     @property
     def families(self) -> tuple[str, ...]:
         """Names of the bond families this lattice has (always including ``sites``)."""
-        return tuple(self._families)
+        return self._family_names
 
     def family(self, name: str) -> tuple[Bond, ...]:
         """The bonds of a family.
@@ -321,12 +327,13 @@ class Lattice:
         LatticeError
             If the lattice has no such family; the message lists the valid ones.
         """
-        try:
-            return self._families[name]
-        except KeyError:
-            raise LatticeError(
-                f"lattice '{self.name}' has no bond family '{name}'; valid families: {', '.join(self.families)}"
-            ) from None
+        bonds = self._families.get(name)
+        if bonds is None:
+            if name not in self._family_names:
+                raise LatticeError(
+                    f"lattice '{self.name}' has no bond family '{name}'; valid families: {', '.join(self.families)}")
+            bonds = self._families[name] = self._instantiate(name)
+        return bonds
 
     def _wrap_member(self, ix, iy):
         """Map a cell to the finite lattice; returns (ix, iy, winding) or None if it falls off."""
@@ -341,23 +348,32 @@ class Lattice:
             return ix, iy, 0
         return ix, iy % W, iy // W
 
-    def _instantiate(self, templates):
-        families: dict[str, list[Bond]] = {"sites": []}
-        placed_at: dict[tuple[int, int, int], np.ndarray] = {}
+    def _position(self, ix, iy, s):
+        """Position of a bond member (each recurs in several bonds and families: computed once)."""
+        key = (ix, iy, s)
+        pos = self._placed_at.get(key)
+        if pos is None:
+            pos = self._placed_at[key] = self._cell.position(ix, iy, s)
+        return pos
 
-        def position(ix, iy, s):  # each member position recurs in several bonds: computed once
-            key = (ix, iy, s)
-            pos = placed_at.get(key)
-            if pos is None:
-                pos = placed_at[key] = self._cell.position(ix, iy, s)
-            return pos
-
-        for k in range(self.num_sites):
-            ix, iy = self.cells[k]
-            families["sites"].append(
-                Bond((k,), self._cell.position(ix, iy, self.sublattice[k])[None, :], "", (0,), 1))
-        for t in templates:
-            bonds = families.setdefault(t.family, [])
+    def _instantiate(self, name: str) -> tuple[Bond, ...]:
+        """The bonds of one family, in the order of its templates and of the cells."""
+        if name == "sites":
+            return tuple(Bond((k,), self._cell.position(ix, iy, self.sublattice[k])[None, :], "", (0,), 1)
+                         for k, (ix, iy) in enumerate(self.cells))
+        if name in ("dangling_left", "dangling_right"):  # honeycomb: outer ends of the links at a zigzag end
+            count = np.zeros(self.num_sites, np.int64)
+            for bond in self.family("nn"):
+                count[list(bond.sites)] += 1
+            dangling = [b for b in self.family("sites") if count[b.sites[0]] == 1]
+            middle = 0.5 * (self.positions[:, 0].min() + self.positions[:, 0].max())
+            left = name == "dangling_left"
+            return tuple(b for b in dangling if (self.positions[b.sites[0], 0] < middle) == left)
+        position = self._position
+        bonds: list[Bond] = []
+        for t in self._templates:
+            if t.family != name:
+                continue
             seen = set()
             for ix, iy in itertools.product(range(self.length), range(self.circumference)):
                 sites, positions, winds, slots = [], [], [], []
@@ -381,15 +397,7 @@ class Lattice:
                     continue
                 seen.add(key)
                 bonds.append(Bond(tuple(sites), np.array(positions), t.kind, tuple(slots), len(t.members)))
-        if self.name == "honeycomb":  # sites on a single link: the outer ends of the links at a zigzag end
-            count = np.zeros(self.num_sites, np.int64)
-            for bond in families["nn"]:
-                count[list(bond.sites)] += 1
-            dangling = [b for b in families["sites"] if count[b.sites[0]] == 1]
-            middle = 0.5 * (self.positions[:, 0].min() + self.positions[:, 0].max())
-            families["dangling_left"] = [b for b in dangling if self.positions[b.sites[0], 0] < middle]
-            families["dangling_right"] = [b for b in dangling if self.positions[b.sites[0], 0] >= middle]
-        return MappingProxyType({name: tuple(b) for name, b in families.items()})
+        return tuple(bonds)
 
     def peierls_phase(self, bond: Bond, *, flux: float = 0.0, twist: float = 0.0) -> float:
         """Phase picked up by a unit charge hopping from ``bond.sites[1]`` to ``bond.sites[0]``.
