@@ -9,6 +9,7 @@ import functools
 
 import numpy as np
 import pytest
+import scipy.linalg.lapack as lapack
 from conftest import CLIPPED_LOG_J, tol
 
 from netprobe.engines.gaussian import gaussian_state
@@ -19,6 +20,7 @@ from netprobe.engines.gaussian.states import (
     majorana_modular_commutator,
     MajoranaState,
 )
+from netprobe.engines.gaussian import tridiagonal
 from netprobe.engines.gaussian.tridiagonal import function_columns, function_rows
 from netprobe.model.spec import load_model
 
@@ -69,6 +71,20 @@ def test_complex_weights_and_clustered_spectra(rng):
         full = (v * weights(w)) @ v.conj().T
         np.testing.assert_allclose(function_columns(mat, weights, slice(5, 25)), full[:, 5:25], atol=ENTRY_TOL, rtol=0)
         np.testing.assert_allclose(function_rows(mat, weights, slice(5, 25)), full[5:25, :], atol=ENTRY_TOL, rtol=0)
+
+
+@pytest.mark.parametrize("real", [False, True])
+def test_reduction_through_the_cython_interface_equals_scipys_wrapper(rng, real, monkeypatch):
+    # the same LAPACK routine (hetrd / sytrd) reached two ways: scipy.linalg.lapack is the reference, and the
+    # results must agree bit for bit; with the Cython interface unreachable the wrapper itself is used
+    g = _correlations(rng, 30, real)
+    reference = (lapack.dsytrd if real else lapack.zhetrd)(g, lower=1, lwork=64 * 30)[:4]
+    for _ in range(2):
+        packed, diag, off, tau = tridiagonal._tridiagonalize(g, 64 * 30)
+        np.testing.assert_array_equal(np.tril(packed), np.tril(reference[0]))
+        for got, want in zip((diag, off, tau), reference[1:]):
+            np.testing.assert_array_equal(got, want)
+        monkeypatch.setattr(tridiagonal, "_unlocked", lambda name: None)
 
 
 def test_unknown_method_is_refused():
