@@ -425,6 +425,18 @@ def _layout_of(matrices, mode_map: _ModeMap, cache: dict) -> _Layout:
                    tuple(odd_letter), tuple(varying), False)
 
 
+def _same_objects(a: tuple, b: tuple) -> bool:
+    """True if two tuples of matrices of equal length hold the same objects in the same order.
+
+    Tuple equality compares elements by identity first; two different matrices reach
+    ``ndarray.__eq__``, whose array result has no truth value (a ValueError): not the same.
+    """
+    try:
+        return a is b or bool(a == b)
+    except ValueError:
+        return False
+
+
 def _collect(products, mode_map: _ModeMap) -> _Collector:
     """Expand every product into monomials of the physical modes and sum them (module notes).
 
@@ -438,10 +450,23 @@ def _collect(products, mode_map: _ModeMap) -> _Collector:
     by_layout: dict[tuple, list[int]] = {}
     products = list(products)
     keys = []
+    # a group's key is the matrices tuple of its first product (as the ids of its matrices); a product
+    # joins a group found by length and end matrices if its tuple holds the same objects (tuple equality
+    # tests identity first, without making a tuple of ids per product)
+    candidates: dict[tuple, list[tuple]] = {}
     for i, prod in enumerate(products):
-        key = tuple(map(id, prod.matrices))
-        if key not in layouts:
-            layouts[key] = _layout_of(prod.matrices, mode_map, cache)
+        mats = prod.matrices
+        cheap = (len(mats), id(mats[0]), id(mats[-1])) if mats else (0,)
+        key = None
+        for first, first_key in candidates.get(cheap, ()):
+            if _same_objects(mats, first):
+                key = first_key
+                break
+        if key is None:
+            key = tuple(map(id, mats))
+            if key not in layouts:
+                layouts[key] = _layout_of(mats, mode_map, cache)
+            candidates.setdefault(cheap, []).append((mats, key))
         by_layout.setdefault(key, []).append(i)
         keys.append(key)
     # modes of the F and odd letters of every product, one array operation per layout
