@@ -19,6 +19,11 @@ Number-conserving ground state (:class:`FreeFermionState`)
 Pairing ground state (:class:`MajoranaState`)
     Majoranas ``g_2j = c_j + c_j^dag``, ``g_2j+1 = -i (c_j - c_j^dag)``, covariance
     ``Gamma_pq = (i/2) <[g_p, g_q]>``; for ``H = (i/4) g^T W g + const``, ``Gamma = i sign(i W)``.
+Modular commutator
+    Only the B columns of ``h_AB`` and the B rows of ``h_BC`` enter J; they are formed through the
+    tridiagonal form of G_AB and G_BC (:mod:`netprobe.engines.gaussian.tridiagonal`, the same LAPACK
+    arithmetic as an eigendecomposition in another order), or by full eigendecompositions with
+    ``method='eigh'`` (the reference); ``threads=2`` forms the two in parallel.
 
 Sign conventions of the probes (pinned by tests against the exact engine): with A, B, C
 counterclockwise, J(A, B, C) = i Tr(rho_ABC [K_AB, K_BC]) and the real-space Chern number are
