@@ -64,14 +64,36 @@ class LocalProduct:
     matrices: tuple[np.ndarray, ...] = field(repr=False)
     origin: str = ""
 
-    def adjoint(self) -> "LocalProduct":
-        """The Hermitian conjugate (factor-wise, since the factors act on distinct sites)."""
+    def adjoint(self, memo: dict | None = None) -> "LocalProduct":
+        """The Hermitian conjugate (factor-wise, since the factors act on distinct sites).
+
+        ``memo`` (a dict, optional) keeps the adjoint factors of each tuple of matrices met before, so
+        that products sharing their matrices (one pattern, one string length) share their adjoints too.
+        """
+        mats = self.matrices
+        if memo is not None:
+            key = (len(mats), id(mats[0]), id(mats[-1])) if mats else ()
+            for seen, adjoints in memo.get(key, ()):
+                if _same_objects(seen, mats):
+                    return LocalProduct(np.conj(self.coefficient), self.sites, adjoints, self.origin)
         # the shared string matrices are Hermitian: keep them by identity (cheap comparisons later)
         shared = {id(m) for m in _STRINGS.values()}
-        return LocalProduct(
-            np.conj(self.coefficient), self.sites,
-            tuple(m if id(m) in shared else _adjoint(m) for m in self.matrices), self.origin
-        )
+        adjoints = tuple(m if id(m) in shared else _adjoint(m) for m in mats)
+        if memo is not None:
+            memo.setdefault(key, []).append((mats, adjoints))
+        return LocalProduct(np.conj(self.coefficient), self.sites, adjoints, self.origin)
+
+
+def _same_objects(a: tuple, b: tuple) -> bool:
+    """True if two tuples of matrices of equal length hold the same objects in the same order.
+
+    Tuple equality compares elements by identity first; two different matrices reach
+    ``ndarray.__eq__``, whose array result has no truth value (a ValueError): not the same.
+    """
+    try:
+        return a is b or bool(a == b)
+    except ValueError:
+        return False
 
 
 def _adjoint(mat: np.ndarray) -> np.ndarray:
@@ -292,6 +314,7 @@ class Hamiltonian:
     def from_terms(cls, lattice, space: SiteSpace, terms: Iterable[Term], *, add_conjugate=(), **kwargs):
         """Build from written terms; ``add_conjugate`` holds the origins whose conjugates are added."""
         products, paired = [], []
+        memo: dict = {}  # adjoint factors by tuple of matrices, for this call (it holds the tuples alive)
         for term in terms:
             prod = normal_form(term, space)
             if prod is None:
@@ -299,7 +322,7 @@ class Hamiltonian:
             products.append(prod)
             if term.origin in add_conjugate:
                 paired.extend((len(products) - 1, len(products)))
-                products.append(prod.adjoint())
+                products.append(prod.adjoint(memo))
         ham = cls(lattice, space, products, **kwargs)
         ham._paired = frozenset(paired)
         return ham
