@@ -105,6 +105,7 @@ class SectorPairPlan:
 
         out_keys = set(layout.keys)
         self._pairs = []
+        tasks = []
         pieces = defaultdict(list)  # output key -> [(pair number, row start, dim v, dim B, R block)]
         for (sa, sb), combos in sources.items():
             dim_a, dim_b = int(a_leg.dims[sa]), int(b_leg.dims[sb])
@@ -137,16 +138,16 @@ class SectorPairPlan:
             mat = mat[np.concatenate([np.arange(s, s + n) for _, s, n in keep_rows])][
                 :, np.concatenate([np.arange(s, s + n) for _, s, n in keep_cols])]
             mat = np.ascontiguousarray(mat)
-            tasks, off = [], 0
+            number = len(self._pairs)
+            off = 0
             for (sw, t1, t2), _, n in keep_cols:
                 dim_w = wdims[sw]
                 for i1 in range(d1s[t1]):
                     for i2 in range(d2s[t2]):
                         for first, (key, dw, lt) in enumerate(combos[(sw, t1, t2)]):
-                            tasks.append((off, off + dw, lt, key, i1, i2, first > 0))
+                            tasks.append((first > 0, id(lt), number, off, off + dw, lt, slots[key], i1, i2))
                         off += dim_w
-            number = len(self._pairs)
-            self._pairs.append((dim_a, dim_b, off, tasks, mat))
+            self._pairs.append((dim_a, dim_b, off, mat))
             row = 0
             for ((t1, t2, sv), sbo, rblk, _), _, n in keep_rows:
                 dim_v = vdims[sv]
@@ -155,10 +156,14 @@ class SectorPairPlan:
                         pieces[((sa, t1, t2, sbo), j1, j2)].append((number, row, dim_v, dim_b, rblk))
                         row += dim_v
 
-        # step 3: per output block (and physical index pair inside it), the pieces and R regrouped
+        # step 1 grouped by L block (each read once while it is in cache), additions after the first writes
+        tasks.sort(key=lambda t: t[:2])
+        self._tasks = tuple(t[2:] + (t[0],) for t in tasks)
+        # step 3: per output block (and physical index pair inside it), the pieces and R regrouped; blocks
+        # of one outgoing sector b* in turn (they share the R blocks)
         self._outputs = []
         regrouped = {}
-        for (key, j1, j2), plist in pieces.items():
+        for (key, j1, j2), plist in sorted(pieces.items(), key=lambda item: (item[0][0][3], item[0])):
             ks = []
             for number, row, dim_v, dim_b, rblk in plist:
                 r = regrouped.get(id(rblk))
@@ -169,6 +174,7 @@ class SectorPairPlan:
             self._outputs.append((key, j1, j2, tuple(ks)))
         # blocks that no product writes whole (no pieces, or physical sectors wider than 1) start at zero
         whole = {o[0] for o in self._outputs}
+        self._buffers = None
         self._zero = tuple((start, stop) for key, (start, stop, shape) in slots.items()
                            if key not in whole or shape[1] * shape[2] != 1)
 
@@ -178,20 +184,25 @@ class SectorPairPlan:
         slots = self._slots
         tally = matmul_tally()
         is_complex = dtype.kind == "c"
+        # the intermediates are kept from one matvec to the next: fresh pages for ~10^7 entries per
+        # product cost as much as a step of the product
+        if self._buffers is None or self._buffers[0] != dtype:
+            self._buffers = (dtype, [(np.empty((p, dim_a, dim_b), dtype), np.empty((dim_a, mat.shape[0], dim_b), dtype))
+                                     for dim_a, dim_b, p, mat in self._pairs])
+        buffers = self._buffers[1]
+        for number, lo, hi, lt, (start, stop, shape), i1, i2, add in self._tasks:
+            xab = buffers[number][0]
+            th = x[start:stop].reshape(shape)[:, i1, i2, :]
+            dest = xab[lo:hi].reshape(lt.shape[0], xab.shape[2])
+            if add:
+                dest += lt @ th
+            else:
+                np.matmul(lt, th, out=dest)
+            tally.record(lt.shape[0], lt.shape[1], xab.shape[2], is_complex)
         ys = []
-        for dim_a, dim_b, p, tasks, mat in self._pairs:
-            xab = np.empty((p, dim_a, dim_b), dtype)
-            for lo, hi, lt, key, i1, i2, add in tasks:
-                start, stop, shape = slots[key]
-                th = x[start:stop].reshape(shape)[:, i1, i2, :]
-                dest = xab[lo:hi].reshape(lt.shape[0], dim_b)
-                if add:
-                    dest += lt @ th
-                else:
-                    np.matmul(lt, th, out=dest)
-                tally.record(lt.shape[0], lt.shape[1], dim_b, is_complex)
+        for (dim_a, dim_b, p, mat), (xab, y) in zip(self._pairs, buffers):
             # one product per a*, written as (a*, p', b): the slabs of step 3 are then plain strided matrices
-            ys.append(np.matmul(mat, xab.transpose(1, 0, 2)))
+            ys.append(np.matmul(mat, xab.transpose(1, 0, 2), out=y))
             tally.record(mat.shape[0], p, dim_b, is_complex, count=dim_a)
         out = np.empty(self.size, dtype)
         for start, stop in self._zero:
