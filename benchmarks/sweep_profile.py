@@ -84,7 +84,7 @@ def main(argv=None) -> None:
         record = engine.step()
         print(f"untimed sweep at D={chi}: {record.seconds:.1f} s, E = {record.energy:.8f}", flush=True)
     gemm = gemm_rate(engine.dtype, 1024)
-    profiler = cProfile.Profile() if args.profile or args.split else None
+    profiler = cProfile.Profile(time.process_time) if args.profile or args.split else None
     if profiler:
         profiler.enable()
     record = engine.step()
@@ -100,6 +100,27 @@ def main(argv=None) -> None:
         out = io.StringIO()
         pstats.Stats(profiler, stream=out).sort_stats("cumulative").print_stats(30)
         print(out.getvalue())
+
+
+def _gemm_rate_cpu(dtype, n: int = 1024, repeats: int = 5) -> float:
+    """Like :func:`benchmarks.machine.gemm_rate` (one thread) but timed in CPU seconds of this process:
+    on a shared machine the CPU-time rate is the one to set against CPU seconds of a sweep."""
+    import numpy as np
+    from threadpoolctl import threadpool_limits
+
+    rng = np.random.default_rng(0)
+    a = rng.standard_normal((n, n))
+    if np.dtype(dtype).kind == "c":
+        a = a + 1j * rng.standard_normal((n, n))
+    out = np.empty_like(a)
+    best = float("inf")
+    with threadpool_limits(limits=1):
+        np.matmul(a, a, out=out)
+        for _ in range(repeats):
+            start = time.process_time()
+            np.matmul(a, a, out=out)
+            best = min(best, time.process_time() - start)
+    return (8 if np.dtype(dtype).kind == "c" else 2) * n**3 / best
 
 
 def _timed(engine, bonds):
@@ -132,13 +153,14 @@ def _compare(ham, state, chi, args) -> None:
     planned = PairOperator._slab_plan
     mpo = build_mpo(ham)
     rows = []
-    rate = 0.0
+    rate = rate_cpu = 0.0
     for turn in range(args.compare):
         for route in ("blocks", "slabs"):
             PairOperator._slab_plan = planned if route == "slabs" else (lambda self: None)
             try:
                 engine = GroundStateSearch(mpo, state, wl.sweep_settings(chi), progress=None)
                 rate = max(rate, gemm_rate(engine.dtype, 1024))
+                rate_cpu = max(rate_cpu, _gemm_rate_cpu(engine.dtype))
                 wall, cpu, matvecs, flops, energy = _timed(engine, bonds)
             finally:
                 PairOperator._slab_plan = planned
@@ -147,8 +169,8 @@ def _compare(ham, state, chi, args) -> None:
             print(f"{route}: {wall:.1f} s wall, {cpu:.1f} s CPU, {matvecs} matvecs, {flops / 1e9:.1f} GFlop, "
                   f"E = {energy!r}", flush=True)
     what = f"bonds {bonds[0]}..{bonds[1] - 1} (right-moving)" if bonds else "one sweep"
-    print(f"{args.model} D={chi} charges={not args.no_charges}, {what}; GEMM {rate / 1e9:.1f} GFlop/s "
-          "(1024, one thread, best in the run)")
+    print(f"{args.model} D={chi} charges={not args.no_charges}, {what}; GEMM {rate / 1e9:.1f} GFlop/s in wall "
+          f"time, {rate_cpu / 1e9:.1f} GFlop/s in CPU time (1024, one thread, best in the run)")
     blocks_per_mv = [f / m for r, _, _, m, f, _ in rows if r == "blocks"]
     ref = min(blocks_per_mv) if blocks_per_mv else 0.0
     for route in ("blocks", "slabs"):
@@ -156,9 +178,9 @@ def _compare(ham, state, chi, args) -> None:
         best_wall = min(mine, key=lambda r: r[1])
         best_cpu = min(mine, key=lambda r: r[2])
         print(f"  {route}: best wall {best_wall[1]:.1f} s, best CPU {best_cpu[2]:.1f} s; efficiency (own flops, "
-              f"wall / CPU) {best_wall[4] / rate / best_wall[1]:.3f} / {best_cpu[4] / rate / best_cpu[2]:.3f}; "
+              f"wall / CPU) {best_wall[4] / rate / best_wall[1]:.3f} / {best_cpu[4] / rate_cpu / best_cpu[2]:.3f}; "
               f"with the block route's flops per matvec {ref * best_wall[3] / rate / best_wall[1]:.3f} / "
-              f"{ref * best_cpu[3] / rate / best_cpu[2]:.3f}")
+              f"{ref * best_cpu[3] / rate_cpu / best_cpu[2]:.3f}")
     blocks = [r for r in rows if r[0] == "blocks"]
     slabs = [r for r in rows if r[0] == "slabs"]
     print(f"  CPU ratio blocks / slabs (best of each) {min(r[2] for r in blocks) / min(r[2] for r in slabs):.2f}, "
@@ -168,20 +190,21 @@ def _compare(ham, state, chi, args) -> None:
 
 def _print_split(stats) -> None:
     """Seconds and fractions of the profiled sweep in its main parts (cProfile adds its own overhead)."""
-    def seconds(name, which):
+    def seconds(name, which, where=""):
         return sum(row[2] if which == "own" else row[3]
-                   for (_, _, fn), row in stats.items() if fn == name)
+                   for (path, _, fn), row in stats.items() if fn == name and path.endswith(where))
 
     total = seconds("step", "cum")
-    rows = [("two-site matvecs", seconds("apply", "cum")),
-            ("  contract, own time (sector GEMMs, result blocks as views)", seconds("contract", "own")),
+    rows = [("two-site matvecs", seconds("matvec", "cum", "effective.py")),
+            ("  of which building the slab plans", seconds("plan_sector_matvec", "cum")),
+            ("  contract, own time (sector GEMMs; inside the matvec on the block route only)", seconds("contract", "own")),
             ("  block copies into sector matrices (_assemble)", seconds("_assemble", "own")),
             ("  index plans built", seconds("_contract_plan", "cum")),
             ("environment updates", seconds("update_left", "cum") + seconds("update_right", "cum")),
-            ("SVD of the two-site tensor", seconds("svd", "cum")),
+            ("SVD of the two-site tensor", seconds("_split", "cum")),
             ("Lanczos, own time", seconds("lanczos_lowest", "own")),
             ("packing blocks into vectors", seconds("pack", "cum"))]
-    print(f"split of the profiled sweep ({total:.1f} s under cProfile):")
+    print(f"split of the profiled sweep ({total:.1f} s of CPU time under cProfile):")
     for label, value in rows:
         print(f"  {label}: {value:.2f} s = {value / total:.1%}")
 

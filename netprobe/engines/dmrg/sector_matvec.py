@@ -25,13 +25,35 @@ is built when the plan is made, i.e. once per position of the sweep.
 
 from __future__ import annotations
 
+import threading
 from collections import defaultdict
 
 import numpy as np
 
 from netprobe.tensor import BlockLayout, BlockTensor, matmul_tally
 
-__all__ = ["SectorPairPlan", "plan_sector_matvec"]
+__all__ = ["SectorPairPlan", "plan_sector_matvec", "release_scratch"]
+
+# Scratch space of the intermediates, one per thread, kept from one matvec and one bond to the next:
+# fresh pages for the ~10^7 entries of a product's intermediates cost as much as a step of the product.
+# Nothing in it outlives a matvec call, so operators of one thread can share it.
+_SCRATCH = threading.local()
+
+
+def _scratch(count: int, dtype) -> np.ndarray:
+    """A flat array of at least ``count`` entries of ``dtype`` from this thread's scratch space."""
+    dtype = np.dtype(dtype)
+    nbytes = count * dtype.itemsize
+    buf = getattr(_SCRATCH, "buffer", None)
+    if buf is None or buf.nbytes < nbytes:
+        buf = np.empty(nbytes, np.uint8)
+        _SCRATCH.buffer = buf
+    return buf[:nbytes].view(dtype)
+
+
+def release_scratch() -> None:
+    """Free this thread's scratch space (it is allocated again by the next matvec)."""
+    _SCRATCH.buffer = None
 
 
 def _offsets(leg) -> np.ndarray:
@@ -174,7 +196,20 @@ class SectorPairPlan:
             self._outputs.append((key, j1, j2, tuple(ks)))
         # blocks that no product writes whole (no pieces, or physical sectors wider than 1) start at zero
         whole = {o[0] for o in self._outputs}
-        self._buffers = None
+        self._flops = 0
+        self._products = len(self._tasks) + sum(len(o[3]) for o in self._outputs)
+        factor = 8 if self.dtype.kind == "c" else 2  # the tally's convention (MatmulTally)
+        for number, lo, hi, lt, slot, i1, i2, add in self._tasks:
+            self._flops += factor * lt.shape[0] * lt.shape[1] * self._pairs[number][1]
+        self._x_sizes, self._y_sizes = [], []
+        for dim_a, dim_b, p, mat in self._pairs:
+            self._flops += factor * mat.shape[0] * p * dim_b * dim_a
+            self._products += dim_a
+            self._x_sizes.append(p * dim_a * dim_b)
+            self._y_sizes.append(dim_a * mat.shape[0] * dim_b)
+        for key, j1, j2, ks in self._outputs:
+            for number, row, dim_v, r in ks:
+                self._flops += factor * slots[key][2][0] * r.shape[0] * r.shape[1]
         self._zero = tuple((start, stop) for key, (start, stop, shape) in slots.items()
                            if key not in whole or shape[1] * shape[2] != 1)
 
@@ -182,14 +217,13 @@ class SectorPairPlan:
         """``H_eff x`` for a flat vector in the layout's order."""
         dtype = np.result_type(self.dtype, x.dtype)
         slots = self._slots
-        tally = matmul_tally()
-        is_complex = dtype.kind == "c"
-        # the intermediates are kept from one matvec to the next: fresh pages for ~10^7 entries per
-        # product cost as much as a step of the product
-        if self._buffers is None or self._buffers[0] != dtype:
-            self._buffers = (dtype, [(np.empty((p, dim_a, dim_b), dtype), np.empty((dim_a, mat.shape[0], dim_b), dtype))
-                                     for dim_a, dim_b, p, mat in self._pairs])
-        buffers = self._buffers[1]
+        total = sum(self._x_sizes) + sum(self._y_sizes)
+        arena = _scratch(total, dtype)
+        buffers, at = [], 0
+        for (dim_a, dim_b, p, mat), nx, ny in zip(self._pairs, self._x_sizes, self._y_sizes):
+            buffers.append((arena[at:at + nx].reshape(p, dim_a, dim_b),
+                            arena[at + nx:at + nx + ny].reshape(dim_a, mat.shape[0], dim_b)))
+            at += nx + ny
         for number, lo, hi, lt, (start, stop, shape), i1, i2, add in self._tasks:
             xab = buffers[number][0]
             th = x[start:stop].reshape(shape)[:, i1, i2, :]
@@ -198,12 +232,10 @@ class SectorPairPlan:
                 dest += lt @ th
             else:
                 np.matmul(lt, th, out=dest)
-            tally.record(lt.shape[0], lt.shape[1], xab.shape[2], is_complex)
         ys = []
         for (dim_a, dim_b, p, mat), (xab, y) in zip(self._pairs, buffers):
             # one product per a*, written as (a*, p', b): the slabs of step 3 are then plain strided matrices
             ys.append(np.matmul(mat, xab.transpose(1, 0, 2), out=y))
-            tally.record(mat.shape[0], p, dim_b, is_complex, count=dim_a)
         out = np.empty(self.size, dtype)
         for start, stop in self._zero:
             out[start:stop] = 0
@@ -219,7 +251,10 @@ class SectorPairPlan:
                     first = False
                 else:
                     block += y @ r
-                tally.record(dim_a, r.shape[0], r.shape[1], is_complex)
+        # the products made, counted as MatmulTally.record would count them one by one
+        tally = matmul_tally()
+        tally.products += self._products
+        tally.flops += self._flops * (4 if dtype.kind == "c" and self.dtype.kind != "c" else 1)
         return out
 
 
