@@ -24,6 +24,7 @@ import argparse
 import cProfile
 import io
 import pstats
+import resource
 import time
 
 import h5py
@@ -161,13 +162,16 @@ def _compare(ham, state, chi, args) -> None:
                 engine = GroundStateSearch(mpo, state, wl.sweep_settings(chi), progress=None)
                 rate = max(rate, gemm_rate(engine.dtype, 1024))
                 rate_cpu = max(rate_cpu, _gemm_rate_cpu(engine.dtype))
+                usage = resource.getrusage(resource.RUSAGE_SELF)
                 wall, cpu, matvecs, flops, energy = _timed(engine, bonds)
+                after = resource.getrusage(resource.RUSAGE_SELF)
+                system, faults = after.ru_stime - usage.ru_stime, after.ru_minflt - usage.ru_minflt
             finally:
                 PairOperator._slab_plan = planned
             del engine
             rows.append((route, wall, cpu, matvecs, flops, energy))
-            print(f"{route}: {wall:.1f} s wall, {cpu:.1f} s CPU, {matvecs} matvecs, {flops / 1e9:.1f} GFlop, "
-                  f"E = {energy!r}", flush=True)
+            print(f"{route}: {wall:.1f} s wall, {cpu:.1f} s CPU ({system:.1f} s of it in the system, "
+                  f"{faults} page faults), {matvecs} matvecs, {flops / 1e9:.1f} GFlop, E = {energy!r}", flush=True)
     what = f"bonds {bonds[0]}..{bonds[1] - 1} (right-moving)" if bonds else "one sweep"
     print(f"{args.model} D={chi} charges={not args.no_charges}, {what}; GEMM {rate / 1e9:.1f} GFlop/s in wall "
           f"time, {rate_cpu / 1e9:.1f} GFlop/s in CPU time (1024, one thread, best in the run)")

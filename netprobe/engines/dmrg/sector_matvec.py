@@ -18,9 +18,12 @@ one reads:
    used in place, multiplied by ``R`` regrouped as ``[(v, b), b*]`` (once per bond), and summed
    straight into the output vector (one addition of a ``dim A x dim B*`` block per further pair).
 
-No intermediate is copied or transposed. The sum is the same as the block contractions' up to the order of additions (round-off). Everything
-that depends only on the bond (index plans, regrouped ``L`` and ``R`` blocks, joined MPO blocks)
-is built when the plan is made, i.e. once per position of the sweep.
+No intermediate is copied or transposed. The sum is the same as the block contractions' up to the
+order of additions (round-off). Everything that depends only on the bond (index plans, regrouped
+``L`` and ``R`` blocks, joined MPO blocks) is built when the plan is made, i.e. once per position
+of the sweep. The intermediates live in one scratch array per thread, as large as the largest
+bond's ``X`` and ``Y`` together (about ``2 chi^2 D_w d^2`` entries over the charge sectors), kept
+between matvecs and bonds; :func:`release_scratch` frees it.
 """
 
 from __future__ import annotations
@@ -273,3 +276,4 @@ def plan_sector_matvec(left: BlockTensor, w1: BlockTensor, w2: BlockTensor, righ
     if any(np.any(t.charge) for t in (left, w1, w2, right)):
         return None
     return SectorPairPlan(left, w1, w2, right, layout)
+
