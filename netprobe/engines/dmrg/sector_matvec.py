@@ -28,6 +28,7 @@ between matvecs and bonds; :func:`release_scratch` frees it.
 
 from __future__ import annotations
 
+import functools
 import threading
 from collections import defaultdict
 
@@ -113,6 +114,7 @@ class SectorPairPlan:
         for (sb, sv, sbo), blk in right.blocks.items():
             r_by_ket[sb].append((sv, sbo, blk))
 
+        @functools.lru_cache(maxsize=None)
         def col_index(sw, t1, t2):
             # order (i1, i2, w) inside the combination
             w = np.arange(wdims[sw])
@@ -121,6 +123,7 @@ class SectorPairPlan:
                 + s2_off[t2] + i2[None, :, None]
             return g.reshape(-1)
 
+        @functools.lru_cache(maxsize=None)
         def row_index(t1, t2, sv):
             v = np.arange(vdims[sv])
             j1, j2 = np.arange(d1s[t1]), np.arange(d2s[t2])
@@ -129,6 +132,7 @@ class SectorPairPlan:
             return g.reshape(-1)
 
         out_keys = set(layout.keys)
+        cuts = {}
         self._pairs = []
         tasks = []
         pieces = defaultdict(list)  # output key -> [(pair number, row start, dim v, dim B, R block)]
@@ -144,25 +148,25 @@ class SectorPairPlan:
                             rows.append(((t1, t2, sv), sbo, rblk, row_index(t1, t2, sv)))
             if not rows:
                 continue
-            # joined MPO cut to this pair; combinations that are zero throughout are dropped
-            mat = joined[np.ix_(np.concatenate([r[3] for r in rows]), col_all)]
-            keep_rows, start = [], 0
-            for r in rows:
-                n = len(r[3])
-                if np.any(mat[start:start + n]):
-                    keep_rows.append((r, start, n))
-                start += n
-            keep_cols, start = [], 0
-            for c, g in cols:
-                n = len(g)
-                if np.any(mat[:, start:start + n]):
-                    keep_cols.append((c, start, n))
-                start += n
-            if not keep_rows or not keep_cols:
+            # joined MPO cut to this pair; combinations that are zero throughout are dropped (the cut
+            # depends only on the combinations, shared by many pairs)
+            ident = (tuple(r[0] for r in rows), tuple(c for c, _ in cols))
+            cut = cuts.get(ident)
+            if cut is None:
+                mat = joined[np.concatenate([r[3] for r in rows])[:, None], col_all[None, :]]
+                nz_rows = np.add.reduceat(np.any(mat != 0, axis=1), np.cumsum([0] + [len(r[3]) for r in rows])[:-1])
+                nz_cols = np.add.reduceat(np.any(mat != 0, axis=0), np.cumsum([0] + [len(g) for _, g in cols])[:-1])
+                keep_r = [i for i, k in enumerate(nz_rows.tolist()) if k]
+                keep_c = [i for i, k in enumerate(nz_cols.tolist()) if k]
+                if keep_r and keep_c:
+                    mat = np.ascontiguousarray(joined[np.concatenate([rows[i][3] for i in keep_r])[:, None],
+                                                      np.concatenate([cols[i][1] for i in keep_c])[None, :]])
+                cut = cuts[ident] = (keep_r, keep_c, mat)
+            keep_r, keep_c, mat = cut
+            if not keep_r or not keep_c:
                 continue
-            mat = mat[np.concatenate([np.arange(s, s + n) for _, s, n in keep_rows])][
-                :, np.concatenate([np.arange(s, s + n) for _, s, n in keep_cols])]
-            mat = np.ascontiguousarray(mat)
+            keep_rows = [(rows[i], None, len(rows[i][3])) for i in keep_r]
+            keep_cols = [(cols[i][0], None, len(cols[i][1])) for i in keep_c]
             number = len(self._pairs)
             off = 0
             for (sw, t1, t2), _, n in keep_cols:
