@@ -8,6 +8,14 @@ table of that sweep by cumulative time. ``--state FILE`` starts from a state sav
 ``--save FILE`` writes the grown one), ``--warm N`` runs N untimed sweeps first (index plans built,
 as in a long run), and ``--split`` prints where the profiled sweep's time went (matvec GEMMs and
 block copies, index plans, environments, SVD, Lanczos).
+
+``--compare N`` times the sweep N times in turn with the general block-contraction matvec
+("blocks", the route before the slab plan) and the slab plan of
+:mod:`netprobe.engines.dmrg.sector_matvec` ("slabs"), each from the same starting state in one
+process, and prints wall and CPU seconds, matvec flops, efficiencies and the energies to all
+digits. ``--bonds LO:HI`` replaces the full sweep by the right-moving updates of bonds LO..HI-1
+only (the centre moved to LO first, untimed): a partial sweep over central bonds, for states whose
+full sweep takes too long here.
 """
 
 from __future__ import annotations
@@ -16,6 +24,8 @@ import argparse
 import cProfile
 import io
 import pstats
+import resource
+import time
 
 import h5py
 
@@ -40,12 +50,15 @@ def main(argv=None) -> None:
     parser.add_argument("--state", help="start from this saved state (HDF5) instead of growing one")
     parser.add_argument("--save", help="write the grown state to this file (HDF5)")
     parser.add_argument("--warm", type=int, default=0, help="untimed sweeps before the timed one")
+    parser.add_argument("--compare", type=int, default=0,
+                        help="time the sweep N times in turn with the block-contraction and the slab matvec")
+    parser.add_argument("--bonds", help="LO:HI: time only the right-moving updates of bonds LO..HI-1")
     args = parser.parse_args(argv)
     ham = wl.heisenberg_cylinder(6, 6) if args.model == "square" else wl.kagome_cylinder()
     chi = 32
     if args.state:
         with h5py.File(args.state, "r") as f:
-            state = read_mps(f["state"])
+            state = read_mps(f["state"] if "state" in f else f["mps"])
         chi = args.bond_dimension
     else:
         state = random_state(ham, bond_dimension=16, rng=wl.SEED)
@@ -64,12 +77,15 @@ def main(argv=None) -> None:
     if args.no_charges:
         ham = wl.without_charges_of(ham)
         state = wl.without_charges(state, ham)
+    if args.compare:
+        _compare(ham, state, chi, args)
+        return
     engine = GroundStateSearch(build_mpo(ham), state, wl.sweep_settings(chi), progress=None)
     for _ in range(args.warm):
         record = engine.step()
         print(f"untimed sweep at D={chi}: {record.seconds:.1f} s, E = {record.energy:.8f}", flush=True)
     gemm = gemm_rate(engine.dtype, 1024)
-    profiler = cProfile.Profile() if args.profile or args.split else None
+    profiler = cProfile.Profile(time.process_time) if args.profile or args.split else None
     if profiler:
         profiler.enable()
     record = engine.step()
@@ -87,22 +103,112 @@ def main(argv=None) -> None:
         print(out.getvalue())
 
 
+def _gemm_rate_cpu(dtype, n: int = 1024, repeats: int = 5) -> float:
+    """Like :func:`benchmarks.machine.gemm_rate` (one thread) but timed in CPU seconds of this process:
+    on a shared machine the CPU-time rate is the one to set against CPU seconds of a sweep."""
+    import numpy as np
+    from threadpoolctl import threadpool_limits
+
+    rng = np.random.default_rng(0)
+    a = rng.standard_normal((n, n))
+    if np.dtype(dtype).kind == "c":
+        a = a + 1j * rng.standard_normal((n, n))
+    out = np.empty_like(a)
+    best = float("inf")
+    with threadpool_limits(limits=1):
+        np.matmul(a, a, out=out)
+        for _ in range(repeats):
+            start = time.process_time()
+            np.matmul(a, a, out=out)
+            best = min(best, time.process_time() - start)
+    return (8 if np.dtype(dtype).kind == "c" else 2) * n**3 / best
+
+
+def _timed(engine, bonds):
+    """Wall and CPU seconds, matvecs, matvec flops and energy of one sweep (or of bonds LO..HI-1)."""
+    if bonds is None:
+        cpu = time.process_time()
+        record = engine.step()
+        return record.seconds, time.process_time() - cpu, record.matvecs, record.matvec_flops, record.energy
+    lo, hi = bonds
+    with engine.blas_limit():
+        engine.state.move_centre(lo)
+        for j in range(lo):
+            engine._env.update_left(j, engine.state.tensors[j])
+        stats = {"matvecs": 0, "matvec_flops": 0, "energy": float("nan"), "discarded": 0.0,
+                 "entropy": float("nan"), "tolerance": engine.settings.solver_tolerance_at(0)}
+        wall, cpu = time.perf_counter(), time.process_time()
+        for i in range(lo, hi):
+            engine._update_bond(i, 1, chi=engine.settings.bond_dimension_at(0), noise=0.0, stats=stats)
+        return (time.perf_counter() - wall, time.process_time() - cpu, stats["matvecs"], stats["matvec_flops"],
+                stats["energy"])
+
+
+def _compare(ham, state, chi, args) -> None:
+    """The timed sweep in turn with the block-contraction matvec and the slab plan, one process."""
+    from netprobe.engines.dmrg.effective import PairOperator
+    from netprobe.engines.dmrg.engine import GroundStateSearch
+    from netprobe.engines.mps.mpo import build_mpo
+
+    bonds = tuple(int(b) for b in args.bonds.split(":")) if args.bonds else None
+    planned = PairOperator._slab_plan
+    mpo = build_mpo(ham)
+    rows = []
+    rate = rate_cpu = 0.0
+    for turn in range(args.compare):
+        for route in ("blocks", "slabs"):
+            PairOperator._slab_plan = planned if route == "slabs" else (lambda self: None)
+            try:
+                engine = GroundStateSearch(mpo, state, wl.sweep_settings(chi), progress=None)
+                rate = max(rate, gemm_rate(engine.dtype, 1024))
+                rate_cpu = max(rate_cpu, _gemm_rate_cpu(engine.dtype))
+                usage = resource.getrusage(resource.RUSAGE_SELF)
+                wall, cpu, matvecs, flops, energy = _timed(engine, bonds)
+                after = resource.getrusage(resource.RUSAGE_SELF)
+                system, faults = after.ru_stime - usage.ru_stime, after.ru_minflt - usage.ru_minflt
+            finally:
+                PairOperator._slab_plan = planned
+            del engine
+            rows.append((route, wall, cpu, matvecs, flops, energy))
+            print(f"{route}: {wall:.1f} s wall, {cpu:.1f} s CPU ({system:.1f} s of it in the system, "
+                  f"{faults} page faults), {matvecs} matvecs, {flops / 1e9:.1f} GFlop, E = {energy!r}", flush=True)
+    what = f"bonds {bonds[0]}..{bonds[1] - 1} (right-moving)" if bonds else "one sweep"
+    print(f"{args.model} D={chi} charges={not args.no_charges}, {what}; GEMM {rate / 1e9:.1f} GFlop/s in wall "
+          f"time, {rate_cpu / 1e9:.1f} GFlop/s in CPU time (1024, one thread, best in the run)")
+    blocks_per_mv = [f / m for r, _, _, m, f, _ in rows if r == "blocks"]
+    ref = min(blocks_per_mv) if blocks_per_mv else 0.0
+    for route in ("blocks", "slabs"):
+        mine = [r for r in rows if r[0] == route]
+        best_wall = min(mine, key=lambda r: r[1])
+        best_cpu = min(mine, key=lambda r: r[2])
+        print(f"  {route}: best wall {best_wall[1]:.1f} s, best CPU {best_cpu[2]:.1f} s; efficiency (own flops, "
+              f"wall / CPU) {best_wall[4] / rate / best_wall[1]:.3f} / {best_cpu[4] / rate_cpu / best_cpu[2]:.3f}; "
+              f"with the block route's flops per matvec {ref * best_wall[3] / rate / best_wall[1]:.3f} / "
+              f"{ref * best_cpu[3] / rate_cpu / best_cpu[2]:.3f}")
+    blocks = [r for r in rows if r[0] == "blocks"]
+    slabs = [r for r in rows if r[0] == "slabs"]
+    print(f"  CPU ratio blocks / slabs (best of each) {min(r[2] for r in blocks) / min(r[2] for r in slabs):.2f}, "
+          f"wall {min(r[1] for r in blocks) / min(r[1] for r in slabs):.2f}; largest energy difference "
+          f"{max(abs(a[5] - b[5]) for a in blocks for b in slabs):.3g}")
+
+
 def _print_split(stats) -> None:
     """Seconds and fractions of the profiled sweep in its main parts (cProfile adds its own overhead)."""
-    def seconds(name, which):
+    def seconds(name, which, where=""):
         return sum(row[2] if which == "own" else row[3]
-                   for (_, _, fn), row in stats.items() if fn == name)
+                   for (path, _, fn), row in stats.items() if fn == name and path.endswith(where))
 
     total = seconds("step", "cum")
-    rows = [("two-site matvecs", seconds("apply", "cum")),
-            ("  contract, own time (sector GEMMs, result blocks as views)", seconds("contract", "own")),
+    rows = [("two-site matvecs", seconds("matvec", "cum", "effective.py")),
+            ("  of which building the slab plans", seconds("plan_sector_matvec", "cum")),
+            ("  contract, own time (sector GEMMs; inside the matvec on the block route only)", seconds("contract", "own")),
             ("  block copies into sector matrices (_assemble)", seconds("_assemble", "own")),
             ("  index plans built", seconds("_contract_plan", "cum")),
             ("environment updates", seconds("update_left", "cum") + seconds("update_right", "cum")),
-            ("SVD of the two-site tensor", seconds("svd", "cum")),
+            ("SVD of the two-site tensor", seconds("_split", "cum")),
             ("Lanczos, own time", seconds("lanczos_lowest", "own")),
             ("packing blocks into vectors", seconds("pack", "cum"))]
-    print(f"split of the profiled sweep ({total:.1f} s under cProfile):")
+    print(f"split of the profiled sweep ({total:.1f} s of CPU time under cProfile):")
     for label, value in rows:
         print(f"  {label}: {value:.2f} s = {value / total:.1%}")
 

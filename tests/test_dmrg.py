@@ -433,3 +433,63 @@ def test_expanding_single_site_sweeps_match_two_site_and_exact_energies(case):
     # both are converged to energy_tolerance 1e-12 with truncation weight 1e-12: 1e-8 relative is loose
     assert abs(energies["single-site-expanding"] - reference) <= DMRG_EXACT_ENERGY * abs(reference)
     assert abs(energies["single-site-expanding"] - energies["two-site"]) <= DMRG_EXACT_ENERGY * abs(reference)
+
+
+# sector dimensions above 1 on the physical legs: the Hubbard site space with only N conserved has
+# the sectors n = 0, 1 (up or down), 2
+SLAB_CASES = {
+    "heisenberg-cylinder-w3": ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, None),
+    "kagome-chiral": ("kagome_chiral", {"length": "2", "circumference": "1", "twice_sz": "0", "Jchi": "0.7"},
+                      None),
+    "hubbard-n-only": ("hubbard", {"length": "6"}, ("N",)),
+}
+
+
+@pytest.mark.parametrize("case", list(SLAB_CASES))
+def test_charged_slab_matvec_equals_the_dense_sum_and_the_block_contractions(case):
+    # the slab plan of the charged two-site matvec against numpy's tensordot on the dense tensors
+    # (common practice) and against the route of four block contractions, at every bond of a random state
+    from netprobe.engines.dmrg.effective import PairOperator
+    from netprobe.engines.mps import (BlockMPO, left_boundary, left_environment_step, right_boundary,
+                                      right_environment_step)
+    from netprobe.model.terms import Hamiltonian
+    from netprobe.tensor import BlockLayout, contract
+
+    name, overrides, conserved = SLAB_CASES[case]
+    ham = load_model(name, overrides).hamiltonian
+    if conserved is not None:
+        ham = Hamiltonian(ham.lattice, ham.space, ham.products, conserved=conserved,
+                          sector={c: ham.sector[c] for c in conserved})
+    state = random_state(ham, bond_dimension=12, rng=7)
+    mpo = BlockMPO.from_mpo(build_mpo(ham), state.basis)
+    n = state.num_sites
+    right = [None] * (n + 1)
+    right[n] = right_boundary(state, mpo)
+    for i in range(n - 1, 1, -1):
+        right[i] = right_environment_step(right[i + 1], state.tensors[i], mpo.tensors[i])
+    left = left_boundary(state, mpo)
+    rng = np.random.default_rng(3)
+    wide = False
+    for i in range(n - 1):
+        theta = contract(state.tensors[i], state.tensors[i + 1], ([2], [0]))
+        layout = BlockLayout(theta.legs, None, state.basis.rule, theta.dtype)
+        op = PairOperator(left, mpo.tensors[i], mpo.tensors[i + 1], right[i + 2], layout)
+        assert op._slab_plan() is not None
+        wide = wide or max(theta.legs[1].dims) > 1
+        x = rng.standard_normal(layout.size)
+        if op.dtype.kind == "c":
+            x = x + 1j * rng.standard_normal(layout.size)
+        slab = op.matvec(x)
+        dense = np.tensordot(left.to_dense(), layout.unpack(x).to_dense(), ([1], [0]))  # (a*, w, s1, s2, b)
+        dense = np.tensordot(dense, mpo.tensors[i].to_dense(), ([1, 2], [0, 2]))  # (a*, s2, b, s1', u)
+        dense = np.tensordot(dense, mpo.tensors[i + 1].to_dense(), ([4, 1], [0, 2]))  # (a*, b, s1', s2', v)
+        dense = np.tensordot(dense, right[i + 2].to_dense(), ([1, 4], [0, 1]))  # (a*, s1', s2', b*)
+        scale = np.abs(dense).max()
+        # the same sum in another order: rounding only (common practice)
+        assert np.allclose(layout.unpack(slab).to_dense(), dense, rtol=0, atol=tol(scale))
+        op._slabs = None  # the general route
+        assert np.allclose(op.matvec(x), slab, rtol=0, atol=tol(scale))
+        if i + 2 < n:
+            state.move_centre(i + 1)
+            left = left_environment_step(left, state.tensors[i], mpo.tensors[i])
+    assert wide == (conserved is not None)

@@ -6,6 +6,9 @@ For the bond between sites ``i`` and ``i + 1`` the wavefunction is ``theta[a, s1
                                   theta[a, s1, s2, b],
 
 contracted one tensor at a time (cost about ``chi^3 D d^2`` per product); the matrix is never formed.
+Without charges (one block per tensor) the three products run on dense matrices; with charges on
+the slabs planned by :mod:`netprobe.engines.dmrg.sector_matvec` (once per bond, no transposed copies of
+the large intermediates); the block contractions remain the general route.
 The same partial products give the perturbation terms of the density-matrix noise.
 :class:`SiteOperator` is the single-site analogue (cost about ``chi^3 D d``).
 """
@@ -14,6 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from netprobe.engines.dmrg.sector_matvec import plan_sector_matvec
 from netprobe.tensor import BlockLayout, BlockTensor, contract, matmul_tally
 
 __all__ = ["PairOperator", "SiteOperator"]
@@ -87,11 +91,23 @@ class PairOperator:
         return BlockTensor._new(legs, theta._qkey, theta.rule, {key: out.reshape(chi_l, d1, d2, chi_r)},
                                 out.dtype)
 
+    def _slab_plan(self):
+        """The charged slab plan (:mod:`~netprobe.engines.dmrg.sector_matvec`), built once per operator;
+        None where the one-block path or the general route applies."""
+        if not hasattr(self, "_slabs"):
+            self._slabs = None
+            if self._dense_factors() is None:
+                self._slabs = plan_sector_matvec(self.left, self.w1, self.w2, self.right, self.layout)
+        return self._slabs
+
     def apply(self, theta: BlockTensor) -> BlockTensor:
         """``H_eff theta`` with the legs of ``theta``."""
         factors = self._dense_factors()
         if factors is not None and len(theta.blocks) == 1:
             return self._apply_dense(theta, factors)
+        plan = self._slab_plan()
+        if plan is not None and theta.legs == self.layout.legs and theta._qkey == self.layout._qkey:
+            return self.layout.unpack(plan.matvec(self.layout.pack(theta)))
         x = contract(self.left, theta, ([1], [0]))  # (a*, w, s1, s2, b)
         x = contract(x, self.w1, ([1, 2], [0, 2]))  # (a*, s2, b, s1', u)
         x = contract(x, self.w2, ([4, 1], [0, 2]))  # (a*, b, s1', s2', v)
@@ -99,6 +115,9 @@ class PairOperator:
 
     def matvec(self, x: np.ndarray) -> np.ndarray:
         """``H_eff`` on a flat vector of the layout."""
+        plan = self._slab_plan()
+        if plan is not None:
+            return plan.matvec(np.asarray(x))
         return self.layout.pack(self.apply(self.layout.unpack(x)))
 
     def left_expansion(self, theta: BlockTensor) -> BlockTensor:
