@@ -413,6 +413,25 @@ class Lattice:
         a_twist = twist / self.circumference_length if self.geometry != "strip" else 0.0
         return (b_field * 0.5 * (x0 + x1) + a_twist) * (y0 - y1)
 
+    def peierls_phases(self, bonds, *, flux: float = 0.0, twist: float = 0.0) -> list:
+        """:meth:`peierls_phase` of many bonds at once, as Python floats (``None`` for one-member bonds).
+
+        The same arithmetic in the same order, element by element, so every value equals the one
+        :meth:`peierls_phase` gives to the last bit.
+        """
+        at = [k for k, bond in enumerate(bonds) if len(bond.positions) >= 2]
+        out: list = [None] * len(bonds)
+        if not at:
+            return out
+        pos = np.array([bonds[k].positions[:2] for k in at], dtype=float)
+        x0, y0, x1, y1 = pos[:, 0, 0], pos[:, 0, 1], pos[:, 1, 0], pos[:, 1, 1]
+        b_field = 2 * math.pi * flux / self.cell_area
+        a_twist = twist / self.circumference_length if self.geometry != "strip" else 0.0
+        values = ((b_field * 0.5 * (x0 + x1) + a_twist) * (y0 - y1)).tolist()
+        for k, value in zip(at, values):
+            out[k] = value
+        return out
+
     def distance(self, i: int, j: int) -> float:
         """Distance between two sites with the minimal image around periodic directions."""
         d = self.positions[i] - self.positions[j]

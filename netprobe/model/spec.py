@@ -36,6 +36,7 @@ member ``name@k``; ``a.b`` is the on-site product of ``a`` and ``b``. Example:
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -443,46 +444,78 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None, *,
         for factor, names in entry.products:
             for name, _ in names:
                 space.operator(name)  # unknown operators fail here, before any bond
+        # per entry, not per bond: the factors depend on the parameters only, the placement of the
+        # operators on the members of a bond only on which members it has (its slots)
+        factors = None
+        placements: dict[tuple[int, ...], tuple] = {}
+        used_site_vars = sorted(entry.coupling.names & set(_SITE_VARIABLES)) if uses_site_vars else []
+        if uses_site_vars:  # (only on the sites family, checked above)
+            # plain Python numbers, as float() / int() of the array entries give them
+            site_x = lattice.positions[:, 0].tolist()
+            site_y = lattice.positions[:, 1].tolist()
+            site_sub = lattice.sublattice.tolist()
+        phases = None  # Peierls phases of the family's bonds, on first need
+        peierls_factors: dict[tuple, complex] = {}  # exp(i q A) by the exact values of q and A
+        peierls = entry.peierls and bool(flux or twist) and space.flux_charge
         for bond_index, bond in enumerate(bonds):
-            local_env = dict(env)
-            local_env["members"] = len(bond.sites)  # fewer than the family's arity where an open end cuts it
-            if entry.on == "sites":
+            if uses_site_vars:
                 site = bond.sites[0]
-                local_env.update(x=float(lattice.positions[site, 0]), y=float(lattice.positions[site, 1]),
-                                 sublattice=int(lattice.sublattice[site]), eps=1 - 2 * int(lattice.sublattice[site] % 2))
-            coupling = None if uses_site_vars else couplings.get(len(bond.sites))
-            if coupling is None:
-                try:
-                    coupling = entry.coupling.evaluate(local_env)
-                except ExpressionError as err:
-                    raise SpecError(f"{where}: {entry.label}: {err}") from None
-                if not uses_site_vars:
+                values = {"x": site_x[site], "y": site_y[site], "sublattice": site_sub[site],
+                          "eps": 1 - 2 * (site_sub[site] % 2)}
+                # the coupling depends on the values of the site variables it uses (and the member count)
+                key = (len(bond.sites), *(repr(values[n]) for n in used_site_vars))
+                coupling = couplings.get(key)
+                if coupling is None:
+                    local_env = dict(env)
+                    local_env["members"] = len(bond.sites)
+                    local_env.update(values)
+                    try:
+                        coupling = entry.coupling.evaluate(local_env)
+                    except ExpressionError as err:
+                        raise SpecError(f"{where}: {entry.label}: {err}") from None
+                    couplings[key] = coupling
+            else:
+                coupling = couplings.get(len(bond.sites))
+                if coupling is None:
+                    local_env = dict(env)
+                    local_env["members"] = len(bond.sites)  # fewer than the family's arity where an open end cuts it
+                    if entry.on == "sites":
+                        site = bond.sites[0]
+                        sub = int(lattice.sublattice[site])
+                        local_env.update(x=float(lattice.positions[site, 0]), y=float(lattice.positions[site, 1]),
+                                         sublattice=sub, eps=1 - 2 * (sub % 2))
+                    try:
+                        coupling = entry.coupling.evaluate(local_env)
+                    except ExpressionError as err:
+                        raise SpecError(f"{where}: {entry.label}: {err}") from None
                     couplings[len(bond.sites)] = coupling
             if coupling == 0:
                 continue
+            if factors is None:
+                factors = [_evaluate_factor(factor, env, where, entry) for factor, _ in entry.products]
             slots = bond.slots
-            for factor, names in entry.products:
-                coeff = _evaluate_factor(factor, env, where, entry) * coupling
-                if len(names) != bond.arity and all(m is None for _, m in names):
-                    raise SpecError(
-                        f"{where}: {entry.label}: {len(names)} operators for bonds of '{entry.on}' with "
-                        f"{bond.arity} members; give one operator per member"
-                    )
-                ops = []
-                for position, (name, member) in enumerate(names):
-                    slot = position if member is None else member
-                    if slot >= bond.arity:
-                        raise SpecError(
-                            f"{where}: {entry.label}: operator '{name}' targets member {slot}, but bonds of "
-                            f"'{entry.on}' have {bond.arity} members"
-                        )
-                    if slot in slots:
-                        ops.append((bond.sites[slots.index(slot)], name))
-                if entry.peierls and (flux or twist) and len(ops) == 2 and space.flux_charge:
-                    coeff *= _peierls_factor(lattice, bond, ops, slots, names, space, flux, twist,
-                                             charge_changes)
-                origin = f"{entry.label} on sites {bond.sites}"
-                terms.append(Term(coeff, tuple(ops), origin))
+            placement = placements.get(slots)
+            if placement is None:
+                placement = placements[slots] = _place_operators(entry, bond, where, space if peierls else None, charge_changes)
+            origin = f"{entry.label} on sites {bond.sites}"
+            for factor_value, (names, members, charges) in zip(factors, placement):
+                coeff = factor_value * coupling
+                ops = tuple((bond.sites[k], name) for k, name in members)
+                if peierls and charges is not None:
+                    if not charges:
+                        coeff *= 1.0  # as the factor of a pair that moves no flux charge (keeps zero signs alike)
+                    else:
+                        # ordered as the bond is: the charge raised at member 0, lowered at member 1
+                        q0 = charges[0] if members[0][0] == 0 else charges[1]
+                        if phases is None:
+                            phases = lattice.peierls_phases(bonds, flux=flux, twist=twist)
+                        phase = phases[bond_index]
+                        key = (q0, phase, math.copysign(1.0, phase))  # the sign of a zero matters below
+                        value = peierls_factors.get(key)
+                        if value is None:
+                            value = peierls_factors[key] = complex(np.exp(1j * q0 * phase))
+                        coeff *= value
+                terms.append(Term(coeff, ops, origin))
                 if entry.conjugate:
                     conjugated.add(origin)
     sector = _resolve_sector(spec, params, lattice.num_sites, space)
@@ -516,6 +549,60 @@ def check_size(spec: ModelSpec, params: Mapping[str, Any], *, memory_budget: int
                      budget=memory_budget)
 
 
+def _place_operators(entry, bond, where, space, cache) -> tuple:
+    """Where each product of an entry puts its operators on a bond with the members ``bond.slots``.
+
+    Returns, per product, ``(names, members, charges)`` with ``members`` the (index into
+    ``bond.sites``, operator name) pairs in written order (operators on members the bond lacks are
+    left out) and ``charges`` as :func:`_pair_charges` gives them for a pair (``None`` otherwise).
+    ``space`` is ``None`` where no Peierls factor applies (``charges`` is then ``None``); ``cache``
+    keeps the charge change of each operator name.
+    """
+    slots = bond.slots
+    out = []
+    for factor, names in entry.products:
+        if len(names) != bond.arity and all(m is None for _, m in names):
+            raise SpecError(
+                f"{where}: {entry.label}: {len(names)} operators for bonds of '{entry.on}' with "
+                f"{bond.arity} members; give one operator per member"
+            )
+        members = []
+        for position, (name, member) in enumerate(names):
+            slot = position if member is None else member
+            if slot >= bond.arity:
+                raise SpecError(
+                    f"{where}: {entry.label}: operator '{name}' targets member {slot}, but bonds of "
+                    f"'{entry.on}' have {bond.arity} members"
+                )
+            if slot in slots:
+                members.append((slots.index(slot), name))
+        charges = (_pair_charges([name for _, name in members], space, cache)
+                   if space is not None and len(members) == 2 else None)
+        out.append((names, tuple(members), charges))
+    return tuple(out)
+
+
+def _pair_charges(names, space, cache) -> tuple:
+    """The flux-charge changes (scaled) of a pair of operators if it moves the charge, else ``()``.
+
+    ``()`` where the site space has no flux charge, an operator changes it by no definite amount, or
+    the pair does not move it from one member to the other (the Peierls factor is then 1).
+    """
+    if not space.flux_charge:
+        return ()
+    changes = []
+    for name in names:
+        if name not in cache:
+            cache[name] = operator_charge_change(space, space.operator(name), space.flux_charge)
+        delta = cache[name]
+        if delta is None:
+            return ()
+        changes.append(delta * space.flux_charge_scale)
+    if changes[0] == 0 or abs(changes[0] + changes[1]) > 1e-12:
+        return ()
+    return tuple(changes)
+
+
 def _evaluate_factor(factor, env, where, entry):
     if isinstance(factor, int):
         return factor
@@ -524,28 +611,6 @@ def _evaluate_factor(factor, env, where, entry):
         return sign * expression.evaluate(env)
     except ExpressionError as err:
         raise SpecError(f"{where}: {entry.label}: {err}") from None
-
-
-def _peierls_factor(lattice, bond, ops, slots, names, space, flux, twist, cache=None) -> complex:
-    """exp(i q A) for a pair that moves the flux charge from one member to the other.
-
-    ``cache`` (a dict) keeps the charge change of each operator name between calls.
-    """
-    changes = []
-    cache = {} if cache is None else cache
-    for site, name in ops:
-        if name not in cache:
-            cache[name] = operator_charge_change(space, space.operator(name), space.flux_charge)
-        delta = cache[name]
-        if delta is None:
-            return 1.0
-        changes.append(delta * space.flux_charge_scale)
-    if changes[0] == 0 or abs(changes[0] + changes[1]) > 1e-12:
-        return 1.0
-    # order the pair as the bond does: charge raised at bond member 0, lowered at member 1
-    first_site = ops[0][0]
-    q0 = changes[0] if first_site == bond.sites[0] else changes[1]
-    return complex(np.exp(1j * q0 * lattice.peierls_phase(bond, flux=flux, twist=twist)))
 
 
 def _resolve_sector(spec: ModelSpec, params, num_sites: int, space: SiteSpace) -> dict[str, int]:
