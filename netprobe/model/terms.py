@@ -145,11 +145,23 @@ def normal_form(term: Term, space: SiteSpace) -> LocalProduct | None:
         For an unknown operator, or a term that changes the fermion parity (such a term cannot
         appear in a Hamiltonian).
     """
-    sites = [int(s) for s, _ in term.operators]
-    distinct = sorted(set(sites))
-    rank = {s: r for r, s in enumerate(distinct)}
-    ranks = tuple(rank[s] for s in sites)
-    key = (id(space), tuple(name for _, name in term.operators), ranks)
+    operators = term.operators
+    if len(operators) == 2:  # the common case (hopping, exchange): the ranks without sorting
+        (first, name0), (second, name1) = operators
+        first, second = int(first), int(second)
+        if first < second:
+            distinct, ranks = [first, second], (0, 1)
+        elif first > second:
+            distinct, ranks = [second, first], (1, 0)
+        else:
+            distinct, ranks = [first], (0, 0)
+        key = (id(space), (name0, name1), ranks)
+    else:
+        sites = [int(s) for s, _ in operators]
+        distinct = sorted(set(sites))
+        rank = {s: r for r, s in enumerate(distinct)}
+        ranks = tuple(rank[s] for s in sites)
+        key = (id(space), tuple(name for _, name in operators), ranks)
     pattern = _PATTERNS.get(key)
     if pattern is None:
         pattern = _Pattern.build(term, space, ranks)
@@ -163,6 +175,7 @@ def normal_form(term: Term, space: SiteSpace) -> LocalProduct | None:
 
 
 _PATTERN_LIMIT = 4096  # distinct (operators, site order) patterns kept; models have a handful
+_LAYOUT_LIMIT = 64  # string-length layouts kept per pattern (a cylinder's bonds have a few lengths)
 _PATTERNS: dict[tuple, tuple["_Pattern", SiteSpace]] = {}
 # adjoints of the pattern matrices, by id (the patterns hold the matrices, so the ids stay valid)
 _ADJOINTS: dict[int, tuple[np.ndarray, np.ndarray]] = {}
@@ -184,6 +197,9 @@ class _Pattern:
     pairs: tuple
     inside: bool
     string: np.ndarray | None
+    ends: dict = field(default_factory=dict)  # rank of each pair's first member -> rank of its second
+    # the matrix tuple of each tuple of string lengths met (one shared tuple for all such products)
+    layouts: dict = field(default_factory=dict, compare=False)
 
     @classmethod
     def build(cls, term: Term, space: SiteSpace, ranks: tuple[int, ...]) -> "_Pattern":
@@ -234,7 +250,7 @@ class _Pattern:
             adj.setflags(write=False)
             _ADJOINTS[id(mat)] = (mat, adj)
             kept.append((r, mat))
-        return cls(sign, tuple(scales), tuple(kept), pairs, inside, fmat)
+        return cls(sign, tuple(scales), tuple(kept), pairs, inside, fmat, dict(pairs))
 
     def place(self, term: Term, distinct: list[int]) -> LocalProduct | None:
         coefficient = complex(term.coefficient) * self.sign
@@ -252,17 +268,29 @@ class _Pattern:
                     local.setdefault(s, self.string)
             keep = sorted(local)
             return LocalProduct(coefficient, tuple(keep), tuple(local[s] for s in keep), term.origin)
-        starts = {p: distinct[q] for p, q in self.pairs}
-        sites, mats = [], []
-        for r, m in self.kept:
+        ends = self.ends
+        sites, gaps = [], []
+        for r, _ in self.kept:
             s = distinct[r]
             sites.append(s)
-            mats.append(m)
-            end = starts.get(r)
-            if end is not None and end > s + 1:
+            q = ends.get(r)
+            if q is not None and distinct[q] > s + 1:
+                end = distinct[q]
                 sites.extend(range(s + 1, end))
-                mats.extend([self.string] * (end - s - 1))
-        return LocalProduct(coefficient, tuple(sites), tuple(mats), term.origin)
+                gaps.append(end - s - 1)
+            else:
+                gaps.append(0)
+        gaps = tuple(gaps)
+        mats = self.layouts.get(gaps)
+        if mats is None:
+            listed = []
+            for (_, m), gap in zip(self.kept, gaps):
+                listed.append(m)
+                listed.extend([self.string] * gap)
+            mats = tuple(listed)
+            if len(self.layouts) < _LAYOUT_LIMIT:
+                self.layouts[gaps] = mats
+        return LocalProduct(coefficient, tuple(sites), mats, term.origin)
 
 
 def _any_complex(products) -> bool:
