@@ -302,7 +302,6 @@ class Lattice:
             names += ["dangling_left", "dangling_right"]
         self._family_names = tuple(names)
         self._families: dict[str, tuple[Bond, ...]] = {}
-        self._placed_at: dict[tuple[int, int, int], np.ndarray] = {}
 
     @property
     def num_sites(self) -> int:
@@ -335,32 +334,17 @@ class Lattice:
             bonds = self._families[name] = self._instantiate(name)
         return bonds
 
-    def _wrap_member(self, ix, iy):
-        """Map a cell to the finite lattice; returns (ix, iy, winding) or None if it falls off."""
-        L, W = self.length, self.circumference
-        if self.geometry == "torus":
-            ix %= L
-        elif not 0 <= ix < L:
-            return None
-        if self.geometry == "strip":
-            if not 0 <= iy < W:
-                return None
-            return ix, iy, 0
-        return ix, iy % W, iy // W
-
-    def _position(self, ix, iy, s):
-        """Position of a bond member (each recurs in several bonds and families: computed once)."""
-        key = (ix, iy, s)
-        pos = self._placed_at.get(key)
-        if pos is None:
-            pos = self._placed_at[key] = self._cell.position(ix, iy, s)
-        return pos
+    def _cell_positions(self, ix: np.ndarray, iy: np.ndarray, s) -> np.ndarray:
+        """:meth:`_CellGeometry.position` for arrays of cells, row by row the same arithmetic."""
+        cell = self._cell
+        basis = np.array(cell.basis, dtype=float)[s]
+        return ix[:, None] * np.array(cell.a1) + iy[:, None] * np.array(cell.a2) + basis
 
     def _instantiate(self, name: str) -> tuple[Bond, ...]:
         """The bonds of one family, in the order of its templates and of the cells."""
         if name == "sites":
-            return tuple(Bond((k,), self._cell.position(ix, iy, self.sublattice[k])[None, :], "", (0,), 1)
-                         for k, (ix, iy) in enumerate(self.cells))
+            places = self._cell_positions(self.cells[:, 0], self.cells[:, 1], self.sublattice)
+            return tuple(Bond((k,), places[k][None, :], "", (0,), 1) for k in range(self.num_sites))
         if name in ("dangling_left", "dangling_right"):  # honeycomb: outer ends of the links at a zigzag end
             count = np.zeros(self.num_sites, np.int64)
             for bond in self.family("nn"):
@@ -369,34 +353,66 @@ class Lattice:
             middle = 0.5 * (self.positions[:, 0].min() + self.positions[:, 0].max())
             left = name == "dangling_left"
             return tuple(b for b in dangling if (self.positions[b.sites[0], 0] < middle) == left)
-        position = self._position
+        L, W = self.length, self.circumference
+        nb = len(self._cell.basis)
+        index = np.full((L, W, nb), -1, dtype=np.int64)  # MPS index of each (ix, iy, s)
+        for key, k in self._index.items():
+            index[key] = k
+        # the cells in the order of itertools.product(range(L), range(W))
+        cx = np.repeat(np.arange(L, dtype=np.int64), W)
+        cy = np.tile(np.arange(W, dtype=np.int64), L)
         bonds: list[Bond] = []
         for t in self._templates:
             if t.family != name:
                 continue
+            m = len(t.members)
+            present, sites, winds, places = [], [], [], []
+            for dx, dy, s in t.members:  # each member mapped onto the finite lattice for all cells at once
+                jx, jy = cx + dx, cy + dy
+                ok = np.ones(len(cx), dtype=bool)
+                if self.geometry == "torus":
+                    jx = jx % L
+                else:
+                    ok &= (jx >= 0) & (jx < L)
+                if self.geometry == "strip":
+                    ok &= (jy >= 0) & (jy < W)
+                    wind = np.zeros_like(jy)
+                else:
+                    wind = jy // W
+                    jy = jy % W
+                site = np.where(ok, index[np.where(ok, jx, 0), np.where(ok, jy, 0), s], -1)
+                present.append(ok)
+                sites.append(site)
+                winds.append(wind)
+                places.append(self._cell_positions(cx + dx, cy + dy, s))
+            present = np.stack(present, axis=1).tolist()
+            sites = np.stack(sites, axis=1).tolist()
+            winds = np.stack(winds, axis=1).tolist()
+            places = np.stack(places, axis=1)  # (cells, members, 2), unwrapped coordinates
+            whole = tuple(range(m))
             seen = set()
-            for ix, iy in itertools.product(range(self.length), range(self.circumference)):
-                sites, positions, winds, slots = [], [], [], []
-                for slot, (dx, dy, s) in enumerate(t.members):
-                    placed = self._wrap_member(ix + dx, iy + dy)
-                    if placed is None:
+            for c in range(len(cx)):
+                here = present[c]
+                if all(here):
+                    slots = whole
+                    bond_sites = tuple(sites[c])
+                    bond_winds = tuple(winds[c])
+                else:
+                    slots = tuple(k for k in whole if here[k])
+                    if not (t.partial_ok and len(slots) >= 2):
                         continue
-                    jx, jy, w = placed
-                    slots.append(slot)
-                    sites.append(self._index[(jx, jy, s)])
-                    positions.append(position(ix + dx, iy + dy, s))
-                    winds.append(w)
-                if len(sites) < len(t.members) and not (t.partial_ok and len(sites) >= 2):
-                    continue
-                if len(set(sites)) < len(sites):
+                    bond_sites = tuple(sites[c][k] for k in slots)
+                    bond_winds = tuple(winds[c][k] for k in slots)
+                if len(set(bond_sites)) < len(bond_sites):
                     continue  # members coincide on a too-small lattice
-                if self.circumference == 1 and self.geometry != "strip" and len(set(winds)) > 1:
+                if self.circumference == 1 and self.geometry != "strip" and len(set(bond_winds)) > 1:
                     continue  # a bond around a width-1 cylinder would join a site to itself's image
-                key = tuple(sites), tuple(winds)
+                key = bond_sites, bond_winds
                 if key in seen:
                     continue
                 seen.add(key)
-                bonds.append(Bond(tuple(sites), np.array(positions), t.kind, tuple(slots), len(t.members)))
+                positions = places[c] if slots is whole else places[c, list(slots)]
+                bonds.append(Bond(bond_sites, positions, t.kind, slots, m))
         return tuple(bonds)
 
     def peierls_phase(self, bond: Bond, *, flux: float = 0.0, twist: float = 0.0) -> float:
