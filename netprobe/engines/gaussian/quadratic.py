@@ -475,7 +475,9 @@ def _collect(products, mode_map: _ModeMap) -> _Collector:
         lay = layouts[key]
         if lay.vanishes:
             continue
-        sites = np.array([products[i].sites for i in members], dtype=np.int64).reshape(len(members), -1)
+        width = len(products[members[0]].sites)  # one layout, one number of sites
+        sites = np.fromiter(itertools.chain.from_iterable([products[i].sites for i in members]), dtype=np.int64,
+                            count=len(members) * width).reshape(len(members), width)
         fmodes = np.sort(sites[:, lay.f_index] * k + lay.f_offset, axis=1)
         odd = sites[:, lay.odd_index] * k + lay.odd_offset
         if not lay.varying and odd.shape[1] in (0, 2):  # the common case, for all members at once
