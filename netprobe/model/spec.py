@@ -496,7 +496,8 @@ def build_model(spec: ModelSpec, overrides: Mapping[str, str] | None = None, *,
             slots = bond.slots
             placement = placements.get(slots)
             if placement is None:
-                placement = placements[slots] = _place_operators(entry, bond, where, space if peierls else None, charge_changes)
+                placement = placements[slots] = _place_operators(entry, bond, where, space if peierls else None,
+                                                                 charge_changes)
             origin = f"{entry.label} on sites {bond.sites}"
             for factor_value, (names, members, charges) in zip(factors, placement):
                 coeff = factor_value * coupling
