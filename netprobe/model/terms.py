@@ -197,7 +197,7 @@ class _Pattern:
     pairs: tuple
     inside: bool
     string: np.ndarray | None
-    ends: dict = field(default_factory=dict)  # rank of each pair's first member -> rank of its second
+    ends: dict = field(default_factory=dict, compare=False)  # rank of each pair's first member -> rank of its second
     # the matrix tuple of each tuple of string lengths met (one shared tuple for all such products)
     layouts: dict = field(default_factory=dict, compare=False)
 
