@@ -367,6 +367,44 @@ def test_split_walks_done_in_pieces_equal_the_dense_vector_route(monkeypatch, na
     assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
 
 
+@pytest.mark.parametrize("name, overrides, sites", [
+    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, (1, 2, 5, 9, 10)),
+    ("kagome_chiral", {}, (0, 2, 3, 7, 8, 11)),  # complex
+    ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, (0, 2, 3, 7, 9, 10)),  # fermion strings
+])
+def test_split_walk_cut_by_the_bras_first_sites_equals_the_dense_vector_route(monkeypatch, name, overrides, sites):
+    # reference: the partial trace of the dense state vector (common practice)
+    model = load_model(name, overrides)
+    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
+    ref = rdm.reduced_density_matrix(state.to_vector(), list(sites), model.space)
+    # no deeper streaming: a budget just under the one-step plan's peak leaves only the right walk in pieces
+    monkeypatch.setattr(split_route, "MAX_STREAMED", 1)
+    item = np.dtype(state.dtype).itemsize
+    shallow = split_route._plan(state, sites, 1e30)
+    budget = int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * item)
+    cut = split_route._plan(state, sites, split_route._budget_entries(state, sites, budget))
+    assert len(cut.fixes) > 1 and cut.peak < shallow.peak
+    estimate = rdm.estimate_rdm_memory(state, list(sites), model.space, method="split", memory_budget=budget)
+    seen = []
+    original = rdm_tables.WalkMeter.check
+
+    def spy(meter, entries, site, width):
+        seen.append(entries * meter.itemsize)
+        return original(meter, entries, site, width)
+
+    monkeypatch.setattr(rdm_tables.WalkMeter, "check", spy)
+    blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
+    assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
+    # every piece's own check (planned sizes) stays within the up-front estimate
+    assert seen and max(seen) <= estimate * 1.0001
+    # and the pieces of the join cut further into single bond states
+    monkeypatch.setattr(split_route, "CHUNK_ENTRIES", 1.0)
+    monkeypatch.setattr(split_route, "CHUNK_FRACTION", 0.0)
+    monkeypatch.setattr(split_route, "CHUNK_MIN", 1)
+    blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
+    assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
+
+
 @pytest.mark.slow
 @pytest.mark.parametrize("name, overrides, size, bond", [
     ("heisenberg", {"lattice": "square", "circumference": "4", "length": "6"}, 10, 64),
@@ -413,8 +451,10 @@ def test_split_walks_stay_within_their_estimate():
         rdm_tables.WalkMeter.check = original
     # every step's own check (actual sizes) stays within the up-front estimate (exact sector counts)
     assert seen and max(seen) <= estimate * 1.0001
+    # every plan holds the blocks of rho (even with the right walk in pieces): half of them is refused
+    held = split_route._plan(state, sites, 1e30).held * np.dtype(state.dtype).itemsize
     with pytest.raises(MemoryBudgetError, match="split walk over 7 sites"):
-        rdm.reduced_root(state, sites, spins.space, method="split", memory_budget=int(estimate / 2))
+        rdm.reduced_root(state, sites, spins.space, method="split", memory_budget=int(held / 2))
 
 
 def test_dmrg_ground_state_rdm_matches_exact_engine():
