@@ -340,6 +340,28 @@ def test_block_eigenvalues_match_scipy(rng, dtype):
     assert np.allclose(hermitian_eigenvalues(small), scipy.linalg.eigvalsh(small), atol=tol(ref.max()))
 
 
+@pytest.mark.parametrize("name, overrides, sites", [
+    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, (1, 2, 5, 9, 10)),
+    ("kagome_chiral", {}, (0, 2, 3, 7, 8, 11)),  # complex
+    ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, (0, 2, 3, 7, 9, 10)),  # fermion strings
+])
+def test_split_walk_steps_on_several_threads_equal_the_dense_vector_route(monkeypatch, name, overrides, sites):
+    # reference: the partial trace of the dense state vector (common practice); every step split among
+    # three threads by ket sector, the right walk also in pieces (the bra legs of its own)
+    model = load_model(name, overrides)
+    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
+    ref = rdm.reduced_density_matrix(state.to_vector(), list(sites), model.space)
+    monkeypatch.setattr(split_route, "PARALLEL_ENTRIES", 0)
+    monkeypatch.setattr(split_route, "_blas_threads", lambda: 3)
+    rho = rdm.reduced_density_matrix(state, list(sites), model.space, method="split")
+    assert np.allclose(rho, ref, atol=tol(factor=1e4))
+    monkeypatch.setattr(split_route, "MAX_STREAMED", 1)
+    shallow = split_route._plan(state, sites, 1e30)
+    budget = int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * np.dtype(state.dtype).itemsize)
+    blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
+    assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
+
+
 @pytest.mark.parametrize("workers", [1, 2])
 def test_blocks_side_by_side_give_scipys_eigenvalues(rng, workers):
     # reference: scipy's one-stage eigvalsh (general-purpose library), to n eps ||H|| as above (common

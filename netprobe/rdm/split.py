@@ -30,14 +30,19 @@ matrix products.
 
 from __future__ import annotations
 
+import threading
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from itertools import product
 
 import numpy as np
 
+from threadpoolctl import threadpool_limits
+
 from netprobe.resources import resolve_budget
 from netprobe.rdm.common import BlockedRho, RootBlock, _grading_of, _labels
 from netprobe.rdm.root import UngradedParity
+from netprobe.rdm.spectra import _blas_threads
 from netprobe.rdm.tables import (
     WalkMeter, _add, _bond_counts, _centred_copy, _fuse_tables, _pairs_by_charge, _parity_graded, _sector_parity,
 )
@@ -141,60 +146,102 @@ def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _O
     legs = (o_leg, ob_leg.dual(), a.legs[2], a.legs[2].dual())
     dtype = np.result_type(g.dtype, a.dtype)
     out: dict = {}
-    for (o, ob, b, bb), blk in g.blocks.items():
-        kets = by_bond.get(b, ())
-        bras = by_bond.get(bb, ())
-        if bra_sectors is not None:
-            bras = [_bra_chunk(item, bra_sectors) for item in bras if item[1] in bra_sectors]
-        if open_site and keep is not None:
-            bras = [item for item in bras if item[0] in keep]
-        if not kets or not bras:
-            continue
-        odd = False
-        if fermionic and not open_site:
-            po, pob = side.parity[o], bra_side.parity[ob]
-            if po is None or pob is None:
-                raise UngradedParity
-            odd = bool(po ^ pob)
-        x, y, nb, nbb = blk.shape
-        flat = blk.reshape(x * y * nb, nbb)
-        for sb, cb, kb, kbmat in bras:
-            s_dim, n_cb = kb.shape[1], kb.shape[2]
-            t = (flat @ kbmat.conj()).reshape(x * y, nb * s_dim, n_cb)  # (O O*, (b, s*), c*)
-            for ss, c, ka, kamat in kets:
-                if not open_site:
-                    if ss != sb:
-                        continue
-                    # sum over (b, s): ka read as ((b, s), c)
-                    part = np.matmul(kamat.reshape(nb * s_dim, ka.shape[2]).T, t)  # (O O*, c, c*)
-                    if odd and phys.parity[ss]:
-                        part = np.negative(part, out=part)
-                    key = (o, ob, c, cb)
-                    part = part.reshape(x, y, ka.shape[2], n_cb)
-                    target = out.get(key)
-                    if target is None:
-                        out[key] = part
+    lock = threading.Lock()
+
+    def run(items):
+        for (o, ob, b, bb), blk in items:
+            kets = by_bond.get(b, ())
+            bras = by_bond.get(bb, ())
+            if bra_sectors is not None:
+                bras = [_bra_chunk(item, bra_sectors) for item in bras if item[1] in bra_sectors]
+            if open_site and keep is not None:
+                bras = [item for item in bras if item[0] in keep]
+            if not kets or not bras:
+                continue
+            odd = False
+            if fermionic and not open_site:
+                po, pob = side.parity[o], bra_side.parity[ob]
+                if po is None or pob is None:
+                    raise UngradedParity
+                odd = bool(po ^ pob)
+            x, y, nb, nbb = blk.shape
+            flat = blk.reshape(x * y * nb, nbb)
+            for sb, cb, kb, kbmat in bras:
+                s_dim, n_cb = kb.shape[1], kb.shape[2]
+                t = (flat @ kbmat.conj()).reshape(x * y, nb * s_dim, n_cb)  # (O O*, (b, s*), c*)
+                for ss, c, ka, kamat in kets:
+                    if not open_site:
+                        if ss != sb:
+                            continue
+                        # sum over (b, s): ka read as ((b, s), c)
+                        part = np.matmul(kamat.reshape(nb * s_dim, ka.shape[2]).T, t)  # (O O*, c, c*)
+                        if odd and phys.parity[ss]:
+                            part = np.negative(part, out=part)
+                        key = (o, ob, c, cb)
+                        part = part.reshape(x, y, ka.shape[2], n_cb)
+                        target = out.get(key)
+                        if target is None:
+                            out[key] = part
+                        else:
+                            target += part
                     else:
-                        target += part
-                else:
-                    sd = ka.shape[1]
-                    # sum over b: ka read as (b, (s, c)); t read as (O O*, b, (s*, c*))
-                    part = np.matmul(kamat.T, t.reshape(x * y, nb, s_dim * n_cb))  # (O O*, (s, c), (s*, c*))
-                    n, off, size = place[(o, ss)]
-                    nbk, offb, sizeb = place_b[(ob, sb)]
-                    key = (n, nbk, c, cb)
-                    target = out.get(key)
-                    if target is None:
-                        shape = (int(o_leg.dims[n]), int(ob_leg.dims[nbk]), ka.shape[2], n_cb)
-                        target = out[key] = np.zeros(shape, dtype)
-                    view = target[off:off + size, offb:offb + sizeb]
-                    view = view.reshape(x, sd, y, s_dim, ka.shape[2], n_cb)
-                    view += part.reshape(x, y, sd, ka.shape[2], s_dim, n_cb).transpose(0, 2, 1, 4, 3, 5)
-                del part
-            del t
+                        sd = ka.shape[1]
+                        # sum over b: ka read as (b, (s, c)); t read as (O O*, b, (s*, c*))
+                        part = np.matmul(kamat.T, t.reshape(x * y, nb, s_dim * n_cb))  # (O O*, (s, c), (s*, c*))
+                        n, off, size = place[(o, ss)]
+                        nbk, offb, sizeb = place_b[(ob, sb)]
+                        key = (n, nbk, c, cb)
+                        target = out.get(key)
+                        if target is None:
+                            with lock:  # another ket sector may be creating the same output block
+                                target = out.get(key)
+                                if target is None:
+                                    shape = (int(o_leg.dims[n]), int(ob_leg.dims[nbk]), ka.shape[2], n_cb)
+                                    target = out[key] = np.zeros(shape, dtype)
+                        view = target[off:off + size, offb:offb + sizeb]
+                        view = view.reshape(x, sd, y, s_dim, ka.shape[2], n_cb)
+                        view += part.reshape(x, y, sd, ka.shape[2], s_dim, n_cb).transpose(0, 2, 1, 4, 3, 5)
+                    del part
+                del t
+
+    _run_by_ket_sector(run, g.blocks)
     if isinstance(bra_sectors, dict) and any(r is not None for r in bra_sectors.values()):
         return _Piece(legs, rule, out, dtype), new_side, new_bra  # c* cut to a range: not a whole leg
     return BlockTensor(legs, None, rule, out, dtype=dtype), new_side, new_bra
+
+
+#: Layers of at least this many entries have their blocks worked on by several threads (one BLAS thread each).
+PARALLEL_ENTRIES = 2**22
+
+
+def _run_by_ket_sector(run, blocks: dict) -> None:
+    """``run(items)`` over the blocks of a layer, split by ket open sector among the BLAS's threads.
+
+    Every output block (or, at an open site, every row range of one) comes from the input blocks of
+    one ket open sector ``O``, so the groups write to disjoint memory and each output sums its parts
+    in the order of a single pass. With one BLAS thread (``OMP_NUM_THREADS=1``) or a small layer it
+    is a single pass; otherwise each group runs on one BLAS thread, which keeps both cores busy on
+    the small products of the walks where a two-thread BLAS mostly waits.
+    """
+    items = list(blocks.items())
+    workers = _blas_threads()
+    if workers <= 1 or sum(v.size for _, v in items) < PARALLEL_ENTRIES:
+        run(items)
+        return
+    groups: dict = {}
+    for item in items:
+        groups.setdefault(item[0][0], []).append(item)
+    # largest groups first, each to the least loaded worker
+    shares = [[] for _ in range(workers)]
+    loads = [0] * workers
+    for grp in sorted(groups.values(), key=lambda g: -sum(v.size for _, v in g)):
+        i = loads.index(min(loads))
+        shares[i] += grp
+        loads[i] += sum(v.size for _, v in grp)
+    shares = [sh for sh in shares if sh]
+    with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(len(shares)) as pool:
+        for done in [pool.submit(run, sh) for sh in shares]:
+            done.result()
 
 
 @dataclass
