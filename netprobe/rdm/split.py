@@ -223,21 +223,29 @@ def _run_by_ket_sector(run, blocks: dict) -> None:
     is a single pass; otherwise each group runs on one BLAS thread, which keeps both cores busy on
     the small products of the walks where a two-thread BLAS mostly waits.
     """
-    items = list(blocks.items())
+    _run_grouped(run, list(blocks.items()), lambda item: item[0][0], lambda item: item[1].size)
+
+
+def _run_grouped(run, items: list, group_of, size_of) -> None:
+    """``run`` over ``items`` in one pass, or over groups (``group_of``) on the BLAS's threads, one BLAS thread each.
+
+    Groups go whole to one worker, largest first to the least loaded (by ``size_of``); below
+    ``PARALLEL_ENTRIES`` in all, or with one BLAS thread, a single pass in the given order.
+    """
     workers = _blas_threads()
-    if workers <= 1 or sum(v.size for _, v in items) < PARALLEL_ENTRIES:
+    total = sum(size_of(it) for it in items)
+    if workers <= 1 or total < PARALLEL_ENTRIES:
         run(items)
         return
     groups: dict = {}
     for item in items:
-        groups.setdefault(item[0][0], []).append(item)
-    # largest groups first, each to the least loaded worker
+        groups.setdefault(group_of(item), []).append(item)
     shares = [[] for _ in range(workers)]
     loads = [0] * workers
-    for grp in sorted(groups.values(), key=lambda g: -sum(v.size for _, v in g)):
+    for grp in sorted(groups.values(), key=lambda g: -sum(size_of(it) for it in g)):
         i = loads.index(min(loads))
         shares[i] += grp
-        loads[i] += sum(v.size for _, v in grp)
+        loads[i] += sum(size_of(it) for it in grp)
     shares = [sh for sh in shares if sh]
     with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(len(shares)) as pool:
         for done in [pool.submit(run, sh) for sh in shares]:
@@ -479,6 +487,7 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
         return peaks, finals, max(extra, 0.0), float(sum(produced.values()))
 
     single = len(sites) == 1
+    workers = max(1, _blas_threads())  # the join's threads each hold their own products
     # the pieces of the join need not be larger than a fraction of what the join holds anyway
     chunk = max(CHUNK_ENTRIES, CHUNK_FRACTION * held)
 
@@ -523,7 +532,7 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
                         cuts = np.linspace(0, dim, count + 1).astype(int)
                         units += [(j, int(a), int(b), need * (b - a) / max(dim, 1))
                                   for a, b in zip(cuts[:-1], cuts[1:])]
-                    join = inputs + max((u[3] for u in units), default=0.0) + held + 3.0 * part
+                    join = inputs + max((u[3] for u in units), default=0.0) + held + 3.0 * workers * part
                     peak = max(walk_left, walk_right, join)
                     extra = lx + rx
                     if budget is None:
@@ -596,7 +605,7 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
                         cuts_j = np.linspace(0, dim, count + 1).astype(int)
                         units += [(j, int(a), int(b), need * (b - a) / max(dim, 1))
                                   for a, b in zip(cuts_j[:-1], cuts_j[1:])]
-                    join = inputs + max((u[3] for u in units), default=0.0) + held + 4.0 * part
+                    join = inputs + max((u[3] for u in units), default=0.0) + held + 4.0 * workers * part
                     peak = max(walk_left, walk_right, join)
                     extra = lx + (len(fixes) - 1) * made
                     # among the plans that fit, the least work: entries of every layer and piece computed
@@ -637,38 +646,48 @@ def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dic
     right_groups: dict = {}
     for (sr, srb, bk, bb), blk in g_right.blocks.items():
         right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
-    for (sl, slb), lefts in left_groups.items():
-        for (sr, srb), rights in right_groups.items():
-            srb, pos = (srb, None) if bra_right is None else bra_right[srb]
-            total, r0, rn = place[(sl, sr)]
-            total_b, c0, cn = place[(slb, srb)]
-            if total != total_b or r0 > c0:
-                continue  # a pair of charges that rho does not connect; the lower half comes by hermiticity
-            part = None
-            for key, blk in lefts.items():
-                other = rights.get(key)
-                if other is None:
-                    continue
-                # (O_L O_L*, (b b*)) times ((b b*), O_R O_R*): one product, no copies of the layers
+    lock = threading.Lock()
+
+    def run(items):
+        for (sl, slb), lefts in items:
+            for (sr, srb), rights in right_groups.items():
+                srb, pos = (srb, None) if bra_right is None else bra_right[srb]
+                total, r0, rn = place[(sl, sr)]
+                total_b, c0, cn = place[(slb, srb)]
+                if total != total_b or r0 > c0:
+                    continue  # a pair of charges that rho does not connect; the lower half comes by hermiticity
+                part = None
+                for key, blk in lefts.items():
+                    other = rights.get(key)
+                    if other is None:
+                        continue
+                    # (O_L O_L*, (b b*)) times ((b b*), O_R O_R*): one product, no copies of the layers
+                    if part is None:
+                        part = blk @ other.T
+                    else:
+                        part += blk @ other.T
                 if part is None:
-                    part = blk @ other.T
-                else:
-                    part += blk @ other.T
-            if part is None:
-                continue
-            target = mats.get(total)
-            if target is None:
-                target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
-            xl, yl = len(side_left.codes[sl]), len(side_left.codes[slb])
-            xr, yr = len(side_right.codes[sr]), len(side_right.codes[srb])
-            if pos is None:
-                view = target[r0:r0 + rn, c0:c0 + cn].reshape(xl, xr, yl, yr)
-                view += part.reshape(xl, yl, xr, yr).transpose(0, 2, 1, 3)
-            else:  # the piece's columns: (O_L*, O_R*) with O_R* at ``pos`` of its sector (distinct columns)
-                cols = (c0 + np.arange(yl)[:, None] * yr + pos[None, :]).ravel()
-                target[r0:r0 + rn, cols] += part.reshape(xl, yl, xr, len(pos)).transpose(0, 2, 1, 3).reshape(
-                    xl * xr, yl * len(pos))
-            del part
+                    continue
+                target = mats.get(total)
+                if target is None:
+                    with lock:  # another left sector may be creating the same block
+                        target = mats.get(total)
+                        if target is None:
+                            target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
+                xl, yl = len(side_left.codes[sl]), len(side_left.codes[slb])
+                xr, yr = len(side_right.codes[sr]), len(side_right.codes[srb])
+                if pos is None:
+                    view = target[r0:r0 + rn, c0:c0 + cn].reshape(xl, xr, yl, yr)
+                    view += part.reshape(xl, yl, xr, yr).transpose(0, 2, 1, 3)
+                else:  # the piece's columns: (O_L*, O_R*) with O_R* at ``pos`` of its sector (distinct columns)
+                    cols = (c0 + np.arange(yl)[:, None] * yr + pos[None, :]).ravel()
+                    target[r0:r0 + rn, cols] += part.reshape(xl, yl, xr, len(pos)).transpose(0, 2, 1, 3).reshape(
+                        xl * xr, yl * len(pos))
+                del part
+
+    # each left open sector sl writes its own rows of rho: the groups run side by side
+    _run_grouped(run, list(left_groups.items()), lambda item: item[0][0],
+                 lambda item: sum(v.size for v in item[1].values()))
 
 
 def _budget_entries(state, sites, budget) -> float:
