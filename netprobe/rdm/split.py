@@ -26,6 +26,18 @@ walks' inputs to their last steps, the two pieces of sector ``j``, the blocks of
 largest product of two layer blocks; the square root then holds the blocks and one
 eigendecomposition. Layers are kept as ``G[O, O*, b, b*]`` so that every step and the join are plain
 matrix products.
+
+Where even that does not fit the budget (two halves of many open sites with traced sites between
+them, so that one walk must carry a large layer past them), the right walk runs in pieces: each
+piece fixes the bra's physical sector on the walk's first open sites, so its bra leg ``O*`` is a
+part of the configurations and the pieces are disjoint through every step (nothing is computed
+twice on the right); each piece is joined on its own into its columns of rho, and only the left
+walk's streamed steps are redone per piece. The planner takes the fewest pieces, and among the plans
+that fit the one with the fewest entries computed in all.
+
+Threads: with more than one BLAS thread, large walk steps and the join split their work by ket open
+sector (each group writes disjoint rows) among that many Python threads with one BLAS thread each;
+the products of the walks are small, where a multi-threaded BLAS gains little.
 """
 
 from __future__ import annotations
