@@ -32,8 +32,8 @@ them, so that one walk must carry a large layer past them), the right walk runs 
 piece fixes the bra's physical sector on the walk's first open sites, so its bra leg ``O*`` is a
 part of the configurations and the pieces are disjoint through every step (nothing is computed
 twice on the right); each piece is joined on its own into its columns of rho, and only the left
-walk's streamed steps are redone per piece. The planner takes the fewest pieces, and among the plans
-that fit the one with the fewest entries computed in all.
+walk's streamed steps are redone per piece. Among such plans that fit, the planner takes the one
+with the fewest entries computed in all (split point, pieces, streamed depth).
 
 Threads: with more than one BLAS thread, large walk steps and the join split their work by ket open
 sector (each group writes disjoint rows) among that many Python threads with one BLAS thread each;
