@@ -9,7 +9,10 @@ one (``--state``) or a seeded random MPS of bond dimension ``--bond`` in the mod
 indices and bond dimension, complex if the model is: the spin state of the same geometry that a
 fermionic region is compared with. Prints the time, the route, the memory estimate, the resident
 memory before the measurement and the peak (VmHWM), and the CPU seconds of the process (on a
-shared machine the wall time also counts the waits for a core).
+shared machine the wall time also counts the waits for a core). ``--profile`` adds ``phases``: wall
+seconds spent in the walk steps, the join, the eigenvalues of the blocks, the eigendecompositions
+for K_AB and K_BC, the J products and the planning (cumulative, main thread, which waits for its
+worker threads inside the same calls).
 """
 
 from __future__ import annotations
@@ -29,6 +32,31 @@ def _rss(key: str) -> int:
     return int(value) if value is not None else 0  # bytes
 
 
+#: (module file, function) -> phase name for ``--profile``
+_PHASES = {
+    ("split.py", "_double_layer_step"): "walk_steps",
+    ("split.py", "_join_into"): "join",
+    ("split.py", "_plan"): "planning",
+    ("spectra.py", "block_eigenvalues"): "eigenvalues",
+    ("blocked.py", "eigh"): "eigh_ab_bc",
+    ("blocked.py", "prefix_suffix_trace"): "j_products",
+    ("blocked.py", "subset_rho"): "partial_traces",
+}
+
+
+def _phases(prof) -> dict:
+    """Cumulative wall seconds of the phases in :data:`_PHASES` (outermost calls only)."""
+    import os
+    import pstats
+
+    out = {name: 0.0 for name in _PHASES.values()}
+    for (path, _, func), (_, _, _, cum, _) in pstats.Stats(prof).stats.items():
+        name = _PHASES.get((os.path.basename(path), func))
+        if name is not None:
+            out[name] += cum
+    return {k: round(v, 2) for k, v in out.items()}
+
+
 def main(argv=None) -> int:
     from benchmarks.rdm_probe import disk_parts
     from netprobe.engines.mps import MPS, random_state
@@ -45,6 +73,7 @@ def main(argv=None) -> int:
     p.add_argument("--seed", type=int, default=5)
     p.add_argument("--spin-twin", action="store_true")
     p.add_argument("--budget-gb", type=float, default=16.0)
+    p.add_argument("--profile", action="store_true")
     args = p.parse_args(argv)
     overrides = dict(item.split("=", 1) for item in args.set)
     model = load_model(args.model, overrides)
@@ -63,8 +92,18 @@ def main(argv=None) -> int:
         space = model.space
     baseline = _rss("VmRSS")
     start, cpu = time.perf_counter(), time.process_time()
+    prof = None
+    if args.profile:
+        import cProfile
+
+        prof = cProfile.Profile(time.perf_counter)
+        prof.enable()
     report = measure_probes(state, parts, space, probes=("S", "CMI", "J"), memory_budget=int(args.budget_gb * 1e9))
     seconds, cpu = time.perf_counter() - start, time.process_time() - cpu
+    phases = None
+    if prof is not None:
+        prof.disable()
+        phases = _phases(prof)
     peak = _rss("VmHWM")
     print(json.dumps({
         "seconds": seconds, "cpu_seconds": cpu, "route": report.route, "J": report.modular_commutator.value,
@@ -72,6 +111,7 @@ def main(argv=None) -> int:
         "estimate_bytes": report.memory_estimate, "baseline_rss_bytes": baseline,
         "peak_rss_bytes": peak, "parts": parts, "num_sites": model.num_sites,
         "max_bond": state.max_bond_dimension, "dtype": str(state.dtype), "fermionic": space.fermionic,
+        "phases": phases,
     }))
     return 0
 

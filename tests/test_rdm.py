@@ -345,6 +345,47 @@ def test_block_eigenvalues_match_scipy(rng, dtype):
     ("kagome_chiral", {}, (0, 2, 3, 7, 8, 11)),  # complex
     ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, (0, 2, 3, 7, 9, 10)),  # fermion strings
 ])
+def test_split_walk_steps_on_several_threads_equal_the_dense_vector_route(monkeypatch, name, overrides, sites):
+    # reference: the partial trace of the dense state vector (common practice); every step split among
+    # three threads by ket sector, the right walk also in pieces (the bra legs of its own)
+    model = load_model(name, overrides)
+    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
+    ref = rdm.reduced_density_matrix(state.to_vector(), list(sites), model.space)
+    monkeypatch.setattr(split_route, "PARALLEL_ENTRIES", 0)
+    monkeypatch.setattr(split_route, "_blas_threads", lambda: 3)
+    rho = rdm.reduced_density_matrix(state, list(sites), model.space, method="split")
+    assert np.allclose(rho, ref, atol=tol(factor=1e4))
+    monkeypatch.setattr(split_route, "MAX_STREAMED", 1)
+    shallow = split_route._plan(state, sites, 1e30)
+    budget = int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * np.dtype(state.dtype).itemsize)
+    blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
+    assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_blocks_side_by_side_give_scipys_eigenvalues(rng, workers):
+    # reference: scipy's one-stage eigvalsh (general-purpose library), to n eps ||H|| as above (common
+    # practice); the blocks come back in the order given whatever order the workers take them in
+    from netprobe.rdm.spectra import TWO_STAGE_MIN, block_eigenvalues
+
+    sizes = [5, TWO_STAGE_MIN + 40, TWO_STAGE_MIN, TWO_STAGE_MIN + 80, 30]
+    mats = []
+    for n, dtype in zip(sizes, [np.complex128, np.float64, np.complex128, np.complex128, np.float64]):
+        x = rng.standard_normal((n, n)) + (1j * rng.standard_normal((n, n)) if dtype is np.complex128 else 0.0)
+        mats.append((x @ x.conj().T).astype(dtype))
+    kept = [m.copy() for m in mats]
+    got = block_eigenvalues(mats, workers=workers)
+    for w, m, k in zip(got, mats, kept):
+        ref = scipy.linalg.eigvalsh(k)
+        assert np.array_equal(m, k)
+        assert np.allclose(w, ref, rtol=0, atol=tol(ref.max(), factor=len(ref)))
+
+
+@pytest.mark.parametrize("name, overrides, sites", [
+    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, (1, 2, 5, 9, 10)),
+    ("kagome_chiral", {}, (0, 2, 3, 7, 8, 11)),  # complex
+    ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, (0, 2, 3, 7, 9, 10)),  # fermion strings
+])
 def test_split_walks_done_in_pieces_equal_the_dense_vector_route(monkeypatch, name, overrides, sites):
     # reference: the partial trace of the dense state vector (common practice)
     model = load_model(name, overrides)
@@ -363,6 +404,44 @@ def test_split_walks_done_in_pieces_equal_the_dense_vector_route(monkeypatch, na
     budget = int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * item)
     deep = split_route._plan(state, sites, split_route._budget_entries(state, sites, budget))
     assert max(deep.depth) > 1 and deep.peak < shallow.peak
+    blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
+    assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
+
+
+@pytest.mark.parametrize("name, overrides, sites", [
+    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, (1, 2, 5, 9, 10)),
+    ("kagome_chiral", {}, (0, 2, 3, 7, 8, 11)),  # complex
+    ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, (0, 2, 3, 7, 9, 10)),  # fermion strings
+])
+def test_split_walk_cut_by_the_bras_first_sites_equals_the_dense_vector_route(monkeypatch, name, overrides, sites):
+    # reference: the partial trace of the dense state vector (common practice)
+    model = load_model(name, overrides)
+    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
+    ref = rdm.reduced_density_matrix(state.to_vector(), list(sites), model.space)
+    # no deeper streaming: a budget just under the one-step plan's peak leaves only the right walk in pieces
+    monkeypatch.setattr(split_route, "MAX_STREAMED", 1)
+    item = np.dtype(state.dtype).itemsize
+    shallow = split_route._plan(state, sites, 1e30)
+    budget = int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * item)
+    cut = split_route._plan(state, sites, split_route._budget_entries(state, sites, budget))
+    assert len(cut.fixes) > 1 and cut.peak < shallow.peak
+    estimate = rdm.estimate_rdm_memory(state, list(sites), model.space, method="split", memory_budget=budget)
+    seen = []
+    original = rdm_tables.WalkMeter.check
+
+    def spy(meter, entries, site, width):
+        seen.append(entries * meter.itemsize)
+        return original(meter, entries, site, width)
+
+    monkeypatch.setattr(rdm_tables.WalkMeter, "check", spy)
+    blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
+    assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
+    # every piece's own check (planned sizes) stays within the up-front estimate
+    assert seen and max(seen) <= estimate * 1.0001
+    # and the pieces of the join cut further into single bond states
+    monkeypatch.setattr(split_route, "CHUNK_ENTRIES", 1.0)
+    monkeypatch.setattr(split_route, "CHUNK_FRACTION", 0.0)
+    monkeypatch.setattr(split_route, "CHUNK_MIN", 1)
     blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
     assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
 
@@ -413,8 +492,10 @@ def test_split_walks_stay_within_their_estimate():
         rdm_tables.WalkMeter.check = original
     # every step's own check (actual sizes) stays within the up-front estimate (exact sector counts)
     assert seen and max(seen) <= estimate * 1.0001
+    # every plan holds the blocks of rho (even with the right walk in pieces): half of them is refused
+    held = split_route._plan(state, sites, 1e30).held * np.dtype(state.dtype).itemsize
     with pytest.raises(MemoryBudgetError, match="split walk over 7 sites"):
-        rdm.reduced_root(state, sites, spins.space, method="split", memory_budget=int(estimate / 2))
+        rdm.reduced_root(state, sites, spins.space, method="split", memory_budget=int(held / 2))
 
 
 def test_dmrg_ground_state_rdm_matches_exact_engine():

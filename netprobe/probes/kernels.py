@@ -332,13 +332,19 @@ def _modular_commutator_rho_blocks(pb: rdm.PartBlocks, eps: float):
     w_ab = np.concatenate([w for w, _ in dec_ab.values()]) if dec_ab else np.zeros(0)
     w_bc = np.concatenate([w for w, _ in dec_bc.values()]) if dec_bc else np.zeros(0)
     top_ab, top_bc = float(w_ab.max(initial=0.0)), float(w_bc.max(initial=0.0))
-    out = []
+    out, kept = [], None
     for floor in (eps, _LOOSE * eps):
+        factors = [{u: _floor_factor(w, top, floor, 0) for u, (w, _) in dec.items()}
+                   for dec, top in ((dec_ab, top_ab), (dec_bc, top_bc))]
+        if kept is not None and all(np.array_equal(f[u], g[u]) for f, g in zip(factors, kept) for u in f):
+            out.append(out[-1])  # no weight between the two floors: the same operators, the same trace
+            continue
+        kept = factors
         ks, ranks = [], []
-        for dec, top, rho_x in ((dec_ab, top_ab, rho_ab), (dec_bc, top_bc, rho_bc)):
+        for dec, fs, rho_x in ((dec_ab, factors[0], rho_ab), (dec_bc, factors[1], rho_bc)):
             mats, rank = {}, 0
             for u, (w, v) in dec.items():
-                f = _floor_factor(w, top, floor, 0)
+                f = fs[u]
                 rank += int(np.count_nonzero(f))
                 mats[u] = (v * f) @ v.conj().T
             ks.append(rho_x.replaced(mats))

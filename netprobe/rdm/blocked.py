@@ -26,7 +26,7 @@ import scipy.linalg
 
 from netprobe.rdm.common import BlockedRho, _code_tables, _config_parity, permutation_sign
 from netprobe.rdm.parts import check_parts
-from netprobe.rdm.spectra import hermitian_eigenvalues
+from netprobe.rdm.spectra import block_eigenvalues
 from netprobe.model.sites import SiteSpace
 
 __all__ = ["PartBlocks", "SubsetBlocks", "part_blocks", "subset_rho", "prefix_suffix_trace", "blocks_probe_estimate"]
@@ -69,7 +69,7 @@ class PartBlocks:
 
     def weights(self) -> np.ndarray:
         """Eigenvalues of ``rho`` (all parts), descending, positive only."""
-        vals = [hermitian_eigenvalues(mat) for _, mat in self.blocks if mat.size]
+        vals = block_eigenvalues([mat for _, mat in self.blocks if mat.size])
         w = np.concatenate(vals) if vals else np.zeros(0)
         return np.sort(w[w > 0])[::-1]
 
@@ -99,7 +99,7 @@ class SubsetBlocks:
 
     def weights(self) -> np.ndarray:
         """Eigenvalues (for a density matrix: its weights), descending, positive only."""
-        vals = [hermitian_eigenvalues(m) for m in self.matrices.values() if m.size]
+        vals = block_eigenvalues([m for m in self.matrices.values() if m.size])
         w = np.concatenate(vals) if vals else np.zeros(0)
         return np.sort(w[w > 0])[::-1]
 

@@ -9,6 +9,11 @@ it in matrix-vector products. scipy does not wrap the two-stage drivers, so
 OpenBLAS), found once by file name; where that library or its symbols are missing it falls back to
 ``scipy.linalg.eigvalsh`` (divide and conquer). Both give the eigenvalues to round-off of the
 largest one (tests/test_rdm.py compares them).
+
+:func:`block_eigenvalues` takes all blocks of a reduced state at once: with more than one BLAS
+thread it runs the large blocks side by side, one BLAS thread each (the drivers release the GIL).
+On two cores that is about twice as fast as one block at a time on two BLAS threads, whose second
+thread mostly waits (measured in benchmarks/RESULTS.md).
 """
 
 from __future__ import annotations
@@ -16,12 +21,14 @@ from __future__ import annotations
 import ctypes
 import glob
 import os
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import scipy
 import scipy.linalg
+from threadpoolctl import threadpool_info, threadpool_limits
 
-__all__ = ["hermitian_eigenvalues", "two_stage_available"]
+__all__ = ["hermitian_eigenvalues", "block_eigenvalues", "two_stage_available"]
 
 #: Below this size the one-stage driver is as fast (and the call overhead matters).
 TWO_STAGE_MIN = 384
@@ -85,3 +92,43 @@ def hermitian_eigenvalues(mat: np.ndarray, *, overwrite: bool = False) -> np.nda
             raise np.linalg.LinAlgError(f"two-stage Hermitian eigenvalue driver failed (info = {info})")
         return scipy.linalg.eigvalsh(mat, check_finite=False, driver="evd")
     return w
+
+
+def _blas_threads() -> int:
+    """Threads the BLAS libraries would use now (the largest count among those loaded; 1 if none found)."""
+    counts = [int(info.get("num_threads") or 1) for info in threadpool_info() if info.get("user_api") == "blas"]
+    return max(counts, default=1)
+
+
+def block_eigenvalues(mats, *, workers: int | None = None) -> list:
+    """All eigenvalues of each Hermitian block, ascending, in the order given.
+
+    Parameters
+    ----------
+    mats : sequence of ndarray
+        Square Hermitian blocks (left unchanged).
+    workers : int, optional
+        Blocks computed side by side, each on one BLAS thread; default the BLAS's current thread
+        count, so that ``OMP_NUM_THREADS=1`` keeps everything on one core. Blocks below
+        ``TWO_STAGE_MIN`` rows are done first, one after the other.
+
+    Returns
+    -------
+    list of ndarray
+    """
+    mats = list(mats)
+    out: list = [None] * len(mats)
+    large = sorted((i for i, m in enumerate(mats) if m.shape[0] >= TWO_STAGE_MIN), key=lambda i: -mats[i].shape[0])
+    for i, m in enumerate(mats):
+        if m.shape[0] < TWO_STAGE_MIN:
+            out[i] = hermitian_eigenvalues(m)
+    workers = _blas_threads() if workers is None else int(workers)
+    if workers <= 1 or len(large) <= 1:
+        for i in large:
+            out[i] = hermitian_eigenvalues(mats[i])
+        return out
+    # largest first, so that the last block to finish is a small one
+    with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(min(workers, len(large))) as pool:
+        for i, w in zip(large, pool.map(lambda i: hermitian_eigenvalues(mats[i]), large)):
+            out[i] = w
+    return out

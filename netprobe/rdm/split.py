@@ -26,17 +26,35 @@ walks' inputs to their last steps, the two pieces of sector ``j``, the blocks of
 largest product of two layer blocks; the square root then holds the blocks and one
 eigendecomposition. Layers are kept as ``G[O, O*, b, b*]`` so that every step and the join are plain
 matrix products.
+
+Where even that does not fit the budget (two halves of many open sites with traced sites between
+them, so that one walk must carry a large layer past them), the right walk runs in pieces: each
+piece fixes the bra's physical sector on the walk's first open sites, so its bra leg ``O*`` is a
+part of the configurations and the pieces are disjoint through every step (nothing is computed
+twice on the right); each piece is joined on its own into its columns of rho, and only the left
+walk's streamed steps are redone per piece. Among such plans that fit, the planner takes the one
+with the fewest entries computed in all (split point, pieces, streamed depth).
+
+Threads: with more than one BLAS thread, large walk steps and the join split their work by ket open
+sector (each group writes disjoint rows) among that many Python threads with one BLAS thread each;
+the products of the walks are small, where a multi-threaded BLAS gains little.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import threading
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+from itertools import product
 
 import numpy as np
+
+from threadpoolctl import threadpool_limits
 
 from netprobe.resources import resolve_budget
 from netprobe.rdm.common import BlockedRho, RootBlock, _grading_of, _labels
 from netprobe.rdm.root import UngradedParity
+from netprobe.rdm.spectra import _blas_threads
 from netprobe.rdm.tables import (
     WalkMeter, _add, _bond_counts, _centred_copy, _fuse_tables, _pairs_by_charge, _parity_graded, _sector_parity,
 )
@@ -65,17 +83,23 @@ def _bond_identity(bond: Leg, rule: ChargeRule, dtype) -> BlockTensor:
     return BlockTensor(legs, None, rule, blocks, dtype=dtype)
 
 
-def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, code_of, rule: ChargeRule):
+def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, code_of, rule: ChargeRule,
+                    keep=None):
     """Sectors, placements, codes and parities of the open leg after one more site.
 
     See :func:`_double_layer_step`; a sector whose pairs have different parities gets parity ``None``.
+    ``keep`` (physical sector indices, optional) fuses only those sectors of the new site (a bra leg
+    restricted to some configurations).
     """
     groups = _pairs_by_charge(o_leg, s_leg, rule)
-    charges = sorted(groups)
-    place, dims, codes, parity = {}, [], [], []
-    for n, q in enumerate(charges):
+    place, charges, dims, codes, parity = {}, [], [], [], []
+    for q in sorted(groups):
+        pairs = [(so, ss) for so, ss in groups[q] if keep is None or ss in keep]
+        if not pairs:
+            continue
+        n = len(charges)
         off, parts, pars = 0, [], set()
-        for so, ss in groups[q]:
+        for so, ss in pairs:
             size = int(o_leg.dims[so] * s_leg.dims[ss])
             place[(so, ss)] = (n, off, size)
             off += size
@@ -83,6 +107,7 @@ def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, co
                                  np.asarray(phys.codes[ss], np.int64)[None, :]).ravel())
             po, ps = side.parity[so], phys.parity[ss]
             pars.add(None if po is None or ps is None else po ^ ps)
+        charges.append(q)
         dims.append(off)
         codes.append(np.concatenate(parts))
         parity.append(pars.pop() if len(pars) == 1 else None)
@@ -91,7 +116,7 @@ def _fused_open_leg(o_leg: Leg, s_leg: Leg, side: _OpenSide, phys: _OpenSide, co
 
 
 def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _OpenSide, phys: _OpenSide,
-                       code_of, fermionic: bool, bra_sectors=None):
+                       code_of, fermionic: bool, bra_sectors=None, bra_side: _OpenSide | None = None, keep=None):
     """``G'[O', O'*, c, c*] = sum A[b, s, c] G[O, O*, b, b*] conj(A[b*, s*, c*])``, one block pair at a time.
 
     A traced site has ``s* = s`` summed and ``O' = O``; for fermions it carries ``F = (-1)^n`` on the
@@ -107,71 +132,136 @@ def _double_layer_step(g: BlockTensor, a: BlockTensor, open_site: bool, side: _O
     it) also restricts ``c*`` to a range of states of that sector. The pieces of one layer for
     different sectors or ranges are disjoint, and each (input block, bra tensor columns) pair is used
     by exactly one piece, so a layer built piece by piece costs what it costs whole.
+
+    ``bra_side`` (codes and parities of the bra open leg ``O*``, default ``side``) and ``keep``
+    (physical sectors the bra may take on this open site, default all) carry a piece of a layer cut
+    by the bra's configuration of some open sites: ``O*`` is then its own leg, a part of ``O``'s
+    configurations. Pieces with different bra configurations are disjoint through every later step.
+    Returns the layer (or the piece) and the sides of ``O'`` and ``O'*``.
     """
     rule = g.rule
+    bra_side = side if bra_side is None else bra_side
     by_bond: dict = {}
     for (b, ss, c), blk in a.blocks.items():
         bmat = blk.reshape(blk.shape[0], -1)
         by_bond.setdefault(b, []).append((ss, c, blk, bmat))
     if open_site:
         o_leg, place, new_side = _fused_open_leg(g.legs[0], a.legs[1], side, phys, code_of, rule)
+        if keep is None and bra_side is side:
+            ob_leg, place_b, new_bra = o_leg, place, new_side
+        else:
+            ob_leg, place_b, new_bra = _fused_open_leg(g.legs[1].dual(), a.legs[1], bra_side, phys, code_of, rule,
+                                                       keep)
     else:
         o_leg, place, new_side = g.legs[0], None, side
-    legs = (o_leg, o_leg.dual(), a.legs[2], a.legs[2].dual())
+        ob_leg, place_b, new_bra = g.legs[1].dual(), None, bra_side
+    legs = (o_leg, ob_leg.dual(), a.legs[2], a.legs[2].dual())
     dtype = np.result_type(g.dtype, a.dtype)
     out: dict = {}
-    for (o, ob, b, bb), blk in g.blocks.items():
-        kets = by_bond.get(b, ())
-        bras = by_bond.get(bb, ())
-        if bra_sectors is not None:
-            bras = [_bra_chunk(item, bra_sectors) for item in bras if item[1] in bra_sectors]
-        if not kets or not bras:
-            continue
-        odd = False
-        if fermionic and not open_site:
-            po, pob = side.parity[o], side.parity[ob]
-            if po is None or pob is None:
-                raise UngradedParity
-            odd = bool(po ^ pob)
-        x, y, nb, nbb = blk.shape
-        flat = blk.reshape(x * y * nb, nbb)
-        for sb, cb, kb, kbmat in bras:
-            s_dim, n_cb = kb.shape[1], kb.shape[2]
-            t = (flat @ kbmat.conj()).reshape(x * y, nb * s_dim, n_cb)  # (O O*, (b, s*), c*)
-            for ss, c, ka, kamat in kets:
-                if not open_site:
-                    if ss != sb:
-                        continue
-                    # sum over (b, s): ka read as ((b, s), c)
-                    part = np.matmul(kamat.reshape(nb * s_dim, ka.shape[2]).T, t)  # (O O*, c, c*)
-                    if odd and phys.parity[ss]:
-                        part = np.negative(part, out=part)
-                    key = (o, ob, c, cb)
-                    part = part.reshape(x, y, ka.shape[2], n_cb)
-                    target = out.get(key)
-                    if target is None:
-                        out[key] = part
+    lock = threading.Lock()
+
+    def run(items):
+        for (o, ob, b, bb), blk in items:
+            kets = by_bond.get(b, ())
+            bras = by_bond.get(bb, ())
+            if bra_sectors is not None:
+                bras = [_bra_chunk(item, bra_sectors) for item in bras if item[1] in bra_sectors]
+            if open_site and keep is not None:
+                bras = [item for item in bras if item[0] in keep]
+            if not kets or not bras:
+                continue
+            odd = False
+            if fermionic and not open_site:
+                po, pob = side.parity[o], bra_side.parity[ob]
+                if po is None or pob is None:
+                    raise UngradedParity
+                odd = bool(po ^ pob)
+            x, y, nb, nbb = blk.shape
+            flat = blk.reshape(x * y * nb, nbb)
+            for sb, cb, kb, kbmat in bras:
+                s_dim, n_cb = kb.shape[1], kb.shape[2]
+                t = (flat @ kbmat.conj()).reshape(x * y, nb * s_dim, n_cb)  # (O O*, (b, s*), c*)
+                for ss, c, ka, kamat in kets:
+                    if not open_site:
+                        if ss != sb:
+                            continue
+                        # sum over (b, s): ka read as ((b, s), c)
+                        part = np.matmul(kamat.reshape(nb * s_dim, ka.shape[2]).T, t)  # (O O*, c, c*)
+                        if odd and phys.parity[ss]:
+                            part = np.negative(part, out=part)
+                        key = (o, ob, c, cb)
+                        part = part.reshape(x, y, ka.shape[2], n_cb)
+                        target = out.get(key)
+                        if target is None:
+                            out[key] = part
+                        else:
+                            target += part
                     else:
-                        target += part
-                else:
-                    sd = ka.shape[1]
-                    # sum over b: ka read as (b, (s, c)); t read as (O O*, b, (s*, c*))
-                    part = np.matmul(kamat.T, t.reshape(x * y, nb, s_dim * n_cb))  # (O O*, (s, c), (s*, c*))
-                    n, off, size = place[(o, ss)]
-                    nbk, offb, sizeb = place[(ob, sb)]
-                    key = (n, nbk, c, cb)
-                    target = out.get(key)
-                    if target is None:
-                        shape = (int(o_leg.dims[n]), int(o_leg.dims[nbk]), ka.shape[2], n_cb)
-                        target = out[key] = np.zeros(shape, dtype)
-                    view = target[off:off + size, offb:offb + sizeb]
-                    view = view.reshape(x, sd, y, s_dim, ka.shape[2], n_cb)
-                    view += part.reshape(x, y, sd, ka.shape[2], s_dim, n_cb).transpose(0, 2, 1, 4, 3, 5)
-                del part
-            del t
+                        sd = ka.shape[1]
+                        # sum over b: ka read as (b, (s, c)); t read as (O O*, b, (s*, c*))
+                        part = np.matmul(kamat.T, t.reshape(x * y, nb, s_dim * n_cb))  # (O O*, (s, c), (s*, c*))
+                        n, off, size = place[(o, ss)]
+                        nbk, offb, sizeb = place_b[(ob, sb)]
+                        key = (n, nbk, c, cb)
+                        target = out.get(key)
+                        if target is None:
+                            with lock:  # another ket sector may be creating the same output block
+                                target = out.get(key)
+                                if target is None:
+                                    shape = (int(o_leg.dims[n]), int(ob_leg.dims[nbk]), ka.shape[2], n_cb)
+                                    target = out[key] = np.zeros(shape, dtype)
+                        view = target[off:off + size, offb:offb + sizeb]
+                        view = view.reshape(x, sd, y, s_dim, ka.shape[2], n_cb)
+                        view += part.reshape(x, y, sd, ka.shape[2], s_dim, n_cb).transpose(0, 2, 1, 4, 3, 5)
+                    del part
+                del t
+
+    _run_by_ket_sector(run, g.blocks)
     if isinstance(bra_sectors, dict) and any(r is not None for r in bra_sectors.values()):
-        return _Piece(legs, rule, out, dtype), new_side  # c* cut to a range: not a whole leg
-    return BlockTensor(legs, None, rule, out, dtype=dtype), new_side
+        return _Piece(legs, rule, out, dtype), new_side, new_bra  # c* cut to a range: not a whole leg
+    return BlockTensor(legs, None, rule, out, dtype=dtype), new_side, new_bra
+
+
+#: Layers of at least this many entries have their blocks worked on by several threads (one BLAS thread each).
+PARALLEL_ENTRIES = 2**22
+
+
+def _run_by_ket_sector(run, blocks: dict) -> None:
+    """``run(items)`` over the blocks of a layer, split by ket open sector among the BLAS's threads.
+
+    Every output block (or, at an open site, every row range of one) comes from the input blocks of
+    one ket open sector ``O``, so the groups write to disjoint memory and each output sums its parts
+    in the order of a single pass. With one BLAS thread (``OMP_NUM_THREADS=1``) or a small layer it
+    is a single pass; otherwise each group runs on one BLAS thread, which keeps both cores busy on
+    the small products of the walks where a two-thread BLAS mostly waits.
+    """
+    _run_grouped(run, list(blocks.items()), lambda item: item[0][0], lambda item: item[1].size)
+
+
+def _run_grouped(run, items: list, group_of, size_of) -> None:
+    """``run`` over ``items`` in one pass, or over groups (``group_of``) on the BLAS's threads, one BLAS thread each.
+
+    Groups go whole to one worker, largest first to the least loaded (by ``size_of``); below
+    ``PARALLEL_ENTRIES`` in all, or with one BLAS thread, a single pass in the given order.
+    """
+    workers = _blas_threads()
+    total = sum(size_of(it) for it in items)
+    if workers <= 1 or total < PARALLEL_ENTRIES:
+        run(items)
+        return
+    groups: dict = {}
+    for item in items:
+        groups.setdefault(group_of(item), []).append(item)
+    shares = [[] for _ in range(workers)]
+    loads = [0] * workers
+    for grp in sorted(groups.values(), key=lambda g: -sum(size_of(it) for it in g)):
+        i = loads.index(min(loads))
+        shares[i] += grp
+        loads[i] += sum(size_of(it) for it in grp)
+    shares = [sh for sh in shares if sh]
+    with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(len(shares)) as pool:
+        for done in [pool.submit(run, sh) for sh in shares]:
+            done.result()
 
 
 @dataclass
@@ -192,6 +282,18 @@ def _bra_chunk(item, bra_sectors):
     ss, c, kb, _ = item
     part = np.ascontiguousarray(kb[:, :, rng[0]:rng[1]])
     return ss, c, part, part.reshape(part.shape[0], -1)
+
+
+def _bra_positions(leg: Leg, side: _OpenSide, bra_leg: Leg, bra: _OpenSide) -> dict:
+    """Sector of ``bra_leg`` (a part of ``leg``'s configurations) -> (sector of ``leg``, positions in it)."""
+    by_charge = {tuple(q): n for n, q in enumerate(leg.charges.tolist())}
+    out = {}
+    for nb, q in enumerate(bra_leg.charges.tolist()):
+        n = by_charge[tuple(q)]
+        codes = np.asarray(side.codes[n])
+        order = np.argsort(codes, kind="stable")
+        out[nb] = (n, order[np.searchsorted(codes, bra.codes[nb], sorter=order)])
+    return out
 
 
 def _default_split(sites: tuple[int, ...]) -> int:
@@ -261,6 +363,8 @@ MAX_STREAMED = 4
 CHUNK_ENTRIES = 2.0**23
 CHUNK_FRACTION = 0.125
 CHUNK_MIN = 16
+#: Most pieces of the right walk cut by its bra's configuration of its first open sites.
+MAX_PIECES = 64
 
 
 @dataclass
@@ -285,6 +389,12 @@ class _Plan:
         The two layers the streamed steps start from.
     extra : float
         Entries computed more than once by the streamed steps (a measure of their extra work).
+    fixes : list of tuple
+        Pieces of the right walk: the physical sectors its bra takes on its first open sites (one
+        empty tuple: the walk whole). Each piece is walked from the start and joined on its own;
+        the left walk's streamed steps are redone per piece.
+    right_sizes : list of dict
+        Entries of each piece's layers after each site (``right`` for the walk whole).
     """
 
     m: int
@@ -297,6 +407,8 @@ class _Plan:
     units: list
     inputs: float
     extra: float
+    fixes: list = field(default_factory=lambda: [()])
+    right_sizes: list = field(default_factory=list)
 
 
 def _predecessors(tensor: BlockTensor, ket_to_bra: bool) -> dict:
@@ -337,13 +449,14 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
         bond_table = {_add(zero, q, rule, sign): n for q, n in _bond_counts(bond).items()}
         return _fuse_tables(opens[count], bond_table, rule)
 
-    def pieces(count: int, bond: Leg, sign: int) -> list:
-        # rows (O*, b*) of bra sector j: label t = q(O*) + sign q_j, each meeting the n_t rows of label t
+    def pieces(count: int, bond: Leg, sign: int, bra: dict | None = None) -> list:
+        # rows (O*, b*) of bra sector j: label t = q(O*) + sign q_j, each meeting the n_t rows of label t;
+        # ``bra``: the open configurations the bra may take (a piece cut by the bra's first open sites)
         n_t = table(count, bond, sign)
         out = []
         for q, dim in zip(bond.charges.tolist(), bond.dims.tolist()):
             qj = _add(zero, tuple(q), rule, sign)
-            rows = sum(n * n_t.get(_add(qo, qj, rule), 0) for qo, n in opens[count].items())
+            rows = sum(n * n_t.get(_add(qo, qj, rule), 0) for qo, n in (opens[count] if bra is None else bra).items())
             out.append(float(int(dim) * rows))
         return out
 
@@ -366,7 +479,7 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
     default = _default_split(sites)
 
     def chain(steps, sizes, preds, n_sectors):
-        """Per top sector: (peak of two consecutive pieces, final piece); and the recomputed entries."""
+        """Per top sector: (peak of two consecutive pieces, final piece); the recomputed entries; all computed."""
         peaks, finals = [], []
         produced: dict = {}
         for j in range(n_sectors):
@@ -383,9 +496,10 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
             peaks.append(peak)
             finals.append(below)
         extra = sum(v - float(sum(sizes[k])) for k, v in produced.items())
-        return peaks, finals, max(extra, 0.0)
+        return peaks, finals, max(extra, 0.0), float(sum(produced.values()))
 
     single = len(sites) == 1
+    workers = max(1, _blas_threads())  # the join's threads each hold their own products
     # the pieces of the join need not be larger than a fraction of what the join holds anyway
     chunk = max(CHUNK_ENTRIES, CHUNK_FRACTION * held)
 
@@ -407,7 +521,7 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
             depths_left = range(1, min(MAX_STREAMED, m - lo + 1) + 1) if deep else [1]
             depths_right = range(1, min(MAX_STREAMED, hi - m) + 1) if deep and not single else [1]
             for dl in depths_left:
-                lp, lf, lx = chain(range(m, m - dl, -1), left_pieces, left_pred, n_sec)
+                lp, lf, lx, _ = chain(range(m, m - dl, -1), left_pieces, left_pred, n_sec)
                 base_left = left[m - dl]
                 walk_left = max([left[k - 1] + left[k] for k in range(lo, m - dl + 1)], default=0.0)
                 for dr in depths_right:
@@ -415,7 +529,7 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
                         rp = [float(int(n) ** 2) for n in bond.dims.tolist()]
                         rx, base_right, walk_right = 0.0, 0.0, 0.0
                     else:
-                        rp, _, rx = chain(range(m + 1, m + 1 + dr), right_pieces, right_pred, n_sec)
+                        rp, _, rx, _ = chain(range(m + 1, m + 1 + dr), right_pieces, right_pred, n_sec)
                         base_right = right[m + dr + 1]
                         walk_right = max([base_left + right[k + 1] + right[k]
                                           for k in range(m + dr + 1, hi + 1)], default=0.0)
@@ -430,7 +544,7 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
                         cuts = np.linspace(0, dim, count + 1).astype(int)
                         units += [(j, int(a), int(b), need * (b - a) / max(dim, 1))
                                   for a, b in zip(cuts[:-1], cuts[1:])]
-                    join = inputs + max((u[3] for u in units), default=0.0) + held + 3.0 * part
+                    join = inputs + max((u[3] for u in units), default=0.0) + held + 3.0 * workers * part
                     peak = max(walk_left, walk_right, join)
                     extra = lx + rx
                     if budget is None:
@@ -438,24 +552,105 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
                     else:
                         key = (peak > budget, extra if peak <= budget else peak, peak, abs(m - default))
                     if best is None or key < best[0]:
-                        best = (key, _Plan(m, (dl, dr), peak, held, n_max, left, right, units, inputs, extra))
+                        best = (key, _Plan(m, (dl, dr), peak, held, n_max, left, right, units, inputs, extra,
+                                           [()], [right]))
         return best
 
-    # one streamed step per walk costs nothing extra: deeper plans only where that does not fit
+    phys_q = [tuple(rule.reduce(np.asarray(q, np.int64)).tolist()) for q in basis.leg.charges.tolist()]
+    phys_d = [int(x) for x in basis.leg.dims.tolist()]
+    cache: dict = {}
+
+    def right_cut(fix: tuple):
+        """Whole-layer and per-sector entries of the right walk whose bra takes the sectors ``fix`` first."""
+        sizes, per = {hi + 1: identity(t[hi].legs[2])}, {}
+        for k in range(hi, lo, -1):
+            count = sum(1 for s in sites if s >= k)
+            n_fix = min(count, len(fix))
+            q, dim = zero, 1
+            for sec in fix[:n_fix]:
+                q, dim = _add(q, phys_q[sec], rule), dim * phys_d[sec]
+            key = (k, count, n_fix, q, dim)
+            if key not in cache:
+                bra = _fuse_tables({q: dim}, opens[count - n_fix], rule)
+                cache[key] = pieces(count, t[k - 1].legs[2], -1, bra)
+            per[k] = cache[key]
+            sizes[k] = float(sum(per[k]))
+        return sizes, per
+
+    def search_cut():
+        """Plans with the right walk in pieces by its bra's first open sites (one streamed step on the right)."""
+        best = None
+        n_right_open = lambda m: sum(1 for s in sites if s > m)  # noqa: E731
+        for m in range(lo, hi):
+            k_left = sum(1 for s in sites if s <= m)
+            if not 0 < k_left < len(sites):
+                continue
+            bond = t[m].legs[2]
+            n_sec = bond.n_sectors
+            lsz, rsz = opens[k_left], opens[len(sites) - k_left]
+            part = 0.0
+            for ql, nl in lsz.items():
+                for ql2, nl2 in lsz.items():
+                    for qr, nr in rsz.items():
+                        nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
+                        part = max(part, float(nl * nl2 * nr * nr2))
+            for k in range(1, n_right_open(m) + 1):
+                if len(phys_q) ** k > MAX_PIECES:
+                    break
+                fixes = list(product(range(len(phys_q)), repeat=k))
+                cuts = [right_cut(f) for f in fixes]
+                base_right = max(c[0][m + 2] for c in cuts)
+                right_need = [max(c[1][m + 1][j] for c in cuts) for j in range(n_sec)]
+                for dl in range(1, min(MAX_STREAMED, m - lo + 1) + 1):
+                    lp, lf, lx, made = chain(range(m, m - dl, -1), left_pieces, left_pred, n_sec)
+                    base_left = left[m - dl]
+                    walk_left = max([left[i - 1] + left[i] for i in range(lo, m - dl + 1)], default=0.0)
+                    # later pieces walk while the blocks of rho are held
+                    walk_right = max([base_left + held + c[0][i + 1] + c[0][i]
+                                      for c in cuts for i in range(m + 2, hi + 1)], default=0.0)
+                    needs = [max(a, f + b) for a, f, b in zip(lp, lf, right_need)]
+                    inputs = base_left + base_right
+                    units = []
+                    for j, (need, dim) in enumerate(zip(needs, bond.dims.tolist())):
+                        dim = int(dim)
+                        count = 1 if dl != 1 else max(1, min(dim // CHUNK_MIN, int(np.ceil(need / max(chunk, 1.0)))))
+                        cuts_j = np.linspace(0, dim, count + 1).astype(int)
+                        units += [(j, int(a), int(b), need * (b - a) / max(dim, 1))
+                                  for a, b in zip(cuts_j[:-1], cuts_j[1:])]
+                    join = inputs + max((u[3] for u in units), default=0.0) + held + 4.0 * workers * part
+                    peak = max(walk_left, walk_right, join)
+                    extra = lx + (len(fixes) - 1) * made
+                    # among the plans that fit, the least work: entries of every layer and piece computed
+                    work = (sum(left[i] for i in range(lo, m - dl + 1)) + made * len(fixes)
+                            + sum(sum(c[0][i] for i in range(m + 2, hi + 1)) + sum(c[1][m + 1]) for c in cuts))
+                    key = (peak > budget, work if peak <= budget else peak, peak, abs(m - default))
+                    if best is None or key < best[0]:
+                        best = (key, _Plan(m, (dl, 1), peak, held, n_max, left, right, units, inputs, extra,
+                                           fixes, [c[0] for c in cuts]))
+        return best
+
+    # one streamed step per walk costs nothing extra: deeper plans only where that does not fit, and
+    # the right walk in pieces (the left's streamed steps redone per piece) only where those do not
     best = search(False)
     if budget is not None and best[1].peak > budget:
         deeper = search(True)
         if deeper[0] < best[0]:
             best = deeper
+        if best[1].peak > budget and not single:
+            cut = search_cut()
+            if cut is not None and cut[0] < best[0]:
+                best = cut
     return best[1]
 
 
 def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dict, sizes: dict,
-               side_left: _OpenSide, side_right: _OpenSide, dtype) -> None:
+               side_left: _OpenSide, side_right: _OpenSide, dtype, bra_right: dict | None = None) -> None:
     """``rho += sum_{b, b*} G_L[O_L, O_L*, b, b*] G_R[O_R, O_R*, b, b*]`` into the charge blocks ``mats``.
 
     Only the sub-blocks on and above the diagonal of each block (row pair of sectors before or at the
-    column pair); the caller fills the rest from them, rho being Hermitian.
+    column pair); the caller fills the rest from them, rho being Hermitian. ``bra_right`` maps the
+    sectors of a right piece's bra leg (a part of the configurations) to ``(sector, positions)`` of
+    the whole leg; its columns are then scattered into place.
     """
     left_groups: dict = {}
     for (sl, slb, bk, bb), blk in g_left.blocks.items():
@@ -463,32 +658,48 @@ def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dic
     right_groups: dict = {}
     for (sr, srb, bk, bb), blk in g_right.blocks.items():
         right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
-    for (sl, slb), lefts in left_groups.items():
-        for (sr, srb), rights in right_groups.items():
-            total, r0, rn = place[(sl, sr)]
-            total_b, c0, cn = place[(slb, srb)]
-            if total != total_b or r0 > c0:
-                continue  # a pair of charges that rho does not connect; the lower half comes by hermiticity
-            part = None
-            for key, blk in lefts.items():
-                other = rights.get(key)
-                if other is None:
-                    continue
-                # (O_L O_L*, (b b*)) times ((b b*), O_R O_R*): one product, no copies of the layers
+    lock = threading.Lock()
+
+    def run(items):
+        for (sl, slb), lefts in items:
+            for (sr, srb), rights in right_groups.items():
+                srb, pos = (srb, None) if bra_right is None else bra_right[srb]
+                total, r0, rn = place[(sl, sr)]
+                total_b, c0, cn = place[(slb, srb)]
+                if total != total_b or r0 > c0:
+                    continue  # a pair of charges that rho does not connect; the lower half comes by hermiticity
+                part = None
+                for key, blk in lefts.items():
+                    other = rights.get(key)
+                    if other is None:
+                        continue
+                    # (O_L O_L*, (b b*)) times ((b b*), O_R O_R*): one product, no copies of the layers
+                    if part is None:
+                        part = blk @ other.T
+                    else:
+                        part += blk @ other.T
                 if part is None:
-                    part = blk @ other.T
-                else:
-                    part += blk @ other.T
-            if part is None:
-                continue
-            target = mats.get(total)
-            if target is None:
-                target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
-            xl, yl = len(side_left.codes[sl]), len(side_left.codes[slb])
-            xr, yr = len(side_right.codes[sr]), len(side_right.codes[srb])
-            view = target[r0:r0 + rn, c0:c0 + cn].reshape(xl, xr, yl, yr)
-            view += part.reshape(xl, yl, xr, yr).transpose(0, 2, 1, 3)
-            del part
+                    continue
+                target = mats.get(total)
+                if target is None:
+                    with lock:  # another left sector may be creating the same block
+                        target = mats.get(total)
+                        if target is None:
+                            target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
+                xl, yl = len(side_left.codes[sl]), len(side_left.codes[slb])
+                xr, yr = len(side_right.codes[sr]), len(side_right.codes[srb])
+                if pos is None:
+                    view = target[r0:r0 + rn, c0:c0 + cn].reshape(xl, xr, yl, yr)
+                    view += part.reshape(xl, yl, xr, yr).transpose(0, 2, 1, 3)
+                else:  # the piece's columns: (O_L*, O_R*) with O_R* at ``pos`` of its sector (distinct columns)
+                    cols = (c0 + np.arange(yl)[:, None] * yr + pos[None, :]).ravel()
+                    target[r0:r0 + rn, cols] += part.reshape(xl, yl, xr, len(pos)).transpose(0, 2, 1, 3).reshape(
+                        xl * xr, yl * len(pos))
+                del part
+
+    # each left open sector sl writes its own rows of rho: the groups run side by side
+    _run_grouped(run, list(left_groups.items()), lambda item: item[0][0],
+                 lambda item: sum(v.size for v in item[1].values()))
 
 
 def _budget_entries(state, sites, budget) -> float:
@@ -560,18 +771,27 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
     m, (depth_left, depth_right), sizes_left, sizes_right = plan.m, plan.depth, plan.left, plan.right
     meter = WalkMeter(budget, f"{where}: the split walk over {len(sites)} sites", np.dtype(state.dtype).itemsize)
     st = _centred_copy(state, lo, hi)
+    st_hi_bond = st.tensors[hi].legs[2]
     dtype = np.result_type(st.dtype, np.float64)
 
-    def walk(start_bond, tensors, code_of, sizes, step, held: float, depth: int):
-        """Full steps; returns the layer and ``piece(sectors)`` (the streamed steps, for some bra sectors)."""
+    def walk(start_bond, tensors, code_of, sizes, step, held: float, depth: int, fix: tuple = ()):
+        """Full steps; returns the layer and ``piece(sectors)`` (the streamed steps, for some bra sectors).
+
+        ``fix``: the physical sectors the bra takes on the walk's first open sites (a piece of the walk).
+        """
         g = _bond_identity(start_bond, rule, dtype)
         side, opened = _OpenSide([np.zeros(1, np.int64)], [0]), 0
+        bra = side
         full, streamed = tensors[:len(tensors) - depth], tensors[len(tensors) - depth:]
+
+        def keep(is_open, count):
+            return frozenset([fix[count]]) if is_open and count < len(fix) else None
+
         for k, a in full:
             is_open = k in sites
             meter.check(held + sizes[k - step] + sizes[k], k, a.legs[2].dim)  # input and output layers
-            g, side = _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, opened),
-                                         fermionic)
+            g, side, bra = _double_layer_step(g, a, is_open, side, phys, lambda o, s_: code_of(o, s_, opened),
+                                              fermionic, bra_side=bra, keep=keep(is_open, opened))
             opened += is_open
         if not streamed:  # a single site: no right walk, its identity taken sector by sector
             def piece(sectors):
@@ -580,10 +800,10 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
                     if k[3] in sectors:
                         rng = sectors.get(k[3]) if isinstance(sectors, dict) else None
                         blocks[k] = v if rng is None else np.ascontiguousarray(v[:, :, :, rng[0]:rng[1]])
-                return _Piece(g.legs, rule, blocks, dtype), side
+                return _Piece(g.legs, rule, blocks, dtype), side, bra
 
             return g, piece
-        base, base_side, counts = g, side, []
+        base, base_side, base_bra, counts = g, side, bra, []
         for k, _ in streamed:
             counts.append(opened)
             opened += k in sites
@@ -594,11 +814,12 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
             for pred in preds[:0:-1]:
                 wants.append(set().union(*(pred.get(x, ()) for x in wants[-1])))
             wants.reverse()
-            cur, cur_side = base, base_side
+            cur, cur_side, cur_bra = base, base_side, base_bra
             for (k, a), count, want in zip(streamed, counts, wants):
-                cur, cur_side = _double_layer_step(cur, a, k in sites, cur_side, phys,
-                                                   lambda o, s_, c=count: code_of(o, s_, c), fermionic, want)
-            return cur, cur_side
+                cur, cur_side, cur_bra = _double_layer_step(
+                    cur, a, k in sites, cur_side, phys, lambda o, s_, c=count: code_of(o, s_, c), fermionic, want,
+                    bra_side=cur_bra, keep=keep(k in sites, count))
+            return cur, cur_side, cur_bra
 
         return g, piece
 
@@ -607,39 +828,47 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
                               depth_left)
     right = [(k, st.tensors[k].transpose((2, 1, 0))) for k in range(hi, m, -1)]  # the mirrored chain
     k_right = len([k for k, _ in right if k in sites])
-    g_right, piece_right = walk(st.tensors[hi].legs[2], right, lambda o, s_, k: s_ * d**k + o, sizes_right,
-                                -1, sizes_left[m - depth_left], depth_right)
-    del st, left, right
+    del st
     # the open legs after the last steps (an empty piece: legs and codes only)
-    open_left, side_left = piece_left(frozenset())
-    open_right, side_right = piece_right(frozenset())
+    open_left, side_left, _ = piece_left(frozenset())
     names, local, moduli = _grading_of(space, basis.conserved)
     shift = d**k_right
-    # rows of a block of rho: the (left sector, right sector) pairs of one total open charge, one
-    # after the other, so that every product of two layers lands in a contiguous sub-block
-    layout: dict = {}
-    for sl, ql in enumerate(open_left.legs[0].charges.tolist()):
-        for sr, qr in enumerate(open_right.legs[0].charges.tolist()):
-            layout.setdefault(_add(tuple(ql), tuple(qr), rule), []).append((sl, sr))
-    place, sizes = {}, {}
-    for total, pairs in layout.items():
-        off = 0
-        for sl, sr in pairs:
-            n = len(side_left.codes[sl]) * len(side_right.codes[sr])
-            place[(sl, sr)] = (total, off, n)
-            off += n
-        sizes[total] = off
-    held = float(sum(n * n for n in sizes.values()))
+    layout = place = sizes = None
+    held = 0.0
     mats: dict = {}
-    # the join, one sector j of the bra bond b* at a time: both last steps done for that sector only
-    for j, start, stop, need in plan.units:
-        meter.check(plan.inputs + need + held, m, len(plan.units))
-        unit = {j: (start, stop)}
-        pl, _ = piece_left(unit)
-        pr, _ = piece_right(unit)
-        _join_into(mats, pl, pr, place, sizes, side_left, side_right, dtype)
-        del pl, pr
-    del g_left, g_right
+    pieced = len(plan.fixes) > 1
+    for fix, sizes_piece in zip(plan.fixes, plan.right_sizes):
+        # later pieces walk while the blocks of rho are held
+        g_right, piece_right = walk(st_hi_bond, right, lambda o, s_, k: s_ * d**k + o, sizes_piece, -1,
+                                    sizes_left[m - depth_left] + (held if pieced else 0.0), depth_right, fix)
+        open_right, side_right, bra_side = piece_right(frozenset())
+        if layout is None:
+            # rows of a block of rho: the (left sector, right sector) pairs of one total open charge, one
+            # after the other, so that every product of two layers lands in a contiguous sub-block
+            layout = {}
+            for sl, ql in enumerate(open_left.legs[0].charges.tolist()):
+                for sr, qr in enumerate(open_right.legs[0].charges.tolist()):
+                    layout.setdefault(_add(tuple(ql), tuple(qr), rule), []).append((sl, sr))
+            place, sizes = {}, {}
+            for total, pairs in layout.items():
+                off = 0
+                for sl, sr in pairs:
+                    n = len(side_left.codes[sl]) * len(side_right.codes[sr])
+                    place[(sl, sr)] = (total, off, n)
+                    off += n
+                sizes[total] = off
+            held = float(sum(n * n for n in sizes.values()))
+        bra_right = _bra_positions(open_right.legs[0], side_right, open_right.legs[1].dual(), bra_side) if fix else None
+        # the join, one sector j of the bra bond b* at a time: both last steps done for that sector only
+        for j, start, stop, need in plan.units:
+            meter.check(plan.inputs + need + held, m, len(plan.units))
+            unit = {j: (start, stop)}
+            pl, _, _ = piece_left(unit)
+            pr, _, _ = piece_right(unit)
+            _join_into(mats, pl, pr, place, sizes, side_left, side_right, dtype, bra_right)
+            del pl, pr
+        del g_right, piece_right
+    del g_left
     for total, mat in mats.items():  # rho is Hermitian: the sub-blocks below the diagonal from those above
         spans = [place[pair][1:] for pair in layout[total]]
         for i, (r0, rn) in enumerate(spans):
