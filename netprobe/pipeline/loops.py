@@ -17,14 +17,14 @@ Gauge-covariant translation
     by ``exp(2 pi i n / L_y)``: an integer in ``s = h_a - c-/24``, so s mod 1 does not depend on the
     lift. The shift of s is ``q f / 2``: 1/2 for the dyon e x m, 0 for 1, e, m.
 What the phase carries (measured, benchmarks/RESULTS.md)
-    At the toric-code fixed point the plain ``lambda = <T_y^L>`` is ``+2^(1 - L_y)`` at odd L_y in
-    all four sectors, whatever the ends: the Schmidt spectrum at the cut is flat and
-    ``(T_y^L)^(L_y) = 1`` on the left part, so ``lambda`` is ``2^(1 - L_y)`` times an L_y-th root of
-    unity (the one translation-invariant boundary configuration), and a real one is +1 at odd L_y.
-    Ends with one mobile e (measured at L_y = 3) and a uniform field (L_y = 3, 5) keep ``L_y arg(lambda)
-    / 2 pi`` an integer. So the 1/2 of the fermion comes entirely from this phase: it is the
-    Aharonov-Bohm phase of the left part's Z2 charge in the flux, read from the two loops, not an
-    independent reading of the spin from the entanglement spectrum.
+    With the ends of models/toric_code.toml the Schmidt spectrum at the cut is flat and
+    ``(T_y^L)^(L_y) = 1`` on the left part, so the plain ``lambda = <T_y^L>`` is ``2^(1 - L_y)`` times
+    the eigenvalue of the one translation-invariant boundary configuration (odd L_y), a real L_y-th
+    root of unity: +1 in all four sectors. One mobile e on the far end multiplies lambda by that e's
+    own L_y-th root of unity, and a uniform field keeps lambda positive (measured at L_y = 3, 5):
+    ``L_y arg(lambda) / 2 pi`` stays an integer. So the 1/2 of the fermion comes entirely from this
+    phase: it is the Aharonov-Bohm phase of the left part's Z2 charge in the flux, read from the two
+    loops, not an independent reading of the spin from the entanglement spectrum.
 Sharpness
     The bare loops are exact eigen-operators only at the fixed point; a loop value ``|<W>|`` below
     :data:`LOOP_SHARP` (a mixture of sectors, or loops that a perturbation has dressed) leaves the
