@@ -15,8 +15,8 @@ negative lambda at odd L_y. Three set-ups on models/toric_code.toml, exact diago
     The model file's ends with a uniform field ``-field sum (X + Z)``: the spectrum at the cut is no
     longer flat.
 
-Prints per sector the loops, the plain lambda, ``L_y arg(lambda) / 2 pi`` and the covariant s of
-:mod:`netprobe.pipeline.loops`. Not part of the default suite. Usage::
+Prints per sector the loops, the plain lambda, ``L_y arg(lambda) / 2 pi`` and the s that the rejected
+gauge-covariant phase exp(i pi q f / L_y) would give (:mod:`netprobe.pipeline.loops`). Not part of the default suite. Usage::
 
     python -m benchmarks.toric_ends --variant ends --circumference 5
     python -m benchmarks.toric_ends --variant mobile --circumference 3 --hop 0.3
@@ -38,7 +38,7 @@ from netprobe.engines.exact import ground_state
 from netprobe.engines.exact.solve import hamiltonian_matrix
 from netprobe.model.spec import load_model
 from netprobe.pipeline.cut import column_cut, exact_cut, translation_permutation
-from netprobe.pipeline.loops import covariant_shift, z2_sector
+from netprobe.pipeline.loops import z2_sector
 
 __all__ = ["main"]
 
@@ -123,7 +123,7 @@ def main(argv=None) -> int:
                 spec = exact_cut(vec, basis, model.space, cut)
                 lam = spec.polarization
                 s_plain = ly * cmath.phase(lam) / (2 * math.pi)
-                s_cov = s_plain + covariant_shift(z2)
+                s_cov = s_plain + (z2.charge * z2.flux / 2 if z2.sharp else 0.0)  # with exp(i pi q f / L_y)
                 print(f"{args.variant} L_y={ly} length={args.length} q={q} f={f} state {j + 1}/{deg}: "
                       f"W_charge {z2.charge_loop:+.4f} W_flux {z2.flux_loop:+.4f} T_full "
                       f"{ly * cmath.phase(eig[j]) / (2 * math.pi):+.3f} (2pi/L_y) gap {vals[deg] - vals[0]:.4f} | "

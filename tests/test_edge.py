@@ -321,9 +321,9 @@ def test_toric_code_sectors_are_the_loop_eigenstates_and_their_spectrum_is_flat(
     # the left part onto itself, so it keeps the sector; its Schmidt states are the boundary
     # configurations of one parity, and Tr(rho_L T) counts the translation-invariant ones: one for odd
     # L, so lambda = 2^(1-L) = 1/4 at L = 3, real and positive in every sector (derived from the
-    # stabilizer group, common practice). The plain lambda is real and positive at odd L, so its phase
-    # carries none of the 2 pi (1/2) / L of the fermion's spin: s = 0 in all four sectors; the 1/2 of
-    # e x m comes from the covariant Z2 phase of pipeline/loops.py (tests/test_toric_spins.py).
+    # stabilizer group, common practice). lambda is real and positive at odd L, so its phase carries
+    # none of the 2 pi (1/2) / L of the fermion's spin: s = 0 in all four sectors at the fixed point
+    # (pipeline/loops.py; away from it, benchmarks/RESULTS.md).
     seen = set()
     for left in (1, -1):
         for right in (1, -1):
@@ -453,20 +453,18 @@ def test_chern_insulator_dmrg_counting():
 
 @pytest.mark.slow
 def test_toric_code_sectors_give_zero_central_charge():
-    # Kitaev, Ann. Phys. 303, 2 (2003): h = 0, 0, 0, 1/2 for 1, e, m, e x m and c- = 0; with the Z2
-    # loops of the model file the fit reads h = q f / 2 (pipeline/loops.py), defined mod 1
+    # Kitaev, Ann. Phys. 303, 2 (2003): c- = 0. At the fixed point lambda = +2^(1 - L_y) in every sector
+    # (pipeline/loops.py), so the fit gives s = 0 in all four, the fermion's h = 1/2 included
     spec = load_spec("toric_code")
     for left in (1, -1):
         for right in (1, -1):
             out = edge_ladder(spec, {"length": "2", "left_edge": str(left), "right_edge": str(right)}, [3, 5, 7],
                               engine="dmrg", bond_dimensions=(128,), sweeps=6)
             pol = out["polarization"]
-            h = 0.5 if (left, right) == (-1, -1) else 0.0
-            s = pol["h_minus_c_over_24"]
-            assert abs(s - h - round(s - h)) <= TORIC_EDGE_FIT
-            if (left, right) == (1, 1):
-                assert pol["c_minus"] == pytest.approx(0.0, abs=TORIC_EDGE_FIT)
-            # the plain <T_y^L> is 2^(1 - L_y) > 0 in every sector (module notes of pipeline/loops.py)
-            assert all(abs(r["lambda_arg_plain"]) <= TORIC_EDGE_FIT for r in out["runs"])
+            assert pol["c_minus"] == pytest.approx(0.0, abs=TORIC_EDGE_FIT)
+            assert pol["h_minus_c_over_24"] == pytest.approx(0.0, abs=TORIC_EDGE_FIT)
+            # the loops label the four sectors (model file notes)
+            assert {(r["z2_loops"]["charge"], r["z2_loops"]["flux"]) for r in out["runs"]} == \
+                {((1 - left) // 2, (1 - right) // 2)}
             counts = out["counting"]["none"]
             assert max(counts) - min(counts) <= 1  # flat

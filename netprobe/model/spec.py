@@ -24,7 +24,7 @@ Layout
     charge_ops = "X"                  #   cut diagnostics (netprobe edge): the product of charge_ops over the
     charge_sublattice = 0             #   sites of charge_sublattice measures the Z2 charge of the left part,
     flux_ops = "Z"                    #   that of flux_ops over flux_sublattice the Z2 flux through the
-    flux_sublattice = 1               #   cylinder (netprobe.pipeline.loops)
+    flux_sublattice = 1               #   cylinder; reported as sector labels (netprobe.pipeline.loops)
 
     [[term]]
     on = "nn"                         # a bond family of the lattice

@@ -24,16 +24,13 @@ Momentum polarization (:func:`fit_polarization`)
     ``L_y``). The error combines the least-squares error with the change of s when the next
     smaller circumference joins the fit. A state real in a product basis under a real permutation
     (no twist) has a real lambda at every ``L_y``: only its sign at odd ``L_y`` can carry a spin
-    (negative: s = 1/2), and the toric code's is positive in all four sectors (its fermion's h = 1/2
-    included; :mod:`netprobe.pipeline.loops`); the fit's note says so when every lambda is real.
+    (negative: s = 1/2). At the toric code's fixed point it is positive in all four sectors, its
+    fermion's h = 1/2 included (flat spectrum; :mod:`netprobe.pipeline.loops`); the fit's note says so
+    when every lambda is real.
 Z2 sectors (:mod:`netprobe.pipeline.loops`)
     A model file that declares ``[z2_loops]`` gets the loop values on the last column of the left
-    part and, when both are sharp, the gauge-covariant phase ``exp(i pi q f / L_y)`` (Z2 charge q of
-    the left part, Z2 flux f through the cylinder) in ``lambda``, the Z2 counterpart of the U(1)
-    phase of :mod:`netprobe.pipeline.cut`; ``lambda_arg`` then holds the covariant phase and
-    ``lambda_arg_plain`` that of ``<T_y^L>`` itself. For the toric code this gives h = 0, 0, 0, 1/2
-    for 1, e, m, e x m at odd L_y; the plain lambda is positive in all four, so the 1/2 is the
-    Aharonov-Bohm phase of the loops' labels, not read from the entanglement spectrum (see there).
+    part and the Z2 labels (charge q, flux f) in ``polarization.z2_loops``; lambda itself is the plain
+    ``<T_y^L>`` (a covariant Z2 phase was tried and rejected, see there).
 Drivers (:func:`edge_state`, :func:`edge_ladder`)
     Ground state by the chosen engine (exact, dmrg, gaussian), cut, counting, per-sector
     polarization; a ladder of circumferences repeats this and fits.
@@ -57,7 +54,7 @@ from netprobe.engines.dmrg import SweepSettings, find_ground_state
 from netprobe.engines.gaussian import gaussian_state
 from netprobe.engines.exact import expectation, ground_state
 from netprobe.engines.mps import product_expectation
-from netprobe.pipeline.loops import covariant_shift, z2_sector
+from netprobe.pipeline.loops import z2_sector
 
 __all__ = ["EDGE_ENGINES", "CHARACTERS", "SectorCount", "PolarizationFit", "count_levels", "fit_polarization",
            "edge_state", "edge_ladder", "charge_label", "zero_mode_ratio", "ZERO_MODE_RATIO"]
@@ -406,9 +403,7 @@ def edge_state(model, *, engine: str = "dmrg", column: int | None = None,
     z2 = info.pop("z2", None)
     polarization = {"lambda_abs": abs(lam), "lambda_arg": cmath.phase(lam)}
     if z2 is not None:
-        polarization["lambda_arg_plain"] = cmath.phase(lam)
-        polarization["lambda_arg"] = cmath.phase(lam * cmath.exp(1j * z2.phase))
-        polarization["z2_loops"] = {**z2.to_json(), "h_shift": covariant_shift(z2)}
+        polarization["z2_loops"] = z2.to_json()
     sectors = []
     for q, (weight, lam_q) in spectrum.sector_polarization().items():
         if weight > 1e-8:
@@ -497,19 +492,15 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
     lambdas = [r["polarization"]["lambda_abs"] * cmath.exp(1j * r["polarization"]["lambda_arg"])
                for r in runs]
     note = _why(lys, runs[-1]["parameters"], [r.get("zero_mode_ratio") for r in runs])
-    plain = [abs(math.sin(r["polarization"].get("lambda_arg_plain", r["polarization"]["lambda_arg"])))
-             for r in runs]
     z2 = [r["polarization"].get("z2_loops") for r in runs]
-    if all(z is not None and z["applied"] for z in z2):
-        labels = sorted({(z["charge"], z["flux"]) for z in z2})
-        note += (f"; Z2 loops (charge, flux) = {labels}: lambda carries the gauge-covariant phase exp(i pi q f / L_y) "
-                 "(the Aharonov-Bohm phase of the left part's Z2 charge q in the flux f; shifts s by q f / 2), "
-                 "the plain <T_y^L> is in lambda_arg_plain")
-    elif any(z is not None for z in z2):
-        note += "; Z2 loops not sharp at every circumference (see runs): no covariant phase in those lambdas"
-    if all(p <= _REAL for p in plain):
-        note += ("; the plain lambda is real at every circumference (a real state under a real translation): "
-                 "only its sign at odd L_y could carry a spin of 1/2")
+    if any(z is not None for z in z2):
+        labels = sorted({(z["charge"], z["flux"]) for z in z2 if z is not None}, key=str)
+        note += (f"; Z2 loops (charge, flux) = {labels}"
+                 + ("" if all(z is not None and z["sharp"] for z in z2) else " (not sharp at every circumference)"))
+    if all(abs(lam.imag) <= _REAL * abs(lam) for lam in lambdas):
+        note += ("; lambda is real at every circumference (a real state under a real translation): only its "
+                 "sign at odd L_y can carry a spin (h = 1/2: negative); at the toric code's fixed point it is "
+                 "positive in every sector (flat spectrum), so h = 1/2 of e x m does not show there")
     fit = fit_polarization(lys, lambdas, note)
     sector_fits = []
     if all(r["sectors"] and r["sectors"][0]["charge"] != "none" for r in runs):
@@ -534,13 +525,12 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
     out = {k: v for k, v in last.items() if k not in ("polarization", "seconds")}
     out["polarization"] = {"lambda_abs": last["polarization"]["lambda_abs"],
                            "lambda_arg": last["polarization"]["lambda_arg"],
-                           **{k: last["polarization"][k] for k in ("lambda_arg_plain", "z2_loops")
-                              if k in last["polarization"]},
+                           **{k: last["polarization"][k] for k in ("z2_loops",) if k in last["polarization"]},
                            **fit.to_json()}
     out["sector_fits"] = sector_fits
     out["runs"] = [{"circumference": r["circumference"], "lambda_abs": r["polarization"]["lambda_abs"],
                     "lambda_arg": r["polarization"]["lambda_arg"],
-                    **{k: r["polarization"][k] for k in ("lambda_arg_plain", "z2_loops") if k in r["polarization"]},
+                    **{k: r["polarization"][k] for k in ("z2_loops",) if k in r["polarization"]},
                     "energy": r.get("energy"),
                     "zero_mode_ratio": r.get("zero_mode_ratio"),
                     "counting": r["counting"], "seconds": r["seconds"]} for r in runs]
