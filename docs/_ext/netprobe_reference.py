@@ -43,6 +43,10 @@ TOP_KEY_TEXT = {
                   "keys; every entry can be overridden with ``--set name=value``",
     "sector": "table: target value of each conserved charge, an expression in the parameters and ``sites``",
     "term": "array of tables ``[[term]]``: operator products placed on a bond family with a coupling",
+    "z2_loops": "optional table: ``charge_ops``, ``charge_sublattice``, ``flux_ops``, ``flux_sublattice``; the "
+                "products of these one-site operators over a sublattice of one column measure the Z2 charge of "
+                "the left part and the Z2 flux through the cylinder; ``netprobe edge`` reports them as the "
+                "sector labels of the momentum polarization",
 }
 MODEL_KEY_TEXT = {
     "name": "required; the model's name",

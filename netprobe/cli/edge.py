@@ -96,6 +96,12 @@ def _edge_lines(r: dict) -> list[str]:
                      "the allowed momenta off the crossing")
     pol = r["polarization"]
     lines.append(f"lambda = <T_y^L>: |lambda| = {pol['lambda_abs']:.6g}, arg = {pol['lambda_arg']:+.6f}")
+    loops = pol.get("z2_loops")
+    if loops is not None:
+        labels = (f"charge q = {loops['charge']}, flux f = {loops['flux']}" if loops["sharp"]
+                  else "not sharp: a mixture of sectors")
+        lines.append(f"  Z2 loops on column {loops['column']}: <charge> = {loops['charge_loop']:+.6f}, "
+                     f"<flux> = {loops['flux_loop']:+.6f}; {labels}")
     if "h_minus_c_over_24" in pol:
         err = "n/a" if pol["error"] is None else f"{pol['error']:.4f}"
         cerr = "n/a" if pol["c_minus_error"] is None else f"{pol['c_minus_error']:.3f}"

@@ -20,6 +20,12 @@ Layout
     [sector]                          # target value of each conserved charge, an expression in
     N = "sites / 2"                   #   the parameters and `sites` (number of sites)
 
+    [z2_loops]                        # optional: Z2 loops around the cylinder on one column, read by the
+    charge_ops = "X"                  #   cut diagnostics (netprobe edge): the product of charge_ops over the
+    charge_sublattice = 0             #   sites of charge_sublattice measures the Z2 charge of the left part,
+    flux_ops = "Z"                    #   that of flux_ops over flux_sublattice the Z2 flux through the
+    flux_sublattice = 1               #   cylinder; reported as sector labels (netprobe.pipeline.loops)
+
     [[term]]
     on = "nn"                         # a bond family of the lattice
     ops = "cdag c"                    # a sum of products, one operator per bond member, see below
@@ -60,7 +66,8 @@ LATTICE_KEYS = {"lattice": str, "geometry": str, "orientation": str, "length": i
                 "flux": float, "twist": float}
 _MODEL_KEYS = {"name", "description", "site", "conserved", "source"}
 _TERM_KEYS = {"on", "ops", "coupling", "conjugate", "peierls"}
-_TOP_KEYS = {"model", "parameters", "sector", "term"}
+_TOP_KEYS = {"model", "parameters", "sector", "term", "z2_loops"}
+_LOOP_KEYS = {"charge_ops": str, "charge_sublattice": int, "flux_ops": str, "flux_sublattice": int}
 _SITE_VARIABLES = ("x", "y", "sublattice", "eps")
 _NON_FINITE = {"nan", "inf", "infinity", "NaN", "Inf", "Infinity"}
 
@@ -138,6 +145,7 @@ class ModelSpec:
     terms: tuple[TermSpec, ...]
     path: str = ""
     text: str = field(default="", repr=False)
+    z2_loops: Mapping[str, Any] | None = None
 
 
 def _where(path: str) -> str:
@@ -270,8 +278,23 @@ def parse_spec(text: str, *, path: str = "") -> ModelSpec:
     return ModelSpec(
         name=model["name"], description=str(model.get("description", "")), source=str(model.get("source", "")),
         site=model["site"], conserved=tuple(conserved), parameters=dict(params), sector=sector,
-        terms=tuple(terms), path=path, text=text,
+        terms=tuple(terms), path=path, text=text, z2_loops=_parse_loops(raw.get("z2_loops"), where),
     )
+
+
+def _parse_loops(table, where) -> dict | None:
+    """The optional ``[z2_loops]`` table: all four keys, operator names and sublattice indices."""
+    if table is None:
+        return None
+    check_keys(table, set(_LOOP_KEYS), where, "[z2_loops]")
+    out = {}
+    for key, kind in _LOOP_KEYS.items():
+        value = table.get(key)
+        if isinstance(value, bool) or not isinstance(value, kind) or (kind is int and value < 0):
+            what = "an operator name such as \"X\"" if kind is str else "a sublattice index (0, 1, ...)"
+            raise SpecError(f"{where}: [z2_loops] needs '{key}' as {what}")
+        out[key] = value
+    return out
 
 
 def _as_expression(value, where, what) -> expr.Expression:

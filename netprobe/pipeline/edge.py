@@ -23,9 +23,14 @@ Momentum polarization (:func:`fit_polarization`)
     with an integer K that depends on its filling, and may do so differently for even and odd
     ``L_y``). The error combines the least-squares error with the change of s when the next
     smaller circumference joins the fit. A state real in a product basis under a real permutation
-    (no twist) has a real lambda at every ``L_y``, so s = 0 by construction: the polarization then
-    cannot show a topological spin (the toric code gives s = 0 in all four sectors, h = 1/2 of its
-    fermion included); the fit's note says so when every lambda is real.
+    (no twist) has a real lambda at every ``L_y``: only its sign at odd ``L_y`` can carry a spin
+    (negative: s = 1/2). At the toric code's fixed point it is positive in all four sectors, its
+    fermion's h = 1/2 included (flat spectrum; :mod:`netprobe.pipeline.loops`); the fit's note says so
+    when every lambda is real.
+Z2 sectors (:mod:`netprobe.pipeline.loops`)
+    A model file that declares ``[z2_loops]`` gets the loop values on the last column of the left
+    part and the Z2 labels (charge q, flux f) in ``polarization.z2_loops``; lambda itself is the plain
+    ``<T_y^L>`` (a covariant Z2 phase was tried and rejected, see there).
 Drivers (:func:`edge_state`, :func:`edge_ladder`)
     Ground state by the chosen engine (exact, dmrg, gaussian), cut, counting, per-sector
     polarization; a ladder of circumferences repeats this and fits.
@@ -47,7 +52,9 @@ from netprobe.errors import NetprobeError
 from netprobe.model.spec import build_model
 from netprobe.engines.dmrg import SweepSettings, find_ground_state
 from netprobe.engines.gaussian import gaussian_state
-from netprobe.engines.exact import ground_state
+from netprobe.engines.exact import expectation, ground_state
+from netprobe.engines.mps import product_expectation
+from netprobe.pipeline.loops import z2_sector
 
 __all__ = ["EDGE_ENGINES", "CHARACTERS", "SectorCount", "PolarizationFit", "count_levels", "fit_polarization",
            "edge_state", "edge_ladder", "charge_label", "zero_mode_ratio", "ZERO_MODE_RATIO"]
@@ -323,6 +330,8 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
     if engine == "exact":
         gs = ground_state(model.hamiltonian)
         info["energy"] = float(gs.energy)
+        if model.spec.z2_loops:
+            info["z2"] = z2_sector(model, cut.column - 1, lambda p: expectation(gs, [p]))
         return exact_cut(gs.vector(0), gs.basis, model.space, cut), info
     state, rungs, spectrum = None, [], None
     for d in bond_dimensions:
@@ -353,6 +362,8 @@ def _ground_state_cut(model, engine, cut, *, bond_dimensions, sweeps, seed, wind
                       "lambda_abs": abs(lam), "lambda_arg": cmath.phase(lam)})
     info["energy"] = rungs[-1]["energy"]
     info["ladder"] = rungs
+    if model.spec.z2_loops:
+        info["z2"] = z2_sector(model, cut.column - 1, lambda p: product_expectation(state, p))
     if len(rungs) > 1:
         prev = rungs[-2]
         last = rungs[-1]["lambda_abs"] * cmath.exp(1j * rungs[-1]["lambda_arg"])
@@ -389,6 +400,10 @@ def edge_state(model, *, engine: str = "dmrg", column: int | None = None,
     lowest = min(counts, key=lambda c: c.lowest_level)
     ratio = zero_mode_ratio(counts)
     lam = spectrum.polarization
+    z2 = info.pop("z2", None)
+    polarization = {"lambda_abs": abs(lam), "lambda_arg": cmath.phase(lam)}
+    if z2 is not None:
+        polarization["z2_loops"] = z2.to_json()
     sectors = []
     for q, (weight, lam_q) in spectrum.sector_polarization().items():
         if weight > 1e-8:
@@ -402,7 +417,7 @@ def edge_state(model, *, engine: str = "dmrg", column: int | None = None,
         "counting": {charge_label(c.charge): c.counts for c in counts},
         "counting_details": {"lowest_sector": charge_label(lowest.charge), "steps": steps,
                              "window": count_window, "sectors": [c.to_json() for c in counts]},
-        "polarization": {"lambda_abs": abs(lam), "lambda_arg": cmath.phase(lam)},
+        "polarization": polarization,
         "sectors": sectors,
         "zero_mode_ratio": ratio,
         "seconds": time.perf_counter() - start,
@@ -477,10 +492,15 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
     lambdas = [r["polarization"]["lambda_abs"] * cmath.exp(1j * r["polarization"]["lambda_arg"])
                for r in runs]
     note = _why(lys, runs[-1]["parameters"], [r.get("zero_mode_ratio") for r in runs])
+    z2 = [r["polarization"].get("z2_loops") for r in runs]
+    if any(z is not None for z in z2):
+        labels = sorted({(z["charge"], z["flux"]) for z in z2 if z is not None}, key=str)
+        note += (f"; Z2 loops (charge, flux) = {labels}"
+                 + ("" if all(z is not None and z["sharp"] for z in z2) else " (not sharp at every circumference)"))
     if all(abs(lam.imag) <= _REAL * abs(lam) for lam in lambdas):
-        note += ("; lambda is real at every circumference (a real state under a real translation), so s = 0 by "
-                 "construction: topological spins of a time-reversal-invariant state (e.g. h = 1/2 of the toric "
-                 "code's fermion) are not visible in the polarization")
+        note += ("; lambda is real at every circumference (a real state under a real translation): only its "
+                 "sign at odd L_y can carry a spin (h = 1/2: negative); at the toric code's fixed point it is "
+                 "positive in every sector (flat spectrum), so h = 1/2 of e x m does not show there")
     fit = fit_polarization(lys, lambdas, note)
     sector_fits = []
     if all(r["sectors"] and r["sectors"][0]["charge"] != "none" for r in runs):
@@ -504,10 +524,14 @@ def edge_ladder(spec, overrides: dict, circumferences: Sequence[int], *, engine:
     last = runs[-1]
     out = {k: v for k, v in last.items() if k not in ("polarization", "seconds")}
     out["polarization"] = {"lambda_abs": last["polarization"]["lambda_abs"],
-                           "lambda_arg": last["polarization"]["lambda_arg"], **fit.to_json()}
+                           "lambda_arg": last["polarization"]["lambda_arg"],
+                           **{k: last["polarization"][k] for k in ("z2_loops",) if k in last["polarization"]},
+                           **fit.to_json()}
     out["sector_fits"] = sector_fits
     out["runs"] = [{"circumference": r["circumference"], "lambda_abs": r["polarization"]["lambda_abs"],
-                    "lambda_arg": r["polarization"]["lambda_arg"], "energy": r.get("energy"),
+                    "lambda_arg": r["polarization"]["lambda_arg"],
+                    **{k: r["polarization"][k] for k in ("z2_loops",) if k in r["polarization"]},
+                    "energy": r.get("energy"),
                     "zero_mode_ratio": r.get("zero_mode_ratio"),
                     "counting": r["counting"], "seconds": r["seconds"]} for r in runs]
     out["seconds"] = sum(r["seconds"] for r in runs)

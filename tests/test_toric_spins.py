@@ -1,0 +1,75 @@
+"""Sectors of the toric code at the cut: Z2 loops, and what the momentum polarization shows in them.
+
+Kitaev, Ann. Phys. 303, 2 (2003): the anyons 1, e, m, e x m of the toric code have topological spins
+h = 0, 0, 0, 1/2. On the cylinder of models/toric_code.toml the end signs select the sector on odd
+circumferences (left_edge = -1: Z2 charge e in the left part; right_edge = -1: Z2 flux m through the
+cylinder); the loops of [z2_loops] read the sector back from the state. At the fixed point the plain
+momentum polarization is +2^(1 - L_y) in all four sectors (netprobe/pipeline/loops.py), so h = 1/2
+does not show there; benchmarks/RESULTS.md has the measurements away from it.
+"""
+
+import json
+
+import pytest
+from conftest import EXACT_VECTOR, assert_one_line_error, run_main
+
+from netprobe.errors import SpecError
+from netprobe.model.spec import load_model, load_spec, parse_spec
+from netprobe.pipeline.edge import edge_state
+from netprobe.pipeline.loops import LOOP_SHARP, z2_sector
+
+# (left_edge, right_edge) -> (Z2 charge q, Z2 flux f) of the left part (model file notes)
+SECTORS = {(1, 1): (0, 0), (-1, 1): (1, 0), (1, -1): (0, 1), (-1, -1): (1, 1)}
+
+
+@pytest.mark.parametrize("ends", list(SECTORS))
+def test_toric_code_loops_label_the_sectors_and_lambda_is_positive(ends):
+    left, right = ends
+    ly = 3  # odd: the end signs select the sector; 12 spins, exact
+    model = load_model("toric_code", {"length": "2", "circumference": str(ly), "left_edge": str(left),
+                                      "right_edge": str(right)})
+    pol = edge_state(model, engine="exact")["polarization"]
+    loops = pol["z2_loops"]
+    # the fixed point is an exact loop eigenstate: <W> = +-1 to the rounding of the eigensolver
+    assert abs(abs(loops["charge_loop"]) - 1) < EXACT_VECTOR and abs(abs(loops["flux_loop"]) - 1) < EXACT_VECTOR
+    assert (loops["charge"], loops["flux"]) == SECTORS[ends] and loops["sharp"]
+    # flat spectrum and (T_y^L)^L_y = 1: lambda = 2^(1 - L_y) times a real L_y-th root of unity, +1
+    # (derived from the stabilizer group, common practice); e x m included, so h = 1/2 does not show
+    assert pol["lambda_abs"] == pytest.approx(2.0 ** (1 - ly), abs=EXACT_VECTOR)
+    assert abs(pol["lambda_arg"]) < EXACT_VECTOR
+
+
+def test_edge_command_reports_the_loops():
+    proc = run_main("edge", "toric_code", "--engine", "exact", "--set", "length=2", "--set", "circumference=3",
+                    "--set", "left_edge=-1", "--set", "right_edge=-1", "--json")
+    assert proc.returncode == 0, proc.stderr
+    loops = json.loads(proc.stdout)["polarization"]["z2_loops"]
+    assert (loops["charge"], loops["flux"]) == (1, 1)
+
+
+def test_unsharp_loops_leave_the_sector_undecided():
+    # a sector mixture has <W> near 0
+    model = load_model("toric_code", {"length": "2", "circumference": "3"})
+    mixed = z2_sector(model, 0, lambda product: LOOP_SHARP / 2)
+    assert not mixed.sharp and mixed.charge is None and mixed.flux is None
+    dyon = z2_sector(model, 0, lambda product: -1.0)
+    assert dyon.sharp and (dyon.charge, dyon.flux) == (1, 1)
+
+
+def test_z2_loops_table_is_validated():
+    text = load_spec("toric_code").text
+    broken = text.replace('flux_sublattice = 1', 'flux_sublattice = "one"')
+    with pytest.raises(SpecError, match=r"\[z2_loops\] needs 'flux_sublattice'"):
+        parse_spec(broken)
+    with pytest.raises(SpecError, match="unknown key 'flux_op'"):
+        parse_spec(text.replace("flux_ops", "flux_op"))
+    model = load_model("toric_code", {"length": "2", "circumference": "3"})
+    assert model.spec.z2_loops == {"charge_ops": "X", "charge_sublattice": 0, "flux_ops": "Z",
+                                   "flux_sublattice": 1}
+
+
+def test_loop_on_a_missing_sublattice_is_one_line(tmp_path):
+    path = tmp_path / "toric_bad.toml"
+    path.write_text(load_spec("toric_code").text.replace("flux_sublattice = 1", "flux_sublattice = 7"))
+    proc = run_main("edge", str(path), "--engine", "exact", "--set", "length=2", "--set", "circumference=3")
+    assert_one_line_error(proc, "no sites of sublattice 7")
