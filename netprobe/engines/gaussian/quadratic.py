@@ -36,6 +36,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from netprobe.errors import GaussianStateError, HermiticityError, NotQuadraticError
+from netprobe.model.terms import _same_objects
 
 __all__ = [
     "NotQuadraticError",
@@ -423,18 +424,6 @@ def _layout_of(matrices, mode_map: _ModeMap, cache: dict) -> _Layout:
 
     return _Layout(tuple(factors), cat(f_index), cat(f_offset), cat(odd_index), cat(odd_offset),
                    tuple(odd_letter), tuple(varying), False)
-
-
-def _same_objects(a: tuple, b: tuple) -> bool:
-    """True if two tuples of matrices of equal length hold the same objects in the same order.
-
-    Tuple equality compares elements by identity first; two different matrices reach
-    ``ndarray.__eq__``, whose array result has no truth value (a ValueError): not the same.
-    """
-    try:
-        return a is b or bool(a == b)
-    except ValueError:
-        return False
 
 
 def _collect(products, mode_map: _ModeMap) -> _Collector:
