@@ -422,6 +422,18 @@ def _predecessors(tensor: BlockTensor, ket_to_bra: bool) -> dict:
     return out
 
 
+def _largest_join_block(lsz: dict, rsz: dict, rule) -> float:
+    """Entries of the largest block of rho met in the join: open sectors (ql, ql2) on the left with (qr, qr2)
+    on the right such that ql + qr = ql2 + qr2, ``lsz``/``rsz`` the sector sizes of the open sites."""
+    part = 0.0
+    for ql, nl in lsz.items():
+        for ql2, nl2 in lsz.items():
+            for qr, nr in rsz.items():
+                nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
+                part = max(part, float(nl * nl2 * nr * nr2))
+    return part
+
+
 def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
     """The split point and streaming depths: exact peaks from the charge sectors (entries).
 
@@ -512,12 +524,7 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
             bond = t[m].legs[2]
             n_sec = bond.n_sectors
             lsz, rsz = opens[k_left], opens[len(sites) - k_left]
-            part = 0.0
-            for ql, nl in lsz.items():
-                for ql2, nl2 in lsz.items():
-                    for qr, nr in rsz.items():
-                        nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
-                        part = max(part, float(nl * nl2 * nr * nr2))
+            part = _largest_join_block(lsz, rsz, rule)
             depths_left = range(1, min(MAX_STREAMED, m - lo + 1) + 1) if deep else [1]
             depths_right = range(1, min(MAX_STREAMED, hi - m) + 1) if deep and not single else [1]
             for dl in depths_left:
@@ -588,12 +595,7 @@ def _plan(state, sites: tuple[int, ...], budget: float | None = None) -> _Plan:
             bond = t[m].legs[2]
             n_sec = bond.n_sectors
             lsz, rsz = opens[k_left], opens[len(sites) - k_left]
-            part = 0.0
-            for ql, nl in lsz.items():
-                for ql2, nl2 in lsz.items():
-                    for qr, nr in rsz.items():
-                        nr2 = rsz.get(_add(_add(ql, qr, rule), ql2, rule, -1), 0)
-                        part = max(part, float(nl * nl2 * nr * nr2))
+            part = _largest_join_block(lsz, rsz, rule)
             for k in range(1, n_right_open(m) + 1):
                 if len(phys_q) ** k > MAX_PIECES:
                     break
