@@ -11,6 +11,7 @@ from netprobe import rdm, resources
 from netprobe.rdm import root as root_route
 from netprobe.rdm import split as split_route
 from netprobe.rdm import tables as rdm_tables
+from netprobe.rdm import tiles as rdm_tiles
 from netprobe.rdm import zipper as zipper_route
 from netprobe.errors import LatticeError, MemoryBudgetError, NetprobeError, SectorError
 from netprobe.engines.exact import correlation, full_vector, ground_state
@@ -320,6 +321,36 @@ def test_split_walks_equal_the_dense_vector_route(name, overrides, sites):
     rho = rdm.reduced_density_matrix(state, sites, model.space, method="split")
     assert np.allclose(rho, ref, atol=tol(factor=1e4))
     assert rdm.reduced_root(state, sites, model.space, method="split").route == "mps-split"
+
+
+@pytest.mark.parametrize("pieces", [False, True])
+def test_upper_tiles_and_hermitian_fill_rebuild_a_hermitian_matrix(rng, pieces):
+    # Reference: a random Hermitian matrix (common practice: rho = rho^dagger). The block has three sector
+    # pairs of (left, right) open states; the join's helpers write the sub-blocks above the diagonal and
+    # the tiles i <= j of the diagonal ones (with ``pieces``: the columns of each diagonal sub-block in
+    # two disjoint sets of right bra states), and the fill must give back the whole matrix, bit for bit.
+    pairs = [(3, 2), (1, 4), (4, 3)]
+    spans, off = [], 0
+    for xl, xr in pairs:
+        spans.append((off, xl, xr))
+        off += xl * xr
+    a = rng.normal(size=(off, off)) + 1j * rng.normal(size=(off, off))
+    full = a + a.conj().T
+    built = np.zeros_like(full)
+    for k, (r0, xl, xr) in enumerate(spans):
+        for c0, yl, yr in spans[k + 1:]:
+            built[r0:r0 + xl * xr, c0:c0 + yl * yr] = full[r0:r0 + xl * xr, c0:c0 + yl * yr]
+        sub = full[r0:r0 + xl * xr, r0:r0 + xl * xr].reshape(xl, xr, xl, xr).transpose(0, 2, 1, 3)
+        rows = sub.reshape(xl * xl, xr * xr)[rdm_tiles.upper_pairs(xl)]  # (i <= j, (a, b))
+        if not pieces:
+            rdm_tiles.add_upper_tiles(built, rows, r0, r0, xl, xr, xr, None)
+            continue
+        for pos in (np.arange(xr)[::2], np.arange(xr)[1::2]):
+            part = rows.reshape(-1, xr, xr)[:, :, pos].reshape(len(rows), -1)
+            rdm_tiles.add_upper_tiles(built, part, r0, r0, xl, xr, xr, pos)
+    assert not np.array_equal(built, full)  # the lower half is still missing
+    rdm_tiles.fill_hermitian(built, spans)
+    assert np.array_equal(built, full)
 
 
 @pytest.mark.parametrize("dtype", [np.float64, np.complex128])

@@ -55,6 +55,7 @@ from netprobe.resources import resolve_budget
 from netprobe.rdm.common import BlockedRho, RootBlock, _grading_of, _labels
 from netprobe.rdm.root import UngradedParity
 from netprobe.rdm.spectra import _blas_threads
+from netprobe.rdm.tiles import add_upper_tiles, fill_hermitian, upper_pairs
 from netprobe.rdm.tables import (
     WalkMeter, _add, _bond_counts, _centred_copy, _fuse_tables, _pairs_by_charge, _parity_graded, _sector_parity,
 )
@@ -650,13 +651,18 @@ def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dic
     """``rho += sum_{b, b*} G_L[O_L, O_L*, b, b*] G_R[O_R, O_R*, b, b*]`` into the charge blocks ``mats``.
 
     Only the sub-blocks on and above the diagonal of each block (row pair of sectors before or at the
-    column pair); the caller fills the rest from them, rho being Hermitian. ``bra_right`` maps the
+    column pair), and in a diagonal sub-block only its tiles ``O_L <= O_L*`` (the products take the
+    rows of those left index pairs alone, about half the flops of the full sub-block); the caller fills
+    the rest from them (:func:`netprobe.rdm.tiles.fill_hermitian`), rho being Hermitian. ``bra_right`` maps the
     sectors of a right piece's bra leg (a part of the configurations) to ``(sector, positions)`` of
     the whole leg; its columns are then scattered into place.
     """
     left_groups: dict = {}
     for (sl, slb, bk, bb), blk in g_left.blocks.items():
-        left_groups.setdefault((sl, slb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
+        mat = blk.reshape(blk.shape[0] * blk.shape[1], -1)
+        if sl == slb:  # a diagonal sub-block: the rows of the left index pairs O_L <= O_L* only
+            mat = mat[upper_pairs(blk.shape[0])]
+        left_groups.setdefault((sl, slb), {})[(bk, bb)] = mat
     right_groups: dict = {}
     for (sr, srb, bk, bb), blk in g_right.blocks.items():
         right_groups.setdefault((sr, srb), {})[(bk, bb)] = blk.reshape(blk.shape[0] * blk.shape[1], -1)
@@ -690,7 +696,9 @@ def _join_into(mats: dict, g_left: BlockTensor, g_right: BlockTensor, place: dic
                             target = mats[total] = np.zeros((sizes[total], sizes[total]), dtype)
                 xl, yl = len(side_left.codes[sl]), len(side_left.codes[slb])
                 xr, yr = len(side_right.codes[sr]), len(side_right.codes[srb])
-                if pos is None:
+                if sl == slb:
+                    add_upper_tiles(target, part, r0, c0, xl, xr, yr, pos)
+                elif pos is None:
                     view = target[r0:r0 + rn, c0:c0 + cn].reshape(xl, xr, yl, yr)
                     view += part.reshape(xl, yl, xr, yr).transpose(0, 2, 1, 3)
                 else:  # the piece's columns: (O_L*, O_R*) with O_R* at ``pos`` of its sector (distinct columns)
@@ -871,11 +879,9 @@ def split_blocks(state, sites: tuple[int, ...], budget: int | None = None, where
             del pl, pr
         del g_right, piece_right
     del g_left
-    for total, mat in mats.items():  # rho is Hermitian: the sub-blocks below the diagonal from those above
-        spans = [place[pair][1:] for pair in layout[total]]
-        for i, (r0, rn) in enumerate(spans):
-            for c0, cn in spans[i + 1:]:
-                mat[c0:c0 + cn, r0:r0 + rn] = mat[r0:r0 + rn, c0:c0 + cn].conj().T
+    for total, mat in mats.items():  # rho is Hermitian: what lies below the diagonal from what lies above
+        fill_hermitian(mat, [(place[(sl, sr)][1], len(side_left.codes[sl]), len(side_right.codes[sr]))
+                              for sl, sr in layout[total]])
     trace = sum(float(np.trace(b).real) for b in mats.values())
     powers = d ** np.arange(len(sites) - 1, -1, -1, dtype=np.int64)
     blocks = []
