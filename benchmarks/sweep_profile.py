@@ -15,12 +15,19 @@ block copies, index plans, environments, SVD, Lanczos).
 process, and prints wall and CPU seconds, matvec flops, efficiencies and the energies to all
 digits. ``--bonds LO:HI`` replaces the full sweep by the right-moving updates of bonds LO..HI-1
 only (the centre moved to LO first, untimed): a partial sweep over central bonds, for states whose
-full sweep takes too long here.
+full sweep takes too long here. ``--window LO:HI`` (around ``--bonds``) first runs untimed
+right-moving and then left-moving updates of the bonds of the window at D, so that a state saved at
+a smaller bond dimension (e.g. D = 256) reaches D on both sides of the timed bonds without a full
+sweep at D: the environments outside the window still belong to the smaller bond dimension (their
+tensors were not updated), which the output says. ``--compare`` prepares once and times copies of
+the prepared engine.
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
+import copy
 import cProfile
 import io
 import pstats
@@ -39,7 +46,7 @@ def main(argv=None) -> None:
     from netprobe.engines.dmrg.engine import GroundStateSearch
     from netprobe.engines.mps.mpo import build_mpo
     from netprobe.engines.mps import random_state
-    from netprobe.engines.mps.store import read_mps, write_mps
+    from netprobe.engines.mps.store import read_mps
 
     parser = argparse.ArgumentParser(prog="python -m benchmarks.sweep_profile")
     parser.add_argument("model", choices=("square", "kagome"))
@@ -48,12 +55,21 @@ def main(argv=None) -> None:
     parser.add_argument("--profile", action="store_true")
     parser.add_argument("--split", action="store_true", help="profile and print the split of the sweep's time")
     parser.add_argument("--state", help="start from this saved state (HDF5) instead of growing one")
-    parser.add_argument("--save", help="write the grown state to this file (HDF5)")
+    parser.add_argument("--save", help="write the grown state to this file (HDF5); with --window the state "
+                        "after the window's untimed updates")
     parser.add_argument("--warm", type=int, default=0, help="untimed sweeps before the timed one")
     parser.add_argument("--compare", type=int, default=0,
                         help="time the sweep N times in turn with the block-contraction and the slab matvec")
     parser.add_argument("--bonds", help="LO:HI: time only the right-moving updates of bonds LO..HI-1")
+    parser.add_argument("--window", help="LO:HI around --bonds: untimed right- and left-moving updates of "
+                        "bonds LO..HI-1 at D first (from a state of smaller D: the timed bonds then have D on "
+                        "both sides, the environments outside the window keep the smaller D)")
     args = parser.parse_args(argv)
+    if args.window and not args.bonds:
+        parser.error("--window needs --bonds")
+    if args.window and not (_bonds(args.window)[0] <= _bonds(args.bonds)[0] < _bonds(args.bonds)[1]
+                            <= _bonds(args.window)[1]):
+        parser.error("--window LO:HI must contain the --bonds range")
     ham = wl.heisenberg_cylinder(6, 6) if args.model == "square" else wl.kagome_cylinder()
     chi = 32
     if args.state:
@@ -71,9 +87,8 @@ def main(argv=None) -> None:
         if chi == args.bond_dimension:
             break
         chi *= 2
-    if args.save:
-        with h5py.File(args.save, "w") as f:
-            write_mps(f.create_group("state"), state)
+    if args.save and not args.window:
+        _save(args.save, state)
     if args.no_charges:
         ham = wl.without_charges_of(ham)
         state = wl.without_charges(state, ham)
@@ -84,17 +99,19 @@ def main(argv=None) -> None:
     for _ in range(args.warm):
         record = engine.step()
         print(f"untimed sweep at D={chi}: {record.seconds:.1f} s, E = {record.energy:.8f}", flush=True)
-    gemm = gemm_rate(engine.dtype, 1024)
+    bonds = _bonds(args.bonds)
+    _prepare(engine, bonds, _bonds(args.window))
+    if args.save and args.window:
+        _save(args.save, engine.state)
+    gemm, gemm_cpu = gemm_rate(engine.dtype, 1024), _gemm_rate_cpu(engine.dtype)
     profiler = cProfile.Profile(time.process_time) if args.profile or args.split else None
-    if profiler:
-        profiler.enable()
-    record = engine.step()
-    if profiler:
-        profiler.disable()
-    gemm = max(gemm, gemm_rate(engine.dtype, 1024))
-    print(f"{args.model} D={chi} charges={not args.no_charges} {engine.dtype}: {record.seconds:.1f} s, "
-          f"{record.matvecs} matvecs, {record.matvec_flops / 1e9:.1f} GFlop of matvecs, GEMM "
-          f"{gemm / 1e9:.1f} GFlop/s: efficiency {record.matvec_flops / gemm / record.seconds:.3f}")
+    wall, cpu, matvecs, flops, energy = _timed(engine, bonds, profiler)
+    gemm, gemm_cpu = max(gemm, gemm_rate(engine.dtype, 1024)), max(gemm_cpu, _gemm_rate_cpu(engine.dtype))
+    what = _what(bonds, _bonds(args.window), state)
+    print(f"{args.model} D={chi} charges={not args.no_charges} {engine.dtype}, {what}: {wall:.1f} s wall, "
+          f"{cpu:.1f} s CPU, {matvecs} matvecs, {flops / 1e9:.1f} GFlop of matvecs, GEMM {gemm / 1e9:.1f} "
+          f"(wall) / {gemm_cpu / 1e9:.1f} (CPU) GFlop/s: efficiency {flops / gemm / wall:.3f} (wall), "
+          f"{flops / gemm_cpu / cpu:.3f} (CPU){' under cProfile' if profiler else ''}; E = {energy!r}")
     if args.split:
         _print_split(pstats.Stats(profiler).stats)
     if args.profile:
@@ -124,22 +141,96 @@ def _gemm_rate_cpu(dtype, n: int = 1024, repeats: int = 5) -> float:
     return (8 if np.dtype(dtype).kind == "c" else 2) * n**3 / best
 
 
-def _timed(engine, bonds):
-    """Wall and CPU seconds, matvecs, matvec flops and energy of one sweep (or of bonds LO..HI-1)."""
+def _bonds(text):
+    """``"LO:HI"`` as a pair of ints, None for None."""
+    return tuple(int(b) for b in text.split(":")) if text else None
+
+
+def _save(path, state) -> None:
+    from netprobe.engines.mps.store import write_mps
+
+    with h5py.File(path, "w") as f:
+        write_mps(f.create_group("state"), state)
+    print(f"state written to {path}", flush=True)
+
+
+def _what(bonds, window, state) -> str:
+    """What was timed, in words (and what the environments outside a window belong to)."""
     if bonds is None:
-        cpu = time.process_time()
-        record = engine.step()
-        return record.seconds, time.process_time() - cpu, record.matvecs, record.matvec_flops, record.energy
+        return "one sweep"
+    text = f"bonds {bonds[0]}..{bonds[1] - 1} (right-moving)"
+    if window is not None:
+        text += (f", after untimed updates of bonds {window[0]}..{window[1] - 1}; tensors and environments "
+                 f"outside that window still at the starting state's bond dimensions (largest "
+                 f"{max(state.bond_dimensions)})")
+    return text
+
+
+def _bond_stats(engine):
+    return {"matvecs": 0, "matvec_flops": 0, "energy": float("nan"), "discarded": 0.0,
+            "entropy": float("nan"), "tolerance": engine.settings.solver_tolerance_at(0)}
+
+
+def _prepare(engine, bonds, window=None) -> None:
+    """Untimed: the centre moved to the first timed bond, with valid left environments up to it.
+
+    With ``window = (lo, hi)`` the bonds lo..hi-1 are first updated right-moving and then left-moving
+    down to the first timed bond, at the engine's bond dimension and without noise, so that the
+    central bonds and the environments inside the window reach that bond dimension; the tensors and
+    environments outside the window keep the bond dimension of the starting state.
+    """
+    if bonds is None:
+        return
     lo, hi = bonds
+    chi = engine.settings.bond_dimension_at(0)
     with engine.blas_limit():
+        if window is not None:
+            wlo, whi = window
+            engine.state.move_centre(wlo)
+            for j in range(wlo):
+                engine._env.update_left(j, engine.state.tensors[j])
+            stats = _bond_stats(engine)
+            start = time.process_time()
+            for i in range(wlo, whi):
+                engine._update_bond(i, 1, chi=chi, noise=0.0, stats=stats)
+            for i in range(whi - 1, lo - 1, -1):
+                engine._update_bond(i, -1, chi=chi, noise=0.0, stats=stats)
+            print(f"untimed window: bonds {wlo}..{whi - 1} right-moving, then {whi - 1}..{lo} left-moving at "
+                  f"D={chi}: {time.process_time() - start:.1f} s CPU, {stats['matvecs']} matvecs, E = "
+                  f"{stats['energy']!r}; bond dimensions now {engine.state.bond_dimensions}", flush=True)
+            return
         engine.state.move_centre(lo)
         for j in range(lo):
             engine._env.update_left(j, engine.state.tensors[j])
-        stats = {"matvecs": 0, "matvec_flops": 0, "energy": float("nan"), "discarded": 0.0,
-                 "entropy": float("nan"), "tolerance": engine.settings.solver_tolerance_at(0)}
+
+
+def _fork(engine):
+    """A copy of a prepared engine that can be stepped on its own (tensors are never changed in place)."""
+    new = copy.copy(engine)
+    new.state = engine.state.copy()
+    new._env = copy.copy(engine._env)
+    new._env.left, new._env.right = list(engine._env.left), list(engine._env.right)
+    new.history = list(engine.history)
+    return new
+
+
+def _timed(engine, bonds, profiler=None):
+    """Wall and CPU seconds, matvecs, matvec flops and energy of one sweep (or of bonds LO..HI-1, from
+    an engine made ready by :func:`_prepare`); ``profiler`` (a cProfile.Profile) runs during the timed
+    part only."""
+    profiler = profiler or contextlib.nullcontext()
+    if bonds is None:
+        cpu = time.process_time()
+        with profiler:
+            record = engine.step()
+        return record.seconds, time.process_time() - cpu, record.matvecs, record.matvec_flops, record.energy
+    lo, hi = bonds
+    with engine.blas_limit():
+        stats = _bond_stats(engine)
         wall, cpu = time.perf_counter(), time.process_time()
-        for i in range(lo, hi):
-            engine._update_bond(i, 1, chi=engine.settings.bond_dimension_at(0), noise=0.0, stats=stats)
+        with profiler:
+            for i in range(lo, hi):
+                engine._update_bond(i, 1, chi=engine.settings.bond_dimension_at(0), noise=0.0, stats=stats)
         return (time.perf_counter() - wall, time.process_time() - cpu, stats["matvecs"], stats["matvec_flops"],
                 stats["energy"])
 
@@ -150,16 +241,18 @@ def _compare(ham, state, chi, args) -> None:
     from netprobe.engines.dmrg.engine import GroundStateSearch
     from netprobe.engines.mps.mpo import build_mpo
 
-    bonds = tuple(int(b) for b in args.bonds.split(":")) if args.bonds else None
+    bonds = _bonds(args.bonds)
     planned = PairOperator._slab_plan
     mpo = build_mpo(ham)
     rows = []
     rate = rate_cpu = 0.0
+    start = GroundStateSearch(mpo, state, wl.sweep_settings(chi), progress=None)
+    _prepare(start, bonds, _bonds(args.window))
     for turn in range(args.compare):
         for route in ("blocks", "slabs"):
             PairOperator._slab_plan = planned if route == "slabs" else (lambda self: None)
             try:
-                engine = GroundStateSearch(mpo, state, wl.sweep_settings(chi), progress=None)
+                engine = _fork(start)
                 rate = max(rate, gemm_rate(engine.dtype, 1024))
                 rate_cpu = max(rate_cpu, _gemm_rate_cpu(engine.dtype))
                 usage = resource.getrusage(resource.RUSAGE_SELF)
@@ -172,7 +265,7 @@ def _compare(ham, state, chi, args) -> None:
             rows.append((route, wall, cpu, matvecs, flops, energy))
             print(f"{route}: {wall:.1f} s wall, {cpu:.1f} s CPU ({system:.1f} s of it in the system, "
                   f"{faults} page faults), {matvecs} matvecs, {flops / 1e9:.1f} GFlop, E = {energy!r}", flush=True)
-    what = f"bonds {bonds[0]}..{bonds[1] - 1} (right-moving)" if bonds else "one sweep"
+    what = _what(bonds, _bonds(args.window), state)
     print(f"{args.model} D={chi} charges={not args.no_charges}, {what}; GEMM {rate / 1e9:.1f} GFlop/s in wall "
           f"time, {rate_cpu / 1e9:.1f} GFlop/s in CPU time (1024, one thread, best in the run)")
     blocks_per_mv = [f / m for r, _, _, m, f, _ in rows if r == "blocks"]
@@ -198,7 +291,7 @@ def _print_split(stats) -> None:
         return sum(row[2] if which == "own" else row[3]
                    for (path, _, fn), row in stats.items() if fn == name and path.endswith(where))
 
-    total = seconds("step", "cum")
+    total = seconds("step", "cum") or seconds("_update_bond", "cum")
     rows = [("two-site matvecs", seconds("matvec", "cum", "effective.py")),
             ("  of which building the slab plans", seconds("plan_sector_matvec", "cum")),
             ("  contract, own time (sector GEMMs; inside the matvec on the block route only)", seconds("contract", "own")),
