@@ -9,11 +9,13 @@ table of that sweep by cumulative time. ``--state FILE`` starts from a state sav
 as in a long run), and ``--split`` prints where the profiled sweep's time went (matvec GEMMs and
 block copies, index plans, environments, SVD, Lanczos).
 
-``--compare N`` times the sweep N times in turn with the general block-contraction matvec
-("blocks", the route before the slab plan) and the slab plan of
-:mod:`netprobe.engines.dmrg.sector_matvec` ("slabs"), each from the same starting state in one
+``--compare N`` times the sweep N times in turn with each variant of ``--routes`` (default: the
+general block-contraction matvec, "blocks", the route before the slab plan, and the slab plan of
+:mod:`netprobe.engines.dmrg.sector_matvec`, "slabs"), each from the same starting state in one
 process, and prints wall and CPU seconds, matvec flops, efficiencies and the energies to all
-digits. ``--bonds LO:HI`` replaces the full sweep by the right-moving updates of bonds LO..HI-1
+digits. ``--baseline DIR`` (a source tree of an earlier commit, e.g. ``git archive COMMIT netprobe
+| tar -x -C DIR``) adds the routes "baseline" (that tree's slab matvec and Lanczos solver) and
+"baseline-solver" (only its Lanczos solver), for before/after ratios taken in one process. ``--bonds LO:HI`` replaces the full sweep by the right-moving updates of bonds LO..HI-1
 only (the centre moved to LO first, untimed): a partial sweep over central bonds, for states whose
 full sweep takes too long here. ``--window LO:HI`` (around ``--bonds``) first runs untimed
 right-moving and then left-moving updates of the bonds of the window at D, so that a state saved at
@@ -29,9 +31,11 @@ import argparse
 import contextlib
 import copy
 import cProfile
+import importlib.util
 import io
 import pstats
 import resource
+import sys
 import time
 
 import h5py
@@ -60,6 +64,11 @@ def main(argv=None) -> None:
     parser.add_argument("--warm", type=int, default=0, help="untimed sweeps before the timed one")
     parser.add_argument("--compare", type=int, default=0,
                         help="time the sweep N times in turn with the block-contraction and the slab matvec")
+    parser.add_argument("--routes", default="blocks,slabs",
+                        help="comma-separated variants timed in turn by --compare (blocks, slabs; baseline, "
+                        "baseline-solver with --baseline)")
+    parser.add_argument("--baseline", help="source tree of an earlier commit (git archive) whose slab matvec "
+                        "and Lanczos solver the baseline routes load")
     parser.add_argument("--bonds", help="LO:HI: time only the right-moving updates of bonds LO..HI-1")
     parser.add_argument("--window", help="LO:HI around --bonds: untimed right- and left-moving updates of "
                         "bonds LO..HI-1 at D first (from a state of smaller D: the timed bonds then have D on "
@@ -235,23 +244,71 @@ def _timed(engine, bonds, profiler=None):
                 stats["energy"])
 
 
-def _compare(ham, state, chi, args) -> None:
-    """The timed sweep in turn with the block-contraction matvec and the slab plan, one process."""
+def _load_module(name, path):
+    """A module loaded from a file of another source tree (an export of an earlier commit)."""
+    spec = importlib.util.spec_from_file_location(name, path)
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[name] = module  # dataclasses look their module up there
+    spec.loader.exec_module(module)
+    return module
+
+
+def _routes(baseline):
+    """Named variants of the sweep code for ``--compare``: name -> context manager that switches to it.
+
+    ``blocks``: the general block-contraction matvec; ``slabs``: this tree's code unchanged. With
+    ``--baseline DIR`` (an export of an earlier commit): ``baseline``, that tree's slab matvec and
+    Lanczos solver; ``baseline-solver``, this tree's matvec with that tree's Lanczos solver.
+    """
+    from netprobe.engines.dmrg import effective, solvers
     from netprobe.engines.dmrg.effective import PairOperator
+
+    @contextlib.contextmanager
+    def patched(obj, name, value):
+        old = getattr(obj, name)
+        setattr(obj, name, value)
+        try:
+            yield
+        finally:
+            setattr(obj, name, old)
+
+    routes = {"blocks": lambda: patched(PairOperator, "_slab_plan", lambda self: None),
+              "slabs": contextlib.nullcontext}
+    if baseline:
+        matvec = _load_module("baseline_sector_matvec", f"{baseline}/netprobe/engines/dmrg/sector_matvec.py")
+        solver = _load_module("baseline_solvers", f"{baseline}/netprobe/engines/dmrg/solvers.py")
+
+        @contextlib.contextmanager
+        def both():
+            with patched(effective, "plan_sector_matvec", matvec.plan_sector_matvec), \
+                    patched(solvers, "lanczos_lowest", solver.lanczos_lowest):
+                yield
+
+        routes["baseline"] = both
+        routes["baseline-solver"] = lambda: patched(solvers, "lanczos_lowest", solver.lanczos_lowest)
+    return routes
+
+
+def _compare(ham, state, chi, args) -> None:
+    """The timed sweep (or bonds) in turn with each route of ``--routes``, one process, one prepared start."""
     from netprobe.engines.dmrg.engine import GroundStateSearch
     from netprobe.engines.mps.mpo import build_mpo
 
     bonds = _bonds(args.bonds)
-    planned = PairOperator._slab_plan
+    routes = _routes(args.baseline)
+    names = args.routes.split(",")
+    unknown = [n for n in names if n not in routes]
+    if unknown:
+        raise SystemExit(f"unknown route(s) {', '.join(unknown)}; valid: {', '.join(routes)} "
+                         "(baseline routes need --baseline DIR)")
     mpo = build_mpo(ham)
     rows = []
     rate = rate_cpu = 0.0
     start = GroundStateSearch(mpo, state, wl.sweep_settings(chi), progress=None)
     _prepare(start, bonds, _bonds(args.window))
     for turn in range(args.compare):
-        for route in ("blocks", "slabs"):
-            PairOperator._slab_plan = planned if route == "slabs" else (lambda self: None)
-            try:
+        for route in names:
+            with routes[route]():
                 engine = _fork(start)
                 rate = max(rate, gemm_rate(engine.dtype, 1024))
                 rate_cpu = max(rate_cpu, _gemm_rate_cpu(engine.dtype))
@@ -259,8 +316,6 @@ def _compare(ham, state, chi, args) -> None:
                 wall, cpu, matvecs, flops, energy = _timed(engine, bonds)
                 after = resource.getrusage(resource.RUSAGE_SELF)
                 system, faults = after.ru_stime - usage.ru_stime, after.ru_minflt - usage.ru_minflt
-            finally:
-                PairOperator._slab_plan = planned
             del engine
             rows.append((route, wall, cpu, matvecs, flops, energy))
             print(f"{route}: {wall:.1f} s wall, {cpu:.1f} s CPU ({system:.1f} s of it in the system, "
@@ -268,21 +323,23 @@ def _compare(ham, state, chi, args) -> None:
     what = _what(bonds, _bonds(args.window), state)
     print(f"{args.model} D={chi} charges={not args.no_charges}, {what}; GEMM {rate / 1e9:.1f} GFlop/s in wall "
           f"time, {rate_cpu / 1e9:.1f} GFlop/s in CPU time (1024, one thread, best in the run)")
-    blocks_per_mv = [f / m for r, _, _, m, f, _ in rows if r == "blocks"]
-    ref = min(blocks_per_mv) if blocks_per_mv else 0.0
-    for route in ("blocks", "slabs"):
+    first_per_mv = [f / m for r, _, _, m, f, _ in rows if r == names[0]]
+    ref = min(first_per_mv)
+    best = {}
+    for route in names:
         mine = [r for r in rows if r[0] == route]
         best_wall = min(mine, key=lambda r: r[1])
         best_cpu = min(mine, key=lambda r: r[2])
+        best[route] = (best_wall[1], best_cpu[2])
         print(f"  {route}: best wall {best_wall[1]:.1f} s, best CPU {best_cpu[2]:.1f} s; efficiency (own flops, "
               f"wall / CPU) {best_wall[4] / rate / best_wall[1]:.3f} / {best_cpu[4] / rate_cpu / best_cpu[2]:.3f}; "
-              f"with the block route's flops per matvec {ref * best_wall[3] / rate / best_wall[1]:.3f} / "
+              f"with the {names[0]} route's flops per matvec {ref * best_wall[3] / rate / best_wall[1]:.3f} / "
               f"{ref * best_cpu[3] / rate_cpu / best_cpu[2]:.3f}")
-    blocks = [r for r in rows if r[0] == "blocks"]
-    slabs = [r for r in rows if r[0] == "slabs"]
-    print(f"  CPU ratio blocks / slabs (best of each) {min(r[2] for r in blocks) / min(r[2] for r in slabs):.2f}, "
-          f"wall {min(r[1] for r in blocks) / min(r[1] for r in slabs):.2f}; largest energy difference "
-          f"{max(abs(a[5] - b[5]) for a in blocks for b in slabs):.3g}")
+    for route in names[1:]:
+        print(f"  CPU ratio {names[0]} / {route} (best of each) {best[names[0]][1] / best[route][1]:.2f}, wall "
+              f"{best[names[0]][0] / best[route][0]:.2f}")
+    energies = [r[5] for r in rows]
+    print(f"  largest energy difference between all runs {max(energies) - min(energies):.3g}")
 
 
 def _print_split(stats) -> None:
