@@ -207,10 +207,18 @@ def _prepare(engine, bonds, window=None) -> None:
             print(f"untimed window: bonds {wlo}..{whi - 1} right-moving, then {whi - 1}..{lo} left-moving at "
                   f"D={chi}: {time.process_time() - start:.1f} s CPU, {stats['matvecs']} matvecs, E = "
                   f"{stats['energy']!r}; bond dimensions now {engine.state.bond_dimensions}", flush=True)
-            return
-        engine.state.move_centre(lo)
-        for j in range(lo):
-            engine._env.update_left(j, engine.state.tensors[j])
+        else:
+            engine.state.move_centre(lo)
+            for j in range(lo):
+                engine._env.update_left(j, engine.state.tensors[j])
+        # environments the timed bonds never read are dropped (at D = 512 without charges each one is
+        # 70-200 MB): left[lo] and right[lo + 2 .. hi + 1] are all they need
+        env = engine._env
+        for j in range(len(env.left)):
+            if j < lo:
+                env.left[j] = None
+            if not lo + 2 <= j <= hi + 1:
+                env.right[j] = None
 
 
 def _fork(engine):
