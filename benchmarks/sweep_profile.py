@@ -15,7 +15,8 @@ general block-contraction matvec, "blocks", the route before the slab plan, and 
 process, and prints wall and CPU seconds, matvec flops, efficiencies and the energies to all
 digits. ``--baseline DIR`` (a source tree of an earlier commit, e.g. ``git archive COMMIT netprobe
 | tar -x -C DIR``) adds the routes "baseline" (that tree's slab matvec and Lanczos solver) and
-"baseline-solver" (only its Lanczos solver), for before/after ratios taken in one process. ``--bonds LO:HI`` replaces the full sweep by the right-moving updates of bonds LO..HI-1
+"baseline-solver" (only its Lanczos solver), for before/after ratios taken in one process.
+``--matvecs N`` times only the two-site matvec of the central bond, N times per route in turn. ``--bonds LO:HI`` replaces the full sweep by the right-moving updates of bonds LO..HI-1
 only (the centre moved to LO first, untimed): a partial sweep over central bonds, for states whose
 full sweep takes too long here. ``--window LO:HI`` (around ``--bonds``) first runs untimed
 right-moving and then left-moving updates of the bonds of the window at D, so that a state saved at
@@ -42,6 +43,7 @@ import h5py
 
 from benchmarks import workloads as wl
 from benchmarks.machine import gemm_rate
+from netprobe.tensor import matmul_tally
 
 __all__ = ["main"]
 
@@ -64,6 +66,8 @@ def main(argv=None) -> None:
     parser.add_argument("--warm", type=int, default=0, help="untimed sweeps before the timed one")
     parser.add_argument("--compare", type=int, default=0,
                         help="time the sweep N times in turn with the block-contraction and the slab matvec")
+    parser.add_argument("--matvecs", type=int, default=0,
+                        help="time only the central bond's matvec, N times per route of --routes in turn")
     parser.add_argument("--routes", default="blocks,slabs",
                         help="comma-separated variants timed in turn by --compare (blocks, slabs; baseline, "
                         "baseline-solver with --baseline)")
@@ -101,6 +105,9 @@ def main(argv=None) -> None:
     if args.no_charges:
         ham = wl.without_charges_of(ham)
         state = wl.without_charges(state, ham)
+    if args.matvecs:
+        _compare_matvecs(ham, state, args)
+        return
     if args.compare:
         _compare(ham, state, chi, args)
         return
@@ -295,6 +302,42 @@ def _routes(baseline):
         routes["baseline"] = both
         routes["baseline-solver"] = lambda: patched(solvers, "lanczos_lowest", solver.lanczos_lowest)
     return routes
+
+
+def _compare_matvecs(ham, state, args) -> None:
+    """The central bond's two-site matvec alone, each route in turn ``--matvecs`` times; best CPU time of each."""
+    import numpy as np
+    from threadpoolctl import threadpool_limits
+
+    routes = _routes(args.baseline)
+    names = args.routes.split(",")
+    with threadpool_limits(limits=1):
+        op, theta = wl.central_operator(state, ham)
+        x = op.layout.pack(theta).astype(op.dtype)
+        ops, results = {}, {}
+        for name in names:
+            with routes[name]():
+                ops[name] = type(op)(op.left, op.w1, op.w2, op.right, op.layout)
+                ops[name].matvec(x)  # plan built outside the timing
+        rate = _gemm_rate_cpu(op.dtype)
+        best = dict.fromkeys(names, float("inf"))
+        flops = {}
+        for _ in range(args.matvecs):
+            for name in names:
+                with routes[name]():
+                    tally = matmul_tally().flops
+                    cpu = time.process_time()
+                    results[name] = ops[name].matvec(x)
+                    best[name] = min(best[name], time.process_time() - cpu)
+                    flops[name] = matmul_tally().flops - tally
+        rate = max(rate, _gemm_rate_cpu(op.dtype))
+    print(f"{args.model} central bond, {op.size} entries, {args.matvecs} matvecs per route in turn; GEMM "
+          f"{rate / 1e9:.1f} GFlop/s in CPU time")
+    for name in names:
+        diff = float(np.abs(results[name] - results[names[0]]).max())
+        print(f"  {name}: best {best[name] * 1e3:.1f} ms CPU, {flops[name] / 1e9:.2f} GFlop, efficiency "
+              f"{flops[name] / rate / best[name]:.3f}, CPU ratio {names[0]} / {name} {best[names[0]] / best[name]:.2f}, "
+              f"largest difference from {names[0]} {diff:.2g}")
 
 
 def _compare(ham, state, chi, args) -> None:
