@@ -6,21 +6,17 @@ transposed copies of intermediates with ``chi^2 D_w d^2`` entries, and they cost
 as the matrix products. This module orders the same sum so that each step writes where the next
 one reads:
 
-1. ``X[(w, s1, s2), b, a*] = sum_a theta[a, s1, s2, b] L[a*, a, w]``: for every pair of outer
-   sectors ``(A, B)`` of the result, ``X_AB`` is one array of shape ``(P, dim B, dim A)``, the
-   channel-and-physical index ``p = (w, s1, s2)`` outermost. For each channel ``w`` the product
-   ``theta[a, b]^T @ L_w[a, a*]`` (``L`` regrouped once per bond as ``[w, a, a*]``) writes straight
-   into a contiguous slab of ``X_AB``.
-2. ``Y_AB = M_AB X_AB``: the two MPO tensors joined into one matrix ``M[(s1', s2', v), (w, s1, s2)]``
-   (``D_w^2 d^4`` entries), cut once per bond to the rows and columns of the pair; the whole step is
-   one product ``(P', P) @ (P, dim B dim A)`` whose result ``Y_AB`` has the legs ``(p', b, a*)``.
-   (Its inner dimension ``P`` is only ``D_w d^2``, so it is memory-bound; one large product runs at
-   about 1.5 times the rate of the former batch of ``dim A`` small ones.)
-3. ``out[a*, b*] = sum Y_AB[(v, b), a*] R[(v, b), b*]``: for every output block and every pair
-   ``(B, V)`` that reaches it, the rows ``(v, b)`` of ``V`` in ``Y_AB`` are one contiguous slab,
-   used transposed as the ``(dim A, dim V dim B)`` matrix, multiplied by ``R`` regrouped as
-   ``[(v, b), b*]`` (once per bond), and summed straight into the output vector (one addition of a
-   ``dim A x dim B*`` block per further pair).
+1. ``X[(w, s1, s2), a*, b] = sum_a L[a*, a, w] theta[a, s1, s2, b]``: for every pair of outer
+   sectors ``(A, B)`` of the result, ``X_AB`` is one array of shape ``(P, dim A, dim B)``, the
+   channel-and-physical index ``p = (w, s1, s2)`` outermost. Each product ``L^T[(w, a*), a] @
+   theta[a, b]`` (``L`` regrouped once per bond) writes straight into a contiguous slab of ``X_AB``.
+2. ``Y_AB[a*] = M_AB X_AB[:, a*, :]``: the two MPO tensors joined into one matrix ``M[(s1', s2', v),
+   (w, s1, s2)]`` (``D_w^2 d^4`` entries), cut once per bond to the rows and columns of the pair;
+   one batched product over ``a*`` whose result ``Y_AB`` has the legs ``(a*, p', b)``.
+3. ``out[a*, b*] = sum Y_AB[a*, (v, b)] R[(v, b), b*]``: for every output block and every pair
+   ``(B, V)`` that reaches it, ``Y_AB[:, rows of V, :]`` is a strided matrix ``(dim A, dim V dim B)``
+   used in place, multiplied by ``R`` regrouped as ``[(v, b), b*]`` (once per bond), and summed
+   straight into the output vector (one addition of a ``dim A x dim B*`` block per further pair).
 
 No intermediate is copied or transposed. The sum is the same as the block contractions' up to the
 order of additions (round-off). Everything that depends only on the bond (index plans, regrouped
@@ -90,11 +86,11 @@ class SectorPairPlan:
         self._slots = slots
         d1s, d2s = s1_leg.dims.tolist(), s2_leg.dims.tolist()
 
-        # L regrouped as [w, a, a*] per block, grouped by the ket sector a
+        # L regrouped as [(w, a*), a] per block, grouped by the ket sector a
         by_ket = defaultdict(list)
         for (sa, sk, sw), blk in left.blocks.items():
-            dim_w = blk.shape[2]
-            lt = np.ascontiguousarray(blk.transpose(2, 1, 0))
+            dim_a, dim_k, dim_w = blk.shape
+            lt = np.ascontiguousarray(blk.transpose(2, 0, 1)).reshape(dim_w * dim_a, dim_k)
             by_ket[sk].append((sa, sw, dim_w, lt))
 
         # step 1: destinations (A, B) <- (W, s1, s2) from theta block (a, s1, s2, B) and L block (A, a, W)
@@ -211,12 +207,11 @@ class SectorPairPlan:
         self._products = len(self._tasks) + sum(len(o[3]) for o in self._outputs)
         factor = 8 if self.dtype.kind == "c" else 2  # the tally's convention (MatmulTally)
         for number, lo, hi, lt, slot, i1, i2, add in self._tasks:
-            self._flops += factor * lt.size * self._pairs[number][1]
-            self._products += lt.shape[0] - 1  # one product per channel w
+            self._flops += factor * lt.shape[0] * lt.shape[1] * self._pairs[number][1]
         self._x_sizes, self._y_sizes = [], []
         for dim_a, dim_b, p, mat in self._pairs:
             self._flops += factor * mat.shape[0] * p * dim_b * dim_a
-            self._products += 1
+            self._products += dim_a
             self._x_sizes.append(p * dim_a * dim_b)
             self._y_sizes.append(dim_a * mat.shape[0] * dim_b)
         for key, j1, j2, ks in self._outputs:
@@ -233,21 +228,21 @@ class SectorPairPlan:
         arena = _scratch(total, dtype)
         buffers, at = [], 0
         for (dim_a, dim_b, p, mat), nx, ny in zip(self._pairs, self._x_sizes, self._y_sizes):
-            buffers.append((arena[at:at + nx].reshape(p, dim_b * dim_a),
-                            arena[at + nx:at + nx + ny].reshape(mat.shape[0], dim_b * dim_a)))
+            buffers.append((arena[at:at + nx].reshape(p, dim_a, dim_b),
+                            arena[at + nx:at + nx + ny].reshape(dim_a, mat.shape[0], dim_b)))
             at += nx + ny
         for number, lo, hi, lt, (start, stop, shape), i1, i2, add in self._tasks:
             xab = buffers[number][0]
-            tht = x[start:stop].reshape(shape)[:, i1, i2, :].T  # (b, a)
-            dest = xab[lo:hi].reshape(lt.shape[0], tht.shape[0], lt.shape[2])  # (w, b, a*)
+            th = x[start:stop].reshape(shape)[:, i1, i2, :]
+            dest = xab[lo:hi].reshape(lt.shape[0], xab.shape[2])
             if add:
-                dest += np.matmul(tht, lt)
+                dest += lt @ th
             else:
-                np.matmul(tht, lt, out=dest)
+                np.matmul(lt, th, out=dest)
         ys = []
         for (dim_a, dim_b, p, mat), (xab, y) in zip(self._pairs, buffers):
-            # the whole MPO step of a pair is one product, (p', p) times (p, (b, a*))
-            ys.append(np.matmul(mat, xab, out=y))
+            # one product per a*, written as (a*, p', b): the slabs of step 3 are then plain strided matrices
+            ys.append(np.matmul(mat, xab.transpose(1, 0, 2), out=y))
         out = np.empty(self.size, dtype)
         for start, stop in self._zero:
             out[start:stop] = 0
@@ -257,8 +252,7 @@ class SectorPairPlan:
             block = out[start:stop].reshape(shape)[:, j1, j2, :]
             first = shape[1] * shape[2] == 1
             for number, row, dim_v, r in ks:
-                # rows (v, b) of Y: a contiguous slab, used transposed as the (a*, (v, b)) matrix
-                y = ys[number][row:row + dim_v].reshape(r.shape[0], dim_a).T
+                y = ys[number][:, row:row + dim_v, :].reshape(dim_a, r.shape[0])
                 if first:
                     np.matmul(y, r, out=block)
                     first = False
