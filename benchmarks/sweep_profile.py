@@ -16,7 +16,8 @@ process, and prints wall and CPU seconds, matvec flops, efficiencies and the ene
 digits. ``--baseline DIR`` (a source tree of an earlier commit, e.g. ``git archive COMMIT netprobe
 | tar -x -C DIR``) adds the routes "baseline" (that tree's slab matvec and Lanczos solver) and
 "baseline-solver" (only its Lanczos solver), for before/after ratios taken in one process.
-``--matvecs N`` times only the two-site matvec of the central bond, N times per route in turn. ``--bonds LO:HI`` replaces the full sweep by the right-moving updates of bonds LO..HI-1
+``--matvecs N`` times only the two-site matvec of the central bond, N times per route in turn
+(``--solves M``: and its whole local eigensolver, M times per route). ``--bonds LO:HI`` replaces the full sweep by the right-moving updates of bonds LO..HI-1
 only (the centre moved to LO first, untimed): a partial sweep over central bonds, for states whose
 full sweep takes too long here. ``--window LO:HI`` (around ``--bonds``) first runs untimed
 right-moving and then left-moving updates of the bonds of the window at D, so that a state saved at
@@ -68,6 +69,8 @@ def main(argv=None) -> None:
                         help="time the sweep N times in turn with the block-contraction and the slab matvec")
     parser.add_argument("--matvecs", type=int, default=0,
                         help="time only the central bond's matvec, N times per route of --routes in turn")
+    parser.add_argument("--solves", type=int, default=0,
+                        help="with --matvecs: also the central bond's local eigensolver, N times per route in turn")
     parser.add_argument("--routes", default="blocks,slabs",
                         help="comma-separated variants timed in turn by --compare (blocks, slabs; baseline, "
                         "baseline-solver with --baseline)")
@@ -309,6 +312,8 @@ def _compare_matvecs(ham, state, args) -> None:
     import numpy as np
     from threadpoolctl import threadpool_limits
 
+    from netprobe.engines.dmrg.solvers import lowest_eigenpair
+
     routes = _routes(args.baseline)
     names = args.routes.split(",")
     with threadpool_limits(limits=1):
@@ -331,6 +336,18 @@ def _compare_matvecs(ham, state, args) -> None:
                     best[name] = min(best[name], time.process_time() - cpu)
                     flops[name] = matmul_tally().flops - tally
         rate = max(rate, _gemm_rate_cpu(op.dtype))
+        solves = {}
+        for _ in range(args.solves):
+            for name in names:
+                with routes[name]():
+                    settings = wl.sweep_settings(max(state.bond_dimensions))
+                    cpu = time.process_time()
+                    pair = lowest_eigenpair(settings.eigensolver, ops[name], x, tol=settings.solver_tolerance,
+                                            krylov_dimension=settings.krylov_dimension,
+                                            restarts=settings.solver_restarts)
+                    cpu = time.process_time() - cpu
+                    old = solves.get(name, (float("inf"),))
+                    solves[name] = (min(old[0], cpu), pair.matvecs, pair.value)
     print(f"{args.model} central bond, {op.size} entries, {args.matvecs} matvecs per route in turn; GEMM "
           f"{rate / 1e9:.1f} GFlop/s in CPU time")
     for name in names:
@@ -338,6 +355,10 @@ def _compare_matvecs(ham, state, args) -> None:
         print(f"  {name}: best {best[name] * 1e3:.1f} ms CPU, {flops[name] / 1e9:.2f} GFlop, efficiency "
               f"{flops[name] / rate / best[name]:.3f}, CPU ratio {names[0]} / {name} {best[names[0]] / best[name]:.2f}, "
               f"largest difference from {names[0]} {diff:.2g}")
+    for name, (cpu, count, value) in solves.items():
+        print(f"  {name}: local solve (best of {args.solves}) {cpu * 1e3:.1f} ms CPU, {count} matvecs, of which "
+              f"{cpu * 1e3 - count * best[name] * 1e3:.1f} ms outside the matvecs (at their best time); CPU ratio "
+              f"{names[0]} / {name} {solves[names[0]][0] / cpu:.3f}; E = {value!r}")
 
 
 def _compare(ham, state, chi, args) -> None:
