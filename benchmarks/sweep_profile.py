@@ -13,8 +13,8 @@ block copies, index plans, environments, SVD, Lanczos).
 general block-contraction matvec, "blocks", the route before the slab plan, and the slab plan of
 :mod:`netprobe.engines.dmrg.sector_matvec`, "slabs"), each from the same starting state in one
 process, and prints wall and CPU seconds, matvec flops, efficiencies and the energies to all
-digits. The index-plan caches are emptied before every timed run (all runs meet the same legs, and a
-real sweep builds its plans anew). ``--baseline DIR`` (a source tree of an earlier commit, e.g. ``git archive COMMIT netprobe
+digits. The index-plan caches are emptied before every timed run (all runs meet the same legs, so
+otherwise only the first would build them). ``--baseline DIR`` (a source tree of an earlier commit, e.g. ``git archive COMMIT netprobe
 | tar -x -C DIR``) adds the routes "baseline" (that tree's slab matvec and Lanczos solver) and
 "baseline-solver" (only its Lanczos solver), for before/after ratios taken in one process.
 ``--matvecs N`` times only the two-site matvec of the central bond, N times per route in turn
@@ -386,7 +386,8 @@ def _compare(ham, state, chi, args) -> None:
                 rate = max(rate, gemm_rate(engine.dtype, 1024))
                 rate_cpu = max(rate_cpu, _gemm_rate_cpu(engine.dtype))
                 # every run starts from the same state and meets the same legs: without this, the runs
-                # after the first would find all their index plans cached, which a real sweep does not
+                # after the first would find the index plans that the first one built (a first sweep at a
+                # new bond dimension builds them; later sweeps whose legs stay the same find them cached)
                 clear_plan_cache()
                 usage = resource.getrusage(resource.RUSAGE_SELF)
                 wall, cpu, matvecs, flops, energy = _timed(engine, bonds)
