@@ -92,6 +92,35 @@ def test_lanczos_kernel_matches_numpy_eigvalsh(dtype, rng):
     assert np.linalg.norm(h @ pair.vector - pair.value * pair.vector) <= LANCZOS_ASKED * abs(expected) * 10
 
 
+@pytest.mark.parametrize("dtype", [np.float64, np.complex128])
+def test_lanczos_full_krylov_space_gives_the_lowest_eigenvalue_to_round_off(dtype, rng):
+    # with a Krylov space as large as the matrix and the basis kept orthonormal (recurrence, one
+    # Gram-Schmidt pass, a second where the first removes most of the vector), the tridiagonal
+    # matrix is H in another basis, so its lowest eigenvalue is LAPACK's to round-off (common
+    # practice). Widely spread eigenvalues (1 to 1e4) make the Ritz values converge early, which is
+    # where a basis without reorthogonalisation loses orthogonality (Parlett 1998, ch. 13).
+    n = 80
+    q, _ = np.linalg.qr(rng.standard_normal((n, n)) + (1j * rng.standard_normal((n, n)) if dtype == np.complex128
+                                                        else 0))
+    values = np.concatenate(([-3.0, -2.999], np.geomspace(1, 1e4, n - 2)))
+    h = (q * values) @ q.conj().T
+    h = (h + h.conj().T) / 2
+    pair = lanczos_lowest(lambda x: h @ x, rng.standard_normal(n).astype(dtype), tol=0.0, krylov_dimension=n,
+                          restarts=0)
+    expected = scipy.linalg.eigvalsh(h)[0]  # LAPACK reference
+    assert abs(pair.value - expected) <= tol(np.abs(values).max())
+    assert np.linalg.norm(h @ pair.vector - pair.value * pair.vector) <= tol(np.abs(values).max())
+
+
+def test_lanczos_leaves_an_operator_s_returned_input_alone(rng):
+    # an operator that returns its argument itself (here the identity): the solver updates its own
+    # copy, so the basis stays intact and the eigenvalue is exactly 1 (common practice)
+    x0 = rng.standard_normal(30)
+    pair = lanczos_lowest(lambda x: x, x0.copy(), tol=LANCZOS_ASKED)
+    assert pair.value == pytest.approx(1.0, abs=tol(1.0))
+    assert np.linalg.norm(pair.vector - x0 / np.linalg.norm(x0)) <= tol(1.0)
+
+
 # ---- long chains: closed forms and published numbers -------------------------------------------
 
 

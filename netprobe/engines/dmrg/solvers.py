@@ -53,6 +53,10 @@ class EigenPair:
     converged: bool
 
 
+# a Gram-Schmidt pass that leaves less than this fraction of the norm is repeated (DGKS, 1976)
+_REORTHOGONALISE_AGAIN = 1 / np.sqrt(2)
+
+
 def lanczos_lowest(matvec: Callable[[np.ndarray], np.ndarray], v0: np.ndarray, *, tol: float = 1e-8,
                    krylov_dimension: int = 20, restarts: int = 4) -> EigenPair:
     """Lanczos iteration with full reorthogonalisation and restarts from the Ritz vector.
@@ -76,9 +80,12 @@ def lanczos_lowest(matvec: Callable[[np.ndarray], np.ndarray], v0: np.ndarray, *
 
     Notes
     -----
-    Every new Lanczos vector is orthogonalised against all earlier ones by two passes of classical
-    Gram-Schmidt ("twice is enough": Giraud, Langou, Rozloznik, Comput. Math. Appl. 50, 1069 (2005)),
-    so no spurious copies of converged Ritz values appear. The residual of the Ritz pair is
+    Every new Lanczos vector is orthogonalised against all earlier ones (full reorthogonalisation),
+    so no spurious copies of converged Ritz values appear: after the three-term recurrence, one pass
+    of classical Gram-Schmidt against the whole basis, and a second pass whenever the first shrinks
+    the vector below ``1/sqrt(2)`` of its norm (the criterion of Daniel, Gragg, Kaufman and Stewart,
+    Math. Comp. 30, 772 (1976); two passes are enough: Giraud, Langou, Rozloznik, Comput. Math.
+    Appl. 50, 1069 (2005)). The residual of the Ritz pair is
     ``beta_j |s_j|`` with ``s_j`` the last component of the tridiagonal eigenvector (Paige's estimate;
     Parlett, The Symmetric Eigenvalue Problem, 1998, ch. 13).
     """
@@ -95,13 +102,20 @@ def lanczos_lowest(matvec: Callable[[np.ndarray], np.ndarray], v0: np.ndarray, *
         alpha, beta = [], []
         for j in range(m):
             w = np.asarray(matvec(basis[j]))
+            if not w.flags.writeable or np.may_share_memory(w, basis) or w.dtype != basis.dtype:
+                w = w.astype(np.result_type(w.dtype, basis.dtype))  # updated in place below
             total += 1
             alpha.append(float(np.vdot(basis[j], w).real))
+            # the three-term recurrence first (two vectors), then the whole basis once, and once more
+            # only where that pass removed most of what was left (the vectors are memory-bound)
+            w -= alpha[-1] * basis[j]
+            if j:
+                w -= beta[-1] * basis[j - 1]
             block = basis[: j + 1]
-            for _ in range(2):
-                # coefficients conj(block) @ w, written so that no conjugate copy of the basis is made
-                w = w - (block @ w.conj()).conj() @ block
-            b = float(np.linalg.norm(w))
+            before = float(np.linalg.norm(w))
+            b = _project_out(block, w)
+            if b < _REORTHOGONALISE_AGAIN * before:
+                b = _project_out(block, w)
             t = np.diag(alpha) + np.diag(beta, 1) + np.diag(beta, -1)
             evals, evecs = np.linalg.eigh(t)
             theta, s = float(evals[0]), evecs[:, 0]
@@ -116,6 +130,18 @@ def lanczos_lowest(matvec: Callable[[np.ndarray], np.ndarray], v0: np.ndarray, *
         if resid <= tol * max(1.0, abs(theta)) or len(alpha) < m or m == n:
             break
     return EigenPair(theta, x, total, float(resid), bool(resid <= tol * max(1.0, abs(theta)) or m == n))
+
+
+def _project_out(block: np.ndarray, w: np.ndarray) -> float:
+    """Remove from ``w`` (in place) its components along the orthonormal rows of ``block``
+    (one pass of classical Gram-Schmidt) and return the norm of what is left."""
+    if block.dtype.kind == "c":
+        # coefficients conj(block) @ w, written so that no conjugate copy of the basis is made
+        coef = (block @ w.conj()).conj()
+    else:
+        coef = block @ w
+    w -= coef @ block
+    return float(np.linalg.norm(w))
 
 
 def _dense_lowest(op: LinearMap, v0: np.ndarray) -> EigenPair:
