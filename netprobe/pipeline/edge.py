@@ -309,9 +309,10 @@ def _sign_reading(lys: np.ndarray, lam: np.ndarray, phases: np.ndarray, note: st
     s = per[-1]
     error = max(abs(x - s) for x in per[-tail:])
     s_all = s if all(x == s for x in per) else None
-    text = (f"lambda is real at every circumference: s read from its sign (s = 1/2 for a negative lambda at odd "
-            f"L_y, 0 otherwise: the phase pi is 2 pi (s + K) / L_y with an integer K), per circumference "
-            f"{dict(zip(map(int, lys), per))}; s at the largest, error: the largest difference among {used}")
+    text = (f"lambda is real at every circumference: s read from its sign (s = 1/2 for a negative lambda "
+            f"at odd L_y, 0 otherwise: the phase pi is 2 pi (s + K) / L_y with an integer K), per "
+            f"circumference {dict(zip(map(int, lys), per))}; s at the largest, error: the largest "
+            f"difference among {used}")
     return PolarizationFit([int(x) for x in lys], phases.tolist(), np.abs(lam).tolist(), s, error, 0.0,
                            text + ("; " + note if note else ""), used, s_all)
 
