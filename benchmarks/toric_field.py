@@ -1,4 +1,4 @@
-"""Momentum polarization of the toric code's four sectors in a uniform field, DMRG on longer cylinders (issue 10).
+"""Momentum polarization of the toric code's four sectors in a uniform field, DMRG (issue 10).
 
 Kitaev, Ann. Phys. 303, 2 (2003): the anyons 1, e, m, e x m have topological spins h = 0, 0, 0, 1/2 and
 c- = 0. At the fixed point the plain ``lambda = <T_y^L>`` is ``+2^(1 - L_y)`` in all four sectors
@@ -129,7 +129,8 @@ def main(argv=None) -> int:
                         help="start each sector from its ground state without the field")
     parser.add_argument("--progress", action="store_true", help="the engine's line per sweep on stderr")
     parser.add_argument("--jsonl", default=None, help="append one JSON object per run to this file")
-    parser.add_argument("--table", default=None, help="only print the table and fits of the runs in this file")
+    parser.add_argument("--table", default=None,
+                        help="only print the table and fits of the runs in this file")
     args = parser.parse_args(argv)
     table = []
     if args.table:
@@ -160,10 +161,11 @@ def main(argv=None) -> int:
         runs = {r["circumference"]: r for r in table if (r["sector"], r["length"]) == (sector, length)}
         runs = [runs[ly] for ly in sorted(runs)]  # the last run per circumference
         if len(runs) >= 3:
+            last = [r["rungs"][-1] for r in runs]
             fit = fit_polarization([r["circumference"] for r in runs],
-                                   [complex(r["rungs"][-1]["lambda_re"], r["rungs"][-1]["lambda_im"]) for r in runs])
-            print(f"sector {sector}, length {length}, L_y {fit.circumferences}: h_minus_c_over_24 = {fit.s:+.3f}, "
-                  f"error {fit.error}")
+                                   [complex(x["lambda_re"], x["lambda_im"]) for x in last])
+            print(f"sector {sector}, length {length}, L_y {fit.circumferences}: "
+                  f"h_minus_c_over_24 = {fit.s:+.3f}, error {fit.error}")
     return 0
 
 
