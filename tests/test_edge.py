@@ -293,6 +293,23 @@ def test_fit_recovers_a_wrapped_phase():
     assert fit.c_minus == pytest.approx(-24 * s)
 
 
+def test_fit_reads_the_spin_of_real_lambdas_from_their_sign():
+    # a real lambda has the phase 0 or pi, and pi = 2 pi (s + K) / L_y with an integer K (Tu, Zhang, Qi,
+    # PRB 88, 195412 (2013), lambda ~ exp(2 pi i (h - c-/24) / L_y)) needs s = 1/2 at odd L_y and allows
+    # only s = 0 at even L_y; a continuous fit would put a common sign into its constant and give 0
+    lys = [5, 7, 9, 11]
+    negative = fit_polarization(lys, [-(0.5**ly) for ly in lys])
+    assert negative.s == 0.5 and negative.error == 0.0 and negative.c_minus == -12.0
+    assert fit_polarization(lys, [0.5**ly for ly in lys]).s == 0.0
+    # a sign that changes inside the four largest circumferences leaves s undecided: error 1/2
+    mixed = fit_polarization([3, 5, 7], [0.1, -0.01, -0.001])
+    assert mixed.s == 0.5 and mixed.error == 0.5 and mixed.s_all is None
+    # outside them it does not enter
+    assert fit_polarization([3, 5, 7, 9, 11], [0.1, -0.01, -0.001, -1e-4, -1e-5]).error == 0.0
+    # even circumferences cannot show h = 1/2 in a real lambda
+    assert fit_polarization([4, 6, 8], [-0.1, -0.01, -0.001]).s == 0.0
+
+
 def _toric_loops(model, gs, column):
     """<Z loop> on the vertical edges of a column line and <X loop> on its horizontal edges (dual loop)."""
     n = model.num_sites

@@ -24,9 +24,10 @@ Momentum polarization (:func:`fit_polarization`)
     ``L_y``). The error combines the least-squares error with the change of s when the next
     smaller circumference joins the fit. A state real in a product basis under a real permutation
     (no twist) has a real lambda at every ``L_y``: only its sign at odd ``L_y`` can carry a spin
-    (negative: s = 1/2). At the toric code's fixed point it is positive in all four sectors, its
-    fermion's h = 1/2 included (flat spectrum; :mod:`netprobe.pipeline.loops`); the fit's note says so
-    when every lambda is real.
+    (negative: s = 1/2), so when every lambda is real the fit reads s from the signs instead of
+    fitting the phase (whose constant would absorb a common sign) and its note says so. At the toric
+    code's fixed point lambda is positive in all four sectors, its fermion's h = 1/2 included (flat
+    spectrum; :mod:`netprobe.pipeline.loops`).
 Z2 sectors (:mod:`netprobe.pipeline.loops`)
     A model file that declares ``[z2_loops]`` gets the loop values on the last column of the left
     part and the Z2 labels (charge q, flux f) in ``polarization.z2_loops``; lambda itself is the plain
@@ -272,6 +273,8 @@ def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex],
         raise NetprobeError("the momentum polarization vanishes at some circumference; its phase is "
                             "undefined")
     phases = np.unwrap(np.angle(lam))
+    if np.all(np.abs(lam.imag) <= _REAL * np.abs(lam)):
+        return _sign_reading(lys, lam, phases, note)
     coef_all, _ = _lsq(lys, phases)
     tail = min(lys.size, 4)
     coef, stat = _lsq(lys[-tail:], phases[-tail:])
@@ -290,6 +293,28 @@ def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex],
     return PolarizationFit([int(x) for x in lys], phases.tolist(), np.abs(lam).tolist(),
                            _mod1(float(coef[0])), error, float(coef[1]), text + ("; " + note if note else ""),
                            used, s_all)
+
+
+def _sign_reading(lys: np.ndarray, lam: np.ndarray, phases: np.ndarray, note: str) -> PolarizationFit:
+    """:class:`PolarizationFit` of real lambdas: ``s_L = L_y arg(lambda) / 2 pi mod 1`` at each ``L_y``.
+
+    A real lambda has the phase 0 or pi; ``pi = 2 pi (s + K) / L_y`` with an integer K needs
+    ``s = 1/2`` at odd ``L_y`` and allows only ``s = 0`` at even ``L_y``. The continuous fit cannot
+    see this (its constant absorbs a common sign), so ``s`` is read at the largest circumference and
+    the error is the largest difference among the four largest (1/2 where their signs disagree).
+    """
+    per = [0.5 if (int(ly) % 2 and value.real < 0) else 0.0 for ly, value in zip(lys, lam)]
+    tail = min(lys.size, 4)
+    used = [int(x) for x in lys[-tail:]]
+    s = per[-1]
+    error = max(abs(x - s) for x in per[-tail:])
+    s_all = s if all(x == s for x in per) else None
+    text = (f"lambda is real at every circumference: s read from its sign (s = 1/2 for a negative lambda "
+            f"at odd L_y, 0 otherwise: the phase pi is 2 pi (s + K) / L_y with an integer K), per "
+            f"circumference {dict(zip(map(int, lys), per))}; s at the largest, error: the largest "
+            f"difference among {used}")
+    return PolarizationFit([int(x) for x in lys], phases.tolist(), np.abs(lam).tolist(), s, error, 0.0,
+                           text + ("; " + note if note else ""), used, s_all)
 
 
 # --------------------------------------------------------------------------------------------------
