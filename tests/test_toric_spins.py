@@ -127,7 +127,8 @@ def test_fermion_shows_its_spin_in_a_field_at_circumference_five():
     # Kitaev, Ann. Phys. 303, 2 (2003): h = 1/2 for e x m, 0 for the vacuum; off the fixed point a real
     # lambda at odd L_y is exp(2 pi i (h + K) / L_y) |lambda| (Tu, Zhang, Qi, PRB 88, 195412 (2013)),
     # negative exactly for h = 1/2. Measured in benchmarks/RESULTS.md (field 0.25, length 4): negative
-    # for e x m from L_y = 5 on, positive at L_y = 3, so the test sits at 5
+    # for e x m at L_y = 5 (and at L_y = 7 in runs not yet converged), positive at L_y = 3, so the test
+    # sits at 5
     signs = {}
     for ends in ((1, 1), (-1, -1)):
         model = load_model("toric_code", {"length": "4", "circumference": "5", "field": "0.25",
