@@ -371,24 +371,39 @@ def test_block_eigenvalues_match_scipy(rng, dtype):
     assert np.allclose(hermitian_eigenvalues(small), scipy.linalg.eigvalsh(small), atol=tol(ref.max()))
 
 
-@pytest.mark.parametrize("name, overrides, sites", [
+#: small cases of the split route with their sites: real spins, complex couplings, fermion strings
+SPLIT_CASES = [
     ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, (1, 2, 5, 9, 10)),
     ("kagome_chiral", {}, (0, 2, 3, 7, 8, 11)),  # complex
     ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, (0, 2, 3, 7, 9, 10)),  # fermion strings
-])
+]
+
+
+def _split_case(name, overrides, sites):
+    """Model, seeded random MPS (bond dimension 16) and the reference rho of ``sites`` from its dense vector."""
+    model = load_model(name, overrides)
+    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
+    return model, state, rdm.reduced_density_matrix(state.to_vector(), list(sites), model.space)
+
+
+def _budget_under_one_step(model, state, sites):
+    """The one-step plan and a memory budget just under its peak (so that the planner must go deeper)."""
+    shallow = split_route._plan(state, sites, 1e30)
+    item = np.dtype(state.dtype).itemsize
+    return shallow, int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * item)
+
+
+@pytest.mark.parametrize("name, overrides, sites", SPLIT_CASES)
 def test_split_walk_steps_on_several_threads_equal_the_dense_vector_route(monkeypatch, name, overrides, sites):
     # reference: the partial trace of the dense state vector (common practice); every step split among
     # three threads by ket sector, the right walk also in pieces (the bra legs of its own)
-    model = load_model(name, overrides)
-    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
-    ref = rdm.reduced_density_matrix(state.to_vector(), list(sites), model.space)
+    model, state, ref = _split_case(name, overrides, sites)
     monkeypatch.setattr(split_route, "PARALLEL_ENTRIES", 0)
     monkeypatch.setattr(split_route, "_blas_threads", lambda: 3)
     rho = rdm.reduced_density_matrix(state, list(sites), model.space, method="split")
     assert np.allclose(rho, ref, atol=tol(factor=1e4))
     monkeypatch.setattr(split_route, "MAX_STREAMED", 1)
-    shallow = split_route._plan(state, sites, 1e30)
-    budget = int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * np.dtype(state.dtype).itemsize)
+    shallow, budget = _budget_under_one_step(model, state, sites)
     blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
     assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
 
@@ -412,16 +427,10 @@ def test_blocks_side_by_side_give_scipys_eigenvalues(rng, workers):
         assert np.allclose(w, ref, rtol=0, atol=tol(ref.max(), factor=len(ref)))
 
 
-@pytest.mark.parametrize("name, overrides, sites", [
-    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, (1, 2, 5, 9, 10)),
-    ("kagome_chiral", {}, (0, 2, 3, 7, 8, 11)),  # complex
-    ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, (0, 2, 3, 7, 9, 10)),  # fermion strings
-])
+@pytest.mark.parametrize("name, overrides, sites", SPLIT_CASES)
 def test_split_walks_done_in_pieces_equal_the_dense_vector_route(monkeypatch, name, overrides, sites):
     # reference: the partial trace of the dense state vector (common practice)
-    model = load_model(name, overrides)
-    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
-    ref = rdm.reduced_density_matrix(state.to_vector(), list(sites), model.space)
+    model, state, ref = _split_case(name, overrides, sites)
     # the last steps in ranges of single bond states (every piece of the join as small as it gets)
     monkeypatch.setattr(split_route, "CHUNK_ENTRIES", 1.0)
     monkeypatch.setattr(split_route, "CHUNK_FRACTION", 0.0)
@@ -430,30 +439,20 @@ def test_split_walks_done_in_pieces_equal_the_dense_vector_route(monkeypatch, na
     assert np.allclose(rho, ref, atol=tol(factor=1e4))
     # a budget just under the one-step plan's peak: deeper steps done sector by sector, same rho
     monkeypatch.setattr(split_route, "CHUNK_MIN", 10**9)
-    item = np.dtype(state.dtype).itemsize
-    shallow = split_route._plan(state, sites, 1e30)
-    budget = int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * item)
+    shallow, budget = _budget_under_one_step(model, state, sites)
     deep = split_route._plan(state, sites, split_route._budget_entries(state, sites, budget))
     assert max(deep.depth) > 1 and deep.peak < shallow.peak
     blocks = rdm.reduced_blocks(state, list(sites), model.space, memory_budget=budget)
     assert np.allclose(blocks.density_matrix(), ref, atol=tol(factor=1e4))
 
 
-@pytest.mark.parametrize("name, overrides, sites", [
-    ("heisenberg", {"lattice": "square", "circumference": "3", "length": "4"}, (1, 2, 5, 9, 10)),
-    ("kagome_chiral", {}, (0, 2, 3, 7, 8, 11)),  # complex
-    ("haldane", {"length": "3", "circumference": "2", "V": "1.0"}, (0, 2, 3, 7, 9, 10)),  # fermion strings
-])
+@pytest.mark.parametrize("name, overrides, sites", SPLIT_CASES)
 def test_split_walk_cut_by_the_bras_first_sites_equals_the_dense_vector_route(monkeypatch, name, overrides, sites):
     # reference: the partial trace of the dense state vector (common practice)
-    model = load_model(name, overrides)
-    state = random_state(model.hamiltonian, bond_dimension=16, rng=3)
-    ref = rdm.reduced_density_matrix(state.to_vector(), list(sites), model.space)
+    model, state, ref = _split_case(name, overrides, sites)
     # no deeper streaming: a budget just under the one-step plan's peak leaves only the right walk in pieces
     monkeypatch.setattr(split_route, "MAX_STREAMED", 1)
-    item = np.dtype(state.dtype).itemsize
-    shallow = split_route._plan(state, sites, 1e30)
-    budget = int(8.0 * model.space.dim ** len(sites) + 0.999 * shallow.peak * item)
+    shallow, budget = _budget_under_one_step(model, state, sites)
     cut = split_route._plan(state, sites, split_route._budget_entries(state, sites, budget))
     assert len(cut.fixes) > 1 and cut.peak < shallow.peak
     estimate = rdm.estimate_rdm_memory(state, list(sites), model.space, method="split", memory_budget=budget)
