@@ -72,6 +72,7 @@ CHARACTERS = {
 
 _SAME = 1e-6  # levels closer than this (in xi) count as degenerate with the lowest
 _REAL = 1e-10  # |Im lambda| below this fraction of |lambda|: a real lambda (rounding of real arithmetic)
+_TAIL = 4  # s is read from at most this many of the largest circumferences (the phase fit and the sign reading)
 
 
 def charge_label(charge) -> str:
@@ -276,7 +277,7 @@ def fit_polarization(circumferences: Sequence[int], lambdas: Sequence[complex],
     if np.all(np.abs(lam.imag) <= _REAL * np.abs(lam)):
         return _sign_reading(lys, lam, phases, note)
     coef_all, _ = _lsq(lys, phases)
-    tail = min(lys.size, 4)
+    tail = min(lys.size, _TAIL)
     coef, stat = _lsq(lys[-tail:], phases[-tail:])
     error = None
     if lys.size >= 5:
@@ -304,7 +305,7 @@ def _sign_reading(lys: np.ndarray, lam: np.ndarray, phases: np.ndarray, note: st
     the error is the largest difference among the four largest (1/2 where their signs disagree).
     """
     per = [0.5 if (int(ly) % 2 and value.real < 0) else 0.0 for ly, value in zip(lys, lam)]
-    tail = min(lys.size, 4)
+    tail = min(lys.size, _TAIL)
     used = [int(x) for x in lys[-tail:]]
     s = per[-1]
     error = max(abs(x - s) for x in per[-tail:])
